@@ -1,0 +1,56 @@
+"""Release-rule analysis for pretrial decisions.
+
+Stages (each a module with one job, data flowing one way):
+scenario -> cells -> strata -> costs -> solve -> evaluate -> (compare, sweep, uncertainty)
+-> plots, report, cli. For analysis of rules for groups of cases, never for a decision about
+an individual.
+"""
+
+from .cautions import CAUTIONS
+from .cells import CellLayout, CellTable, load_cell_table
+from .costs import Costs, costs_from_scenario, expected_cost
+from .errors import InfeasibleError, InputError, PolicyError, SolverError
+from .evaluate import Evaluation, evaluate
+from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .rules import Rule
+from .scenario import Scenario, load_scenario
+from .solve import optimal_rule
+from .strata import (
+    RiskLevelEstimator,
+    RiskLevels,
+    estimate_risk_levels,
+    isotonic_nonincreasing,
+    risk_level_distribution,
+)
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "CAUTIONS",
+    "Analysis",
+    "CellLayout",
+    "CellTable",
+    "CheckReport",
+    "Costs",
+    "Evaluation",
+    "InfeasibleError",
+    "InputError",
+    "PolicyError",
+    "RiskLevelEstimator",
+    "RiskLevels",
+    "Rule",
+    "Scenario",
+    "SolverError",
+    "analyze",
+    "check",
+    "costs_from_scenario",
+    "estimate",
+    "estimate_risk_levels",
+    "evaluate",
+    "expected_cost",
+    "isotonic_nonincreasing",
+    "load_cell_table",
+    "load_scenario",
+    "optimal_rule",
+    "risk_level_distribution",
+]

@@ -1,0 +1,202 @@
+"""The command line: parse, call one library function, write its files, print a summary.
+
+No numerics live here. Exit codes: 0 success, 2 bad input, 3 constraints that cannot all hold,
+4 solver trouble, 1 anything unexpected.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import List, Optional
+
+import functools
+
+import typer
+from rich.console import Console
+from rich.panel import Panel
+from rich.table import Table
+
+from .cautions import CAUTIONS, assumptions_for
+from .errors import InputError, PolicyError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help=(
+        "Release-rule analysis for pretrial decisions: risk levels, cost-minimizing rules, "
+        "comparisons and sweeps. For analysis of rules for groups of cases, never for a "
+        "decision about an individual."
+    ),
+)
+# markup is off: labels from scenario files are printed as written, never as styles
+console = Console(highlight=False, markup=False, width=120)
+err_console = Console(stderr=True, highlight=False, markup=False)
+
+def command(fn):
+    """Register a command whose tool errors become a message and the error's exit code."""
+
+    @functools.wraps(fn)
+    def run(*args, **kwargs):
+        try:
+            return fn(*args, **kwargs)
+        except PolicyError as exc:
+            err_console.print(f"error: {exc}", style="bold red")
+            conflicts = getattr(exc, "conflicts", None)
+            if conflicts is not None:
+                err_console.print(conflicts.to_string(index=False))
+            raise typer.Exit(exc.exit_code) from None
+
+    return app.command()(run)
+
+
+OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
+
+
+def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
+    out: dict[str, float] = {}
+    for item in values or []:
+        key, sep, value = item.partition("=")
+        try:
+            number = float(value)
+        except ValueError:
+            number = None
+        if not sep or not key or number is None:
+            raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
+        out[key.strip()] = number
+    return out
+
+
+def show_cautions() -> None:
+    console.print(Panel("\n".join(f"- {c}" for c in CAUTIONS), title="Cautions", border_style="yellow"))
+
+
+def show_assumptions(figure: str) -> None:
+    console.print("Assumptions behind these figures:", style="bold")
+    for a in assumptions_for(figure):
+        console.print(f"  - {a}")
+
+
+def show_written(paths) -> None:
+    console.print(f"Wrote {len(paths)} files to {paths[0].parent if paths else '?'}: "
+                  + ", ".join(p.name for p in paths))
+
+
+def _rule_table(analysis) -> Table:
+    rule, rl = analysis.rule, analysis.risk_levels
+    frame = rule.to_frame()
+    table = Table(title=f"{rule.name} (by {', '.join(rule.rule_cells.columns)})", show_lines=False)
+    for col in rule.rule_cells.columns:
+        table.add_column(col)
+    table.add_column("decision")
+    table.add_column("cases", justify="right")
+    for _, row in frame.iterrows():
+        level = row["level"] + (" (split)" if row["split"] else "")
+        table.add_row(*[str(row[c]) for c in rule.rule_cells.columns], level, f"{row.get('cases', float('nan')):,.0f}")
+    return table
+
+
+def _evaluation_table(evaluation, unit: str) -> Table:
+    table = Table(title="Expected consequences of the rule")
+    table.add_column("figure")
+    table.add_column("value", justify="right")
+    table.add_row(f"expected cost per 1,000 cases ({unit})", f"{evaluation.cost_per_1000:,.0f}")
+    for lab, share in zip(evaluation.level_labels, evaluation.level_shares):
+        table.add_row(f"share: {lab}", f"{share:.1%}")
+    for lab, rate in zip(evaluation.outcome_labels, evaluation.outcome_rates):
+        table.add_row(f"expected rate: {lab}", f"{rate:.1%}")
+    return table
+
+
+def _risk_table(rl) -> Table:
+    summary = rl.summary()
+    table = Table(title="Risk levels (share of cases)")
+    table.add_column("outcome")
+    for col in summary.columns:
+        table.add_column(col, justify="right")
+    for name, row in summary.iterrows():
+        table.add_row(str(name), *[f"{v:.1%}" for v in row])
+    return table
+
+
+@command
+def demo(out: Path = OutOption,
+         cases: Optional[int] = typer.Option(None, help="Number of simulated cases (default: the demo scenario's).")):
+    """Build the invented Quarrow County data, estimate risk levels, find the optimal rule, write all outputs."""
+    from .outputs import write_outputs
+    from .pipeline import analyze, write_demo_inputs
+
+    if cases is not None and cases <= 0:
+        raise InputError(f"--cases must be a positive number of cases; got {cases}.")
+    analysis = analyze(write_demo_inputs(out, cases)[0])
+    paths = write_outputs(out, analysis.output_files())
+    _print_analysis(analysis)
+    console.print(f"Demo data and scenario: {out / 'cases.csv'}, {out / 'scenario.toml'}")
+    show_written(paths)
+
+
+@command
+def check(scenario: Path = typer.Argument(..., help="Scenario file (TOML).")):
+    """Validate a scenario and its data; report cases, cells, sparse cells and levels never observed."""
+    from .pipeline import check as run_check
+
+    report = run_check(scenario)
+    table = Table(title=f"{report.scenario.title}: what the data hold")
+    table.add_column("finding")
+    table.add_column("value")
+    for key, value in report.findings.items():
+        table.add_row(key, str(value))
+    console.print(table)
+    console.print("The scenario and its data are valid.", style="green")
+
+
+@command
+def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption):
+    """Estimate risk levels per cell and write the cell table and risk-level tables."""
+    from .outputs import write_outputs
+    from .pipeline import as_scenario, estimate as run_estimate
+
+    sc = as_scenario(scenario)
+    cells, rl = run_estimate(sc)
+    files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
+    if cells is not None:
+        files = {"cells.csv": cells.counts_frame(sc), **files}
+    paths = write_outputs(out, files)
+    console.print(_risk_table(rl))
+    show_assumptions("risk_levels")
+    show_cautions()
+    show_written(paths)
+
+
+def _print_analysis(analysis) -> None:
+    console.print(analysis.scenario.title, style="bold")
+    console.print(_risk_table(analysis.risk_levels))
+    console.print(_rule_table(analysis))
+    console.print(_evaluation_table(analysis.evaluation, analysis.costs.unit))
+    show_assumptions("rule")
+    show_cautions()
+
+
+@command
+def solve(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
+    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
+):
+    """Find the expected-cost-minimizing release rule and write it with its evaluation."""
+    from .outputs import write_outputs
+    from .pipeline import analyze
+
+    analysis = analyze(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"))
+    paths = write_outputs(out, analysis.output_files())
+    _print_analysis(analysis)
+    show_written(paths)
+
+
+def main(argv: Optional[List[str]] = None) -> int:
+    """Run the command line; return the exit code."""
+    try:
+        app(args=argv, prog_name="policy")
+    except SystemExit as exc:
+        return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+    return 0

@@ -1,0 +1,695 @@
+"""Risk levels (principal strata for ordered decisions) and their estimation from cell counts.
+
+For outcome kind j and ordered decisions 0..K, with p_jd(x) = P(Y_j(d) = 1 | x) non-increasing
+in d (monotonicity), the risk level R_j = min{d : Y_j(d) = 0} (K+1 if the outcome occurs under
+every decision) has the distribution
+
+    P(R_j = 0 | x) = 1 - p_j0(x),  P(R_j = k | x) = p_j,k-1(x) - p_jk(x),  P(R_j = K+1 | x) = p_jK(x).
+
+Under unconfoundedness given the cell, p_jd(x) = P(Y_j = 1 | D = d, x). The cell estimator
+pools both arms, shrinks each (cell, level) rate toward a coarser pooled rate (a nested
+beta-binomial, prior strength by the method of moments), and projects each cell's rates onto
+non-increasing sequences in d by weighted isotonic regression.
+
+References
+----------
+Frangakis, C. E. and Rubin, D. B. (2002). Principal stratification in causal inference.
+Biometrics 58(1), 21-29.
+Robertson, T., Wright, F. T. and Dykstra, R. L. (1988). Order Restricted Statistical Inference.
+Wiley. (The min-max formula for isotonic regression, Theorem 1.4.4.)
+Kleinman, J. C. (1973). Proportions with extraneous variance: single and independent samples.
+JASA 68(341), 46-54. (Method-of-moments weights for overdispersed proportions.)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+
+from .cautions import assumptions_for
+from .cells import CellLayout, CellTable, code_cell_column, load_cell_table
+from .errors import InputError
+from .scenario import Scenario
+from .tables import read_table, require_columns
+
+__all__ = [
+    "RiskLevels",
+    "RiskLevelEstimator",
+    "isotonic_nonincreasing",
+    "risk_level_distribution",
+    "risk_level_names",
+    "estimate_risk_levels",
+    "load_risk_level_table",
+]
+
+#: bounds of the method-of-moments intra-cell correlation rho = 1 / (1 + prior strength)
+RHO_BOUNDS = (1e-4, 0.5)
+
+
+# ----------------------------------------------------------------------------------------------
+# Array functions (vectorized over leading axes, so bootstrap replicates can share one call)
+# ----------------------------------------------------------------------------------------------
+def isotonic_nonincreasing(y: np.ndarray, w: np.ndarray | None = None) -> np.ndarray:
+    """Weighted least-squares projection onto non-increasing sequences along the last axis.
+
+    Parameters
+    ----------
+    y : ndarray of shape (..., n)
+        Values to project, one sequence per leading index.
+    w : ndarray of shape (..., n), optional
+        Positive weights (default 1).
+
+    Returns
+    -------
+    ndarray of shape (..., n)
+        The fitted non-increasing sequences.
+
+    Notes
+    -----
+    Uses the min-max formula (Robertson, Wright and Dykstra 1988, Thm 1.4.4), for a
+    non-increasing fit f_i = min_{s<=i} max_{t>=i} Av(s, t), where Av(s, t) is the weighted
+    mean of y_s..y_t. It costs O(n^2) per sequence and is exact, which suits the short
+    sequences here (one value per decision level) and vectorizes over any number of cells
+    and replicates. It gives the same answer as pool-adjacent-violators.
+    """
+    y = np.asarray(y, dtype=np.float64)
+    w = np.ones_like(y) if w is None else np.broadcast_to(np.asarray(w, dtype=np.float64), y.shape)
+    w = np.maximum(w, 1e-300)
+    n = y.shape[-1]
+    zero = np.zeros(y.shape[:-1] + (1,))
+    cy = np.concatenate([zero, np.cumsum(w * y, axis=-1)], axis=-1)
+    cw = np.concatenate([zero, np.cumsum(w, axis=-1)], axis=-1)
+    # avg[..., s, t] for s <= t
+    with np.errstate(invalid="ignore", divide="ignore"):
+        avg = (cy[..., None, 1:] - cy[..., :-1, None]) / (cw[..., None, 1:] - cw[..., :-1, None])
+    s_idx, t_idx = np.indices((n, n))
+    avg = np.where(t_idx >= s_idx, avg, -np.inf)
+    # suffix max over t: m[..., s, i] = max_{t >= i} avg[s, t]
+    suffix_max = np.flip(np.maximum.accumulate(np.flip(avg, axis=-1), axis=-1), axis=-1)
+    # prefix min over s <= i, then the diagonal
+    suffix_max = np.where(s_idx <= t_idx, suffix_max, np.inf)
+    prefix_min = np.minimum.accumulate(suffix_max, axis=-2)
+    return np.diagonal(prefix_min, axis1=-2, axis2=-1).copy()
+
+
+def risk_level_distribution(p: np.ndarray) -> np.ndarray:
+    """Risk-level probabilities from outcome probabilities under each decision.
+
+    Parameters
+    ----------
+    p : ndarray of shape (..., L)
+        P(Y(d) = 1) for d = 0..L-1, non-increasing in d.
+
+    Returns
+    -------
+    ndarray of shape (..., L + 1)
+        P(R = r) for r = 0..L: 1 - p_0, then p_{k-1} - p_k, then p_{L-1}.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    first = 1.0 - p[..., :1]
+    middle = p[..., :-1] - p[..., 1:]
+    last = p[..., -1:]
+    return np.concatenate([first, middle, last], axis=-1)
+
+
+def outcome_probabilities(q: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`risk_level_distribution`: p_d = P(R > d) = sum_{r > d} q_r."""
+    q = np.asarray(q, dtype=np.float64)
+    tail = np.flip(np.cumsum(np.flip(q, axis=-1), axis=-1), axis=-1)
+    return tail[..., 1:]
+
+
+def risk_level_names(level_labels: Sequence[str]) -> list[str]:
+    """Plain names of the risk levels 0..K+1 for K+1 decision levels."""
+    names = ["safe"]
+    for label in level_labels[1:]:
+        names.append(f"preventable by {label} or harsher" if label != level_labels[-1] else f"preventable only by {label}")
+    names.append("not preventable")
+    return names
+
+
+def moment_prior_strength(events: np.ndarray, trials: np.ndarray, target: np.ndarray, cell_axis: int = -3) -> np.ndarray:
+    """Beta prior strength (in cases) for proportions around known targets, by moments.
+
+    Parameters
+    ----------
+    events, trials : ndarray
+        Counts per unit; the unit axis is ``cell_axis``.
+    target : ndarray
+        The prior mean of each unit's rate, broadcastable to ``events``.
+
+    Returns
+    -------
+    ndarray
+        ``events`` with the unit axis removed: kappa = 1/rho - 1 where rho, the intra-unit
+        correlation, solves E[sum n (r - m)^2] = sum m (1 - m) (1 + (n - 1) rho) (Kleinman 1973),
+        clipped to :data:`RHO_BOUNDS`.
+    """
+    n = trials.astype(np.float64)
+    m = np.clip(target, 1e-9, 1 - 1e-9)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.where(n > 0, events / np.where(n > 0, n, 1), m)
+    var = m * (1 - m)
+    used = n > 0
+    s = np.sum(np.where(used, n * (r - m) ** 2, 0.0), axis=cell_axis)
+    base = np.sum(np.where(used, var, 0.0), axis=cell_axis)
+    denom = np.sum(np.where(used, var * (n - 1), 0.0), axis=cell_axis)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rho = (s - base) / denom
+    rho = np.where(np.isfinite(rho), rho, RHO_BOUNDS[0])
+    rho = np.clip(rho, *RHO_BOUNDS)
+    return 1.0 / rho - 1.0
+
+
+def design_matrix(layout: CellLayout, columns: Sequence[str], n_levels: int) -> np.ndarray:
+    """Design of the target model: intercept, one-hot main effects of the cell columns (first
+    category dropped) and decision-level effects (level 0 dropped).
+
+    Returns
+    -------
+    ndarray of shape (n_cells * n_levels, k)
+        Rows ordered cell-major: row x * n_levels + d.
+    """
+    blocks = [np.ones((layout.n_cells, 1))]
+    for col in columns:
+        codes = layout.codes(col)
+        k = len(layout.categories(col))
+        if k > 1:
+            blocks.append(np.eye(k)[codes][:, 1:])
+    cell_part = np.concatenate(blocks, axis=1)
+    level_part = np.eye(n_levels)[:, 1:]
+    rows_cell = np.repeat(cell_part, n_levels, axis=0)
+    rows_level = np.tile(level_part, (layout.n_cells, 1))
+    return np.concatenate([rows_cell, rows_level], axis=1)
+
+
+def fit_logistic_counts(X: np.ndarray, events: np.ndarray, trials: np.ndarray, ridge: float = 1.0,
+                        max_iter: int = 50, tol: float = 1e-9) -> np.ndarray:
+    """Ridge-penalized binomial logistic regression on counts, by Newton's method, batched.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n, k)
+        Design; column 0 is the intercept (not penalized).
+    events, trials : ndarray of shape (..., n)
+        Counts; any leading axes are independent fits solved together.
+    ridge : float
+        Penalty 0.5 * ridge * ||beta[1:]||^2 (keeps sparse categories finite).
+
+    Returns
+    -------
+    ndarray of shape (..., k)
+        Coefficients. With ``ridge=0`` they equal an unpenalized binomial GLM
+        (checked against statsmodels in the tests).
+    """
+    events = np.asarray(events, dtype=np.float64)
+    trials = np.asarray(trials, dtype=np.float64)
+    k = X.shape[1]
+    penalty = np.full(k, float(ridge))
+    penalty[0] = 0.0
+    total = trials.sum(axis=-1)
+    rate = np.clip(events.sum(axis=-1) / np.where(total > 0, total, 1), 1e-6, 1 - 1e-6)
+    beta = np.zeros(events.shape[:-1] + (k,))
+    beta[..., 0] = np.log(rate / (1 - rate))
+    for _ in range(max_iter):
+        eta = beta @ X.T
+        mu = expit(eta)
+        grad = (events - trials * mu) @ X - penalty * beta
+        w = trials * mu * (1 - mu)
+        hess = np.einsum("nk,...n,nl->...kl", X, w, X) + np.diag(penalty) + 1e-10 * np.eye(k)
+        step = np.linalg.solve(hess, grad[..., None])[..., 0]
+        beta = beta + step
+        if np.max(np.abs(step)) < tol:
+            break
+    return beta
+
+
+def shrunk_rates(
+    events: np.ndarray,
+    observed: np.ndarray,
+    design: np.ndarray,
+    prior_strength: float | str = "auto",
+    ridge: float = 1.0,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Rates per (cell, outcome, level) shrunk toward a logistic model's rate (beta-binomial).
+
+    Parameters
+    ----------
+    events, observed : ndarray of shape (..., n_cells, J, L)
+        Counts pooled over arms.
+    design : ndarray of shape (n_cells * L, k)
+        Design of the target model (see :func:`design_matrix`).
+    prior_strength : 'auto' or float
+        Prior strength (in cases) around the target; 'auto' estimates it by moments per
+        outcome kind and level.
+    ridge : float
+        Ridge penalty of the target model.
+
+    Returns
+    -------
+    rate : ndarray of shape (..., n_cells, J, L)
+        Posterior mean rates (equal to the target where a level was never observed).
+    weight : ndarray of shape (..., n_cells, J, L)
+        Observed cases plus prior strength: the weights of the isotonic projection.
+    kappa : ndarray of shape (..., J, L)
+        Prior strength used.
+    target : ndarray of shape (..., n_cells, J, L)
+        The target model's rates.
+    """
+    events = np.asarray(events, dtype=np.float64)
+    observed = np.asarray(observed, dtype=np.float64)
+    n_cells, J, L = events.shape[-3:]
+    # (..., J, n_cells * L) in the design's cell-major row order
+    e = np.swapaxes(events, -3, -2).reshape(events.shape[:-3] + (J, n_cells * L))
+    n = np.swapaxes(observed, -3, -2).reshape(e.shape)
+    beta = fit_logistic_counts(design, e, n, ridge)
+    target = expit(beta @ design.T).reshape(events.shape[:-3] + (J, n_cells, L))
+    target = np.swapaxes(target, -3, -2)
+    if prior_strength == "auto":
+        kappa = moment_prior_strength(events, observed, target)
+    else:
+        kappa = np.full(events.shape[:-3] + (J, L), float(prior_strength))
+    k = kappa[..., None, :, :]
+    weight = observed + k
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rate = np.where(weight > 0, (events + k * target) / np.where(weight > 0, weight, 1), target)
+    # a level never observed in a cell still needs a positive weight in the projection
+    weight = np.where(weight > 0, weight, 1e-6)
+    return rate, weight, kappa, target
+
+
+# ----------------------------------------------------------------------------------------------
+# Result type of the stage
+# ----------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class RiskLevels:
+    """Estimated risk levels for every cell and outcome kind.
+
+    Attributes
+    ----------
+    layout : CellLayout
+        What each cell is.
+    level_values, level_labels : tuple of str
+        Decision levels 0..K, most lenient first (L = K + 1 of them).
+    outcome_keys, outcome_labels : tuple of str
+        Outcome kinds (J of them).
+    weights : ndarray of shape (n_cells,)
+        Cases (or population weight) per cell.
+    p : ndarray of shape (n_cells, J, L)
+        P(adverse outcome | decision d, cell), non-increasing in d.
+    borrowed : ndarray of shape (n_cells, J, L), bool
+        The level was never observed in the cell: its estimate comes from the pooled rate.
+    cell_costs : dict of str to ndarray of shape (n_cells,)
+        Per-cell values of cost columns.
+    structural_zero : ndarray of shape (J, L), bool
+        Levels declared to make the outcome impossible.
+    prior_strength : ndarray of shape (J, L) or None
+        Prior strength used by the estimator (cases), if estimated here.
+    source : str
+        Where the estimates came from.
+    """
+
+    layout: CellLayout
+    level_values: tuple[str, ...]
+    level_labels: tuple[str, ...]
+    outcome_keys: tuple[str, ...]
+    outcome_labels: tuple[str, ...]
+    weights: np.ndarray
+    p: np.ndarray
+    borrowed: np.ndarray
+    cell_costs: Mapping[str, np.ndarray] = field(default_factory=dict)
+    structural_zero: np.ndarray | None = None
+    prior_strength: np.ndarray | None = None
+    source: str = ""
+    assumptions: tuple[str, ...] = tuple(assumptions_for("risk_levels"))
+
+    @property
+    def n_cells(self) -> int:
+        return self.layout.n_cells
+
+    @property
+    def n_levels(self) -> int:
+        return len(self.level_values)
+
+    @property
+    def q(self) -> np.ndarray:
+        """Risk-level distribution, shape (n_cells, J, L + 1)."""
+        return np.clip(risk_level_distribution(self.p), 0.0, 1.0)
+
+    @property
+    def risk_level_names(self) -> list[str]:
+        return risk_level_names(self.level_labels)
+
+    def with_p(self, p: np.ndarray, source: str | None = None) -> "RiskLevels":
+        """The same cells with other outcome probabilities (used by bounds and bootstrap)."""
+        from dataclasses import replace
+
+        return replace(self, p=p, source=self.source if source is None else source)
+
+    # -- presentation ------------------------------------------------------------------------
+    def shares(self) -> pd.DataFrame:
+        """Share of cases at each risk level, overall and by each protected group.
+
+        Columns: ``outcome``, ``attribute`` ("all" overall), ``group``, ``risk_level`` (0..K+1),
+        ``risk_level_name``, ``share``, ``cases``.
+        """
+        q = self.q
+        names = self.risk_level_names
+        rows = []
+        splits = [("all", np.zeros(self.n_cells, dtype=np.int64), ["all"])]
+        for attr in self.layout.protected:
+            splits.append((attr, self.layout.codes(attr), [str(c) for c in self.layout.categories(attr)]))
+        for attr, codes, groups in splits:
+            n_groups = len(groups)
+            wsum = np.bincount(codes, weights=self.weights, minlength=n_groups)
+            for j, key in enumerate(self.outcome_keys):
+                for r, name in enumerate(names):
+                    share = np.bincount(codes, weights=self.weights * q[:, j, r], minlength=n_groups)
+                    for g, group in enumerate(groups):
+                        rows.append((key, attr, group, r, name, share[g] / wsum[g] if wsum[g] else np.nan, wsum[g]))
+        return pd.DataFrame(rows, columns=["outcome", "attribute", "group", "risk_level", "risk_level_name", "share", "cases"])
+
+    def summary(self) -> pd.DataFrame:
+        """Overall shares: one row per outcome kind, one column per risk level."""
+        shares = self.shares()
+        overall = shares[shares["attribute"] == "all"]
+        table = overall.pivot(index="outcome", columns="risk_level_name", values="share")
+        table = table.reindex(index=list(self.outcome_keys), columns=self.risk_level_names)
+        table.index = [self.outcome_labels[self.outcome_keys.index(k)] for k in table.index]
+        table.columns.name = None
+        return table
+
+    def __str__(self) -> str:
+        lines = [f"Risk levels from {self.source} ({self.n_cells:,} cells, {self.weights.sum():,.0f} cases):"]
+        lines.append(self.summary().to_string(float_format=lambda v: f"{v:6.1%}"))
+        borrowed = self.borrowed.any(axis=1).sum(axis=0)
+        lines.append("Cells where a level was never observed (estimate borrowed from the pooled rate): "
+                     + ", ".join(f"{lab}: {int(n):,}" for lab, n in zip(self.level_labels, borrowed)))
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        return f"<p>Risk levels from {self.source}</p>" + self.summary().to_html(float_format=lambda v: f"{v:.1%}")
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per cell x outcome: cell columns, ``outcome``, ``cases``, ``risk_level_0`` ...
+        ``risk_level_{K+1}``, ``p_<level>`` and ``borrowed_<level>`` per decision level, and the
+        cost columns. Loading it back with :func:`load_risk_level_table` gives the same estimates.
+        """
+        J, L = len(self.outcome_keys), self.n_levels
+        cell = np.repeat(np.arange(self.n_cells), J)
+        outcome = np.tile(np.arange(J), self.n_cells)
+        out = self.layout.frame.iloc[cell].reset_index(drop=True).copy()
+        for c in out.columns:
+            out[c] = out[c].astype(object)
+        out["outcome"] = np.asarray(self.outcome_keys, dtype=object)[outcome]
+        out["cases"] = self.weights[cell]
+        q = self.q.reshape(-1, L + 1)
+        for r in range(L + 1):
+            out[f"risk_level_{r}"] = q[:, r]
+        p = self.p.reshape(-1, L)
+        b = self.borrowed.reshape(-1, L)
+        for d, value in enumerate(self.level_values):
+            out[f"p_{value}"] = p[:, d]
+        for d, value in enumerate(self.level_values):
+            out[f"borrowed_{value}"] = b[:, d]
+        for col, values in self.cell_costs.items():
+            out[col] = values[cell]
+        return out
+
+
+# ----------------------------------------------------------------------------------------------
+# The estimator
+# ----------------------------------------------------------------------------------------------
+class RiskLevelEstimator:
+    """Cell estimator of risk levels: pooled over arms, shrunk, projected to monotone.
+
+    Parameters
+    ----------
+    prior_strength : 'auto' or float, default 'auto'
+        Strength (in cases) of the beta prior centred on the target model's rate; 'auto'
+        estimates it per outcome kind and level by the method of moments.
+    target_covariates : sequence of str or None, default None
+        Cell columns of the target model (a ridge-penalized logistic regression of the outcome
+        on main effects of these columns and the decision level). None: every cell column.
+    ridge : float, default 1.0
+        Ridge penalty of the target model.
+    structural_zeros : mapping of int to int, optional
+        Outcome position -> first decision level at which the outcome cannot occur.
+
+    Attributes
+    ----------
+    risk_levels_ : RiskLevels
+        The estimates after :meth:`fit`.
+    prior_strength_ : ndarray of shape (J, L)
+        The prior strength used.
+    target_ : ndarray of shape (n_cells, J, L)
+        The target model's rates.
+
+    Notes
+    -----
+    A cell's rate at a level it never observed is the target model's rate there: the model
+    carries the cell's risk from the levels it did observe (through its covariates) and the
+    level's effect from other cells. The output flags those levels (``borrowed``).
+    """
+
+    def __init__(self, prior_strength: float | str = "auto", target_covariates: Sequence[str] | None = None,
+                 ridge: float = 1.0, structural_zeros: Mapping[int, int] | None = None):
+        self.prior_strength = prior_strength
+        self.target_covariates = None if target_covariates is None else tuple(target_covariates)
+        self.ridge = ridge
+        self.structural_zeros = dict(structural_zeros or {})
+
+    @classmethod
+    def from_scenario(cls, scenario: Scenario) -> "RiskLevelEstimator":
+        zeros = {j: o.impossible_from for j, o in enumerate(scenario.outcomes) if o.impossible_from is not None}
+        est = scenario.estimator
+        return cls(est.prior_strength, est.target_covariates, est.ridge, zeros)
+
+    def zero_mask(self, J: int, L: int) -> np.ndarray:
+        mask = np.zeros((J, L), dtype=bool)
+        for j, d in self.structural_zeros.items():
+            mask[j, d:] = True
+        return mask
+
+    def design(self, layout: CellLayout, n_levels: int) -> np.ndarray:
+        """The target model's design for these cells."""
+        columns = layout.columns if self.target_covariates is None else self.target_covariates
+        for col in columns:
+            if col not in layout.columns:
+                raise InputError(f"target_covariates lists {col!r}, which is not a cell column; expected one of: {', '.join(layout.columns)}.")
+        return design_matrix(layout, columns, n_levels)
+
+    def estimate_p(self, events: np.ndarray, observed: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Monotone outcome probabilities from counts pooled over arms.
+
+        Parameters
+        ----------
+        events, observed : ndarray of shape (..., n_cells, J, L)
+        design : ndarray of shape (n_cells * L, k)
+
+        Returns
+        -------
+        p : ndarray of shape (..., n_cells, J, L)
+        kappa : ndarray of shape (..., J, L)
+        target : ndarray of shape (..., n_cells, J, L)
+        """
+        J, L = events.shape[-2:]
+        zero = self.zero_mask(J, L)
+        # structural zeros are known, not estimated: keep them out of the target model
+        observed = np.where(zero, 0, observed)
+        events = np.where(zero, 0, events)
+        rate, weight, kappa, target = shrunk_rates(events, observed, design, self.prior_strength, self.ridge)
+        rate = np.where(zero, 0.0, rate)
+        p = isotonic_nonincreasing(rate, weight)
+        return np.clip(np.where(zero, 0.0, p), 0.0, 1.0), kappa, target
+
+    def fit(self, cells: CellTable, level_labels: Sequence[str] | None = None,
+            outcome_labels: Sequence[str] | None = None) -> "RiskLevelEstimator":
+        """Estimate risk levels from a cell table."""
+        events = cells.events.sum(axis=1)
+        observed = cells.observed.sum(axis=1)
+        J, L = events.shape[1:]
+        zero = self.zero_mask(J, L)
+        seen = observed.sum(axis=0) > 0
+        missing = ~seen & ~zero
+        if missing.any():
+            j, d = map(int, np.argwhere(missing)[0])
+            raise InputError(
+                f"{cells.source}: outcome {cells.outcomes[j]!r} is never observed among cases given level "
+                f"{cells.levels[d]!r}; the data cannot tell how cases fare under it. Declare it impossible "
+                "there (impossible_from) or supply risk levels estimated elsewhere."
+            )
+        p, kappa, target = self.estimate_p(events, observed, self.design(cells.layout, L))
+        self.prior_strength_ = kappa
+        self.target_ = target
+        self.risk_levels_ = RiskLevels(
+            layout=cells.layout,
+            level_values=cells.levels,
+            level_labels=tuple(level_labels or cells.levels),
+            outcome_keys=cells.outcomes,
+            outcome_labels=tuple(outcome_labels or cells.outcomes),
+            weights=cells.weights.astype(np.float64),
+            p=p,
+            borrowed=(observed == 0) & ~zero,
+            cell_costs=dict(cells.cell_costs),
+            structural_zero=zero,
+            prior_strength=kappa,
+            source=f"cell estimator on {cells.source}",
+        )
+        return self
+
+
+# ----------------------------------------------------------------------------------------------
+# Second way in: an already estimated risk-level table
+# ----------------------------------------------------------------------------------------------
+def risk_level_table_columns(scenario: Scenario) -> list[str]:
+    L = len(scenario.levels)
+    return list(scenario.cell_columns) + ["outcome", "cases"] + [f"risk_level_{r}" for r in range(L + 1)] + list(scenario.cost_columns)
+
+
+def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | None = None) -> RiskLevels:
+    """Validate an already estimated risk-level table (one row per cell x outcome kind).
+
+    Columns: the cell columns, ``outcome`` (an outcome key), ``cases`` (weight of the cell),
+    ``risk_level_0`` ... ``risk_level_{K+1}`` (probabilities in [0, 1] summing to 1 within
+    1e-6), optional ``borrowed_<level>`` flags, and the cost columns.
+    """
+    file = file or frame.attrs.get("file", "risk-level table")
+    L, J = len(scenario.levels), len(scenario.outcomes)
+    cols = risk_level_table_columns(scenario)
+    require_columns(frame.columns, cols, file, f"a risk-level table for {scenario.file}")
+    if len(frame) == 0:
+        raise InputError(f"{file}: the risk-level table has no rows.")
+    keys = frame["outcome"].astype(str).to_numpy()
+    unknown = ~np.isin(keys, scenario.outcome_keys)
+    if unknown.any():
+        rows = np.flatnonzero(unknown)
+        raise InputError(
+            f"{file}: column 'outcome' has values that are not declared outcome keys: "
+            f"{sorted(set(keys[rows]))[:5]} in {len(rows)} rows (first: row {rows[0] + 1}); expected one of: "
+            f"{', '.join(scenario.outcome_keys)}."
+        )
+    q_cols = [f"risk_level_{r}" for r in range(L + 1)]
+    q = frame[q_cols].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=np.float64)
+    bad = ~np.isfinite(q) | (q < -1e-9) | (q > 1 + 1e-9)
+    if bad.any():
+        row, col = map(int, np.argwhere(bad)[0])
+        n = int(bad.any(axis=1).sum())
+        raise InputError(
+            f"{file}: column {q_cols[col]!r} must hold probabilities in [0, 1]; got {frame[q_cols[col]].iloc[row]!r} "
+            f"({n} rows with such values, first: row {row + 1})."
+        )
+    off = np.abs(q.sum(axis=1) - 1.0) > 1e-6
+    if off.any():
+        rows = np.flatnonzero(off)
+        raise InputError(
+            f"{file}: risk_level_0..risk_level_{L} must sum to 1 within 1e-6 in every row; they sum to "
+            f"{q[rows[0]].sum():.8f} in row {rows[0] + 1} ({len(rows)} rows off)."
+        )
+    weights = pd.to_numeric(frame["cases"], errors="coerce").to_numpy(dtype=np.float64)
+    badw = ~np.isfinite(weights) | (weights <= 0)
+    if badw.any():
+        rows = np.flatnonzero(badw)
+        raise InputError(f"{file}: column 'cases' must hold weights > 0; got {frame['cases'].iloc[rows[0]]!r} in {len(rows)} rows (first: row {rows[0] + 1}).")
+
+    codes, cats = [], {}
+    for col in scenario.cell_columns:
+        c, k = code_cell_column(frame[col], col, file, scenario.order.get(col))
+        codes.append(c)
+        cats[col] = k
+    sizes = [len(cats[c]) for c in scenario.cell_columns]
+    key = np.ravel_multi_index(codes, sizes)
+    cell_ids, cell_pos = np.unique(key, return_inverse=True)
+    n_cells = len(cell_ids)
+    j_idx = np.array([scenario.outcome_keys.index(k) for k in keys])
+    slot = cell_pos * J + j_idx
+    counts = np.bincount(slot, minlength=n_cells * J)
+    if (counts > 1).any():
+        row = int(np.flatnonzero(counts[slot] > 1)[0])
+        raise InputError(f"{file}: a cell has more than one row for outcome {keys[row]!r} (first: row {row + 1}); each cell x outcome must appear once.")
+    if (counts == 0).any():
+        cell = int(np.flatnonzero(counts == 0)[0]) // J
+        row = int(np.flatnonzero(cell_pos == cell)[0])
+        have = sorted(set(keys[cell_pos == cell]))
+        raise InputError(f"{file}: the cell of row {row + 1} has rows for outcomes {have} only; every cell needs a row for each of: {', '.join(scenario.outcome_keys)}.")
+    w_cell = np.zeros(n_cells)
+    w_cell[cell_pos] = weights
+    mismatch = np.abs(weights - w_cell[cell_pos]) > 1e-9 * np.maximum(1.0, weights)
+    if mismatch.any():
+        row = int(np.flatnonzero(mismatch)[0])
+        raise InputError(f"{file}: column 'cases' differs between outcome rows of the same cell (first: row {row + 1}).")
+    qq = np.zeros((n_cells, J, L + 1))
+    qq[cell_pos, j_idx] = np.clip(q, 0.0, 1.0)
+    qq /= qq.sum(axis=-1, keepdims=True)
+    p = outcome_probabilities(qq)
+    borrowed = np.zeros((n_cells, J, L), dtype=bool)
+    for d, value in enumerate(scenario.level_values):
+        col = f"borrowed_{value}"
+        if col in frame.columns:
+            borrowed[cell_pos, j_idx, d] = frame[col].astype(str).str.lower().isin(["true", "1"]).to_numpy()
+    zero = np.zeros((J, L), dtype=bool)
+    for j, o in enumerate(scenario.outcomes):
+        if o.impossible_from is not None:
+            zero[j, o.impossible_from:] = True
+            viol = p[:, j, o.impossible_from:].max() if n_cells else 0.0
+            if viol > 1e-6:
+                raise InputError(
+                    f"{file}: outcome {o.key!r} is declared impossible from level {o.impossible_from} on, but the table "
+                    f"gives it probability {viol:.4f} there (risk_level_{o.impossible_from + 1} and above must be 0)."
+                )
+    cell_costs = {}
+    for col in scenario.cost_columns:
+        values = pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=np.float64)
+        if (~np.isfinite(values) | (values < 0)).any():
+            row = int(np.flatnonzero(~np.isfinite(values) | (values < 0))[0])
+            raise InputError(f"{file}: cost column {col!r} must hold numbers >= 0; got {frame[col].iloc[row]!r} in row {row + 1}.")
+        v = np.zeros(n_cells)
+        v[cell_pos] = values
+        cell_costs[col] = v
+    parts = np.unravel_index(cell_ids, sizes)
+    layout_frame = pd.DataFrame({
+        c: pd.Categorical.from_codes(part.astype(np.int64), categories=cats[c], ordered=True)
+        for c, part in zip(scenario.cell_columns, parts)
+    })
+    layout = CellLayout(layout_frame, scenario.protected, scenario.rule_covariates, scenario.aid.score)
+    return RiskLevels(
+        layout=layout,
+        level_values=scenario.level_values,
+        level_labels=scenario.level_labels,
+        outcome_keys=scenario.outcome_keys,
+        outcome_labels=scenario.outcome_labels,
+        weights=w_cell,
+        p=p,
+        borrowed=borrowed,
+        cell_costs=cell_costs,
+        structural_zero=zero,
+        source=f"risk-level table {file}",
+    )
+
+
+def load_risk_level_table(scenario: Scenario) -> RiskLevels:
+    """Read and validate the scenario's already estimated risk-level table."""
+    cols = risk_level_table_columns(scenario)
+    frame = read_table(scenario.data.path, None, f"risk-level table ({scenario.file} [data] risk_level_table)")
+    require_columns(frame.columns, cols, frame.attrs["file"], f"a risk-level table for {scenario.file}")
+    return risk_levels_from_frame(frame, scenario)
+
+
+def estimate_risk_levels(scenario: Scenario, cells: CellTable | None = None) -> RiskLevels:
+    """Risk levels for a scenario: estimated from its cell table, or read from its risk-level table.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    cells : CellTable, optional
+        An already built cell table (default: :func:`policy.cells.load_cell_table`).
+    """
+    if scenario.data.kind == "risk_level_table":
+        return load_risk_level_table(scenario)
+    cells = cells if cells is not None else load_cell_table(scenario)
+    est = RiskLevelEstimator.from_scenario(scenario).fit(cells, scenario.level_labels, scenario.outcome_labels)
+    return est.risk_levels_
