@@ -176,6 +176,11 @@ class CellTable:
         Mean per-case value of each cost column in each cell.
     source : str
         Where the counts came from.
+    state_counts : ndarray of shape (n_cells, n_arms, L, 3**J) or None
+        Cases per joint outcome state (per outcome kind: 0 missing, 1 no event, 2 event;
+        outcome 0 is the most significant base-3 digit). Known when aggregated from cases;
+        None for a counts table, which holds only the margins. Resampling cases (the
+        bootstrap) needs it to keep outcome kinds of one case together.
     """
 
     layout: CellLayout
@@ -188,6 +193,7 @@ class CellTable:
     recommended: np.ndarray | None = None
     cell_costs: Mapping[str, np.ndarray] = field(default_factory=dict)
     source: str = ""
+    state_counts: np.ndarray | None = None
 
     # -- shapes and margins ------------------------------------------------------------------
     @property
@@ -296,7 +302,7 @@ class CellTable:
         cell_costs = {col: s / w for col, s in cost_sums.items()}
         layout = CellLayout(frame, scenario.protected, scenario.rule_covariates, scenario.aid.score)
         return cls(layout, scenario.level_values, scenario.outcome_keys, arms, cases, observed, events,
-                   recommended, cell_costs, source)
+                   recommended, cell_costs, source, state_counts=counts.sum(axis=3))
 
     @classmethod
     def from_counts(cls, frame: pd.DataFrame, scenario: Scenario, file: str | None = None) -> "CellTable":
