@@ -381,13 +381,16 @@ class CellTable:
         return table
 
     def to_frame(self) -> pd.DataFrame:
-        """The counts table: one row per cell x arm x decision level with cases > 0.
+        """The counts table: one row per cell x arm x decision level with cases > 0 (or with
+        cases the aid recommended that level for).
 
         Reading it back with :meth:`from_counts` gives the same cell table.
         """
         n, A, L = self.cases.shape
         idx_cell, idx_arm, idx_level = np.unravel_index(np.arange(n * A * L), (n, A, L))
         keep = self.cases.reshape(-1) > 0
+        if self.recommended is not None:
+            keep |= self.recommended.reshape(-1) > 0
         out = self.layout.frame.iloc[idx_cell[keep]].reset_index(drop=True).copy()
         for c in out.columns:
             out[c] = out[c].astype(object)
