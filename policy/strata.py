@@ -220,7 +220,8 @@ def fit_logistic_counts(X: np.ndarray, events: np.ndarray, trials: np.ndarray, r
         mu = expit(eta)
         grad = (events - trials * mu) @ X - penalty * beta
         w = trials * mu * (1 - mu)
-        hess = np.einsum("nk,...n,nl->...kl", X, w, X) + np.diag(penalty) + 1e-10 * np.eye(k)
+        # X^T diag(w) X as one batched matrix product (BLAS): the hot spot of bootstrap replicates
+        hess = (w[..., None, :] * X.T) @ X + np.diag(penalty) + 1e-10 * np.eye(k)
         step = np.linalg.solve(hess, grad[..., None])[..., 0]
         beta = beta + step
         if np.max(np.abs(step)) < tol:
