@@ -12,6 +12,8 @@ from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .uncertainty import BootstrapResult, bootstrap
+from .compare import Comparison, compare
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
@@ -31,6 +33,8 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "BootstrapResult",
+    "Comparison",
     "Costs",
     "Evaluation",
     "InfeasibleError",
@@ -42,7 +46,9 @@ __all__ = [
     "Scenario",
     "SolverError",
     "analyze",
+    "bootstrap",
     "check",
+    "compare",
     "costs_from_scenario",
     "estimate",
     "estimate_risk_levels",
