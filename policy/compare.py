@@ -221,7 +221,7 @@ def candidate_rule(spec: CandidateSpec, layout: CellLayout, level_values: Sequen
 
 
 def _describe(row: pd.Series, columns: Sequence[str]) -> str:
-    return ", ".join(f"{c}={row[c]!r}" for c in columns)
+    return ", ".join(f"{c}={v.item() if isinstance(v, np.generic) else v!r}" for c, v in ((c, row[c]) for c in columns))
 
 
 def _threshold_rule(spec: CandidateSpec, layout: CellLayout, level_values, level_labels, weights, what: str) -> Rule:
@@ -724,7 +724,7 @@ class Comparison:
 
 
 def compare(scenario, replicates: int | None = None, seed: int | None = None, resampling: str | None = None,
-            interval: float | None = None, workers: int | None = None, runner: TaskRunner | None = None,
+            interval: float | None = None, outcomes: str | None = None, workers: int | None = None, runner: TaskRunner | None = None,
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
             outcome_costs: Mapping[str, float] | None = None,
             decision_costs: Mapping[str, float] | None = None) -> Comparison:
@@ -733,7 +733,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     Parameters
     ----------
     scenario : Scenario or path
-    replicates, seed, resampling, interval : optional
+    replicates, seed, resampling, interval, outcomes : optional
         Override the scenario's ``[uncertainty]`` settings and ``[scenario] seed``.
     workers, runner : optional
         How replicates are run (see :func:`policy.uncertainty.bootstrap`); the output does not
@@ -763,6 +763,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         base.interval if interval is None else interval,
         base.resampling if resampling is None else resampling,
         "compare:",
+        base.outcomes if outcomes is None else outcomes,
     )
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
@@ -782,9 +783,13 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                                     [r.cell_delta for r in fixed], cells.has_arm, len(cells.arms), solvers, rl)
     result = bootstrap(cells, statistic, settings.replicates, scenario.seed if seed is None else seed,
                        settings.resampling, settings.interval, runner=runner, workers=workers, progress=progress,
-                       description="compare: bootstrap replicates")
+                       description="compare: bootstrap replicates",
+                       outcome_model=rl.p if settings.outcomes == "model" else None)
     notes = [r.note and f"{r.name}: {r.note}" for r in all_rules if r.note]
-    if not result.joint_states:
+    if result.outcomes == "model":
+        notes.append("replicate outcomes were drawn from the estimated risk levels (model-based bootstrap), "
+                     "independently per outcome kind given cell and level")
+    elif not result.joint_states:
         notes.append("counts-table input: outcome kinds of one case were resampled independently given cell, arm and level")
     notes.append("the optimum is re-solved in each replicate; its estimated cost is optimistic (chosen on the same data)")
     return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes))

@@ -88,6 +88,7 @@ __all__ = [
 #: replicates per task; fixed so that results do not depend on the number of workers
 CHUNK = 25
 METHODS = ("poisson", "multinomial")
+OUTCOME_DRAWS = ("model", "cases")
 
 
 # ----------------------------------------------------------------------------------------------
@@ -100,6 +101,7 @@ class UncertaintySettings:
     replicates: int = 1000
     interval: float = 0.95
     resampling: str = "poisson"
+    outcomes: str = "model"
 
 
 UNCERTAINTY_KEYS = (
@@ -108,6 +110,9 @@ UNCERTAINTY_KEYS = (
     Key("resampling", (str,), False, "poisson",
         "'poisson' (cases get Poisson(1) weights: intervals for the population) or 'multinomial' "
         "(cases redrawn within each cell x arm: intervals given the observed case mix)"),
+    Key("outcomes", (str,), False, "model",
+        "'model' (replicate outcomes drawn from the estimated risk levels: the parametric bootstrap that keeps "
+        "shrinkage estimates calibrated) or 'cases' (each case keeps its own outcomes: fully nonparametric)"),
 )
 
 
@@ -115,10 +120,11 @@ def _parse_uncertainty(raw: Any, scenario: Scenario) -> UncertaintySettings:
     if raw is None:
         return UncertaintySettings()
     s = read_section(raw, UNCERTAINTY_KEYS, "[uncertainty]", scenario.file)
-    return validate_settings(s["replicates"], s["interval"], s["resampling"], f"{scenario.file}: [uncertainty]")
+    return validate_settings(s["replicates"], s["interval"], s["resampling"], f"{scenario.file}: [uncertainty]", s["outcomes"])
 
 
-def validate_settings(replicates: int, interval: float, resampling: str, where: str) -> UncertaintySettings:
+def validate_settings(replicates: int, interval: float, resampling: str, where: str,
+                      outcomes: str = "model") -> UncertaintySettings:
     """Check bootstrap settings, naming ``where`` they came from in messages."""
     if replicates < 0:
         raise InputError(f"{where} replicates must be >= 0; got {replicates!r}.")
@@ -126,7 +132,9 @@ def validate_settings(replicates: int, interval: float, resampling: str, where: 
         raise InputError(f"{where} interval must lie strictly between 0 and 1 (e.g. 0.95); got {interval!r}.")
     if resampling not in METHODS:
         raise InputError(f"{where} resampling must be one of: {', '.join(METHODS)}; got {resampling!r}.")
-    return UncertaintySettings(int(replicates), float(interval), resampling)
+    if outcomes not in OUTCOME_DRAWS:
+        raise InputError(f"{where} outcomes must be one of: {', '.join(OUTCOME_DRAWS)}; got {outcomes!r}.")
+    return UncertaintySettings(int(replicates), float(interval), resampling, outcomes)
 
 
 register_section("[uncertainty]", UNCERTAINTY_KEYS, _parse_uncertainty)
@@ -179,15 +187,20 @@ class CountResampler:
     ----------
     cells : CellTable
     method : {'poisson', 'multinomial'}
+    outcome_model : ndarray of shape (n_cells, J, L), optional
+        Outcome probabilities to draw replicate outcomes from (the parametric, model-based
+        bootstrap): cases per cell x arm x level are resampled as by ``method``, the observed
+        ones among them thinned with the slot's observed share, and events drawn as
+        Binomial(observed*, p[x, j, d]). None: each case keeps its own outcomes.
 
     Attributes
     ----------
     joint : bool
-        True when the joint outcome states are resampled (case table input); False for the
-        counts-table fallback.
+        True when the joint outcome states are resampled (case table input, no outcome model);
+        False for the counts-table fallback and for model-based outcomes.
     """
 
-    def __init__(self, cells: CellTable, method: str = "poisson"):
+    def __init__(self, cells: CellTable, method: str = "poisson", outcome_model: np.ndarray | None = None):
         if method not in METHODS:
             raise InputError(f"resampling method must be one of: {', '.join(METHODS)}; got {method!r}.")
         self.method = method
@@ -198,7 +211,7 @@ class CountResampler:
             cells.cases[None].astype(np.float64), cells.observed[None].astype(np.float64),
             cells.events[None].astype(np.float64), np.array([-1]),
         )
-        self.joint = cells.state_counts is not None
+        self.joint = cells.state_counts is not None and outcome_model is None
         if self.joint:
             S = cells.state_counts.shape[-1]
             flat = cells.state_counts.reshape(-1)
@@ -230,6 +243,10 @@ class CountResampler:
             self.p_observed = obs / self.units[:, None]
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.p_event = np.where(obs > 0, ev / np.where(obs > 0, obs, 1), 0.0)
+            if outcome_model is not None:
+                cell, rest = np.divmod(nz, A * L)
+                level = rest % L
+                self.p_event = np.clip(outcome_model[cell, :, level], 0.0, 1.0)
             self.group = nz // L
         if method == "multinomial":
             # units are stored group by group (cell, arm lead the flat order): pad to a matrix
@@ -431,7 +448,10 @@ class BootstrapResult:
     level : float
         Coverage of the intervals.
     joint_states : bool
-        Whether cases' joint outcome states were resampled (False: counts-table fallback).
+        Whether cases' joint outcome states were resampled (False: counts-table fallback or
+        model-based outcomes).
+    outcomes : str
+        'cases' (cases keep their outcomes) or 'model' (outcomes drawn from estimated risk).
     """
 
     point: Mapping[str, np.ndarray]
@@ -441,6 +461,7 @@ class BootstrapResult:
     method: str
     level: float
     joint_states: bool = True
+    outcomes: str = "cases"
 
     def interval(self, name: str, level: float | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Percentile interval of a figure (NaN everywhere without replicates)."""
@@ -465,6 +486,7 @@ class BootstrapResult:
             "replicates": self.n_replicates,
             "seed": self.seed,
             "resampling": self.method,
+            "outcomes": self.outcomes,
             "interval": self.interval_label,
             "joint_outcome_states": self.joint_states,
         }
@@ -472,7 +494,8 @@ class BootstrapResult:
 
 def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, seed: int | None = None,
               method: str = "poisson", level: float = 0.95, runner: TaskRunner | None = None,
-              workers: int | None = None, progress: bool = False, description: str = "bootstrap") -> BootstrapResult:
+              workers: int | None = None, progress: bool = False, description: str = "bootstrap",
+              outcome_model: np.ndarray | None = None) -> BootstrapResult:
     """Apply ``statistic`` to the data and to ``replicates`` resampled copies of their counts.
 
     Parameters
@@ -489,6 +512,9 @@ def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, se
     method : {'poisson', 'multinomial'}
     level : float
         Coverage of the percentile intervals.
+    outcome_model : ndarray of shape (n_cells, J, L), optional
+        Draw replicate outcomes from these probabilities (see :class:`CountResampler`); None:
+        resample cases with their own outcomes.
     runner : TaskRunner, optional
         How chunks of replicates are run (default: :func:`make_runner` with ``workers``).
     workers : int, optional
@@ -501,14 +527,15 @@ def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, se
     BootstrapResult
     """
     validate_settings(replicates, level, method, "bootstrap:")
+    outcomes = "cases" if outcome_model is None else "model"
     root = np.random.SeedSequence(seed)
     seed_used = int(root.entropy)
-    resampler = CountResampler(cells, method)
+    resampler = CountResampler(cells, method, outcome_model)
     with one_blas_thread():
         point = {k: np.asarray(v)[0] for k, v in statistic(resampler.original).items()}
     if replicates == 0:
         empty = {k: np.empty((0,) + v.shape) for k, v in point.items()}
-        return BootstrapResult(point, empty, 0, seed_used, method, level, resampler.joint)
+        return BootstrapResult(point, empty, 0, seed_used, method, level, resampler.joint, outcomes)
     children = root.spawn(replicates)
     tasks = [_Chunk(i, tuple(children[i:i + CHUNK])) for i in range(0, replicates, CHUNK)]
     runner = runner or make_runner(workers, len(tasks))
@@ -516,7 +543,7 @@ def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, se
         parts = runner.map(run_chunk, (resampler, statistic), tasks,
                            None if advance is None else (lambda i: advance(len(tasks[i].seeds))))
     reps = {k: np.concatenate([p[k] for p in parts], axis=0) for k in point}
-    return BootstrapResult(point, reps, replicates, seed_used, method, level, resampler.joint)
+    return BootstrapResult(point, reps, replicates, seed_used, method, level, resampler.joint, outcomes)
 
 
 @contextmanager
