@@ -226,7 +226,9 @@ def factor_matrices(layout: CellLayout, columns: Sequence[str]) -> list[tuple[sp
     for col in columns:
         codes = layout.codes(col)
         k = len(layout.categories(col))
-        out.append((sp.csr_matrix((np.ones(n), (codes, np.arange(n))), shape=(k, n)), codes))
+        order = np.argsort(codes, kind="stable")
+        indptr = np.searchsorted(codes[order], np.arange(k + 1))
+        out.append((sp.csr_matrix((np.ones(n), order, indptr), shape=(k, n)), codes))
     return out
 
 
