@@ -108,7 +108,7 @@ def _evaluation_table(evaluation, unit: str) -> Table:
 
 
 def _risk_table(rl) -> Table:
-    summary = rl.summary()
+    summary = rl.summary(by_group=False)
     table = Table(title="Risk levels (share of cases)")
     table.add_column("outcome")
     for col in summary.columns:
