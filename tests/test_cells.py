@@ -8,7 +8,7 @@ import pytest
 
 import policy.cells as cells_mod
 from policy import CellTable, InputError, load_scenario
-from policy.cells import aggregate_codes, load_cell_table
+from policy.cells import aggregate_codes, code_column, load_cell_table
 
 from .conftest import run_cli, write_scenario
 
@@ -79,23 +79,38 @@ def test_parquet_and_csv_agree(tmp_path, small_case_table):
 def test_chunked_and_sparse_paths_agree(monkeypatch):
     rng = np.random.default_rng(3)
     n = 50_000
-    cell_codes = [rng.integers(0, k, n) for k in (4, 3, 5)]
-    arm = rng.integers(0, 2, n)
-    level = rng.integers(0, 3, n)
-    states = [rng.integers(0, 3, n).astype(np.int8) for _ in range(2)]
+    sizes = (4, 3, 5, 2, 3, 3, 3)
+    raw = [rng.integers(0, k, n).astype(np.int8) for k in sizes]
+    raw[0] += 7  # a small-integer column that does not start at 0
+    columns = [code_column(pd.Series(r), f"c{i}", "t") for i, r in enumerate(raw)]
     costs = {"c": rng.random(n)}
-    dense = aggregate_codes(cell_codes, (4, 3, 5), arm, level, 3, states, None, costs)
-    chunked = aggregate_codes(cell_codes, (4, 3, 5), arm, level, 3, states, None, costs, chunk_rows=7_001)
+    dense = aggregate_codes(columns, 3, costs)
+    chunked = aggregate_codes(columns, 3, costs, chunk_rows=7_001)
     monkeypatch.setattr(cells_mod, "DENSE_KEYS", 10)
-    sparse = aggregate_codes(cell_codes, (4, 3, 5), arm, level, 3, states, None, costs, chunk_rows=9_999)
+    sparse = aggregate_codes(columns, 3, costs, chunk_rows=9_999)
     for other in (chunked, sparse):
         np.testing.assert_array_equal(other[0], dense[0])
         np.testing.assert_array_equal(other[1], dense[1])
         np.testing.assert_allclose(other[2]["c"], dense[2]["c"])
-    # reference: one cell's count by direct masking
-    key = (cell_codes[0] == 1) & (cell_codes[1] == 2) & (cell_codes[2] == 3) & (arm == 1) & (level == 2)
+    assert dense[0].shape[1:] == sizes[3:]
+    # reference: one combination's count by direct masking
+    mask = (raw[0] == 8) & (raw[1] == 2) & (raw[2] == 3) & (raw[3] == 1) & (raw[4] == 2) & (raw[5] == 0) & (raw[6] == 1)
     cell_pos = int(np.searchsorted(dense[1], np.ravel_multi_index((1, 2, 3), (4, 3, 5))))
-    assert dense[0][cell_pos, 1, 2].sum() == key.sum()
+    assert dense[0][cell_pos, 1, 2, 0, 1] == mask.sum()
+    cell = (raw[0] == 8) & (raw[1] == 2) & (raw[2] == 3)
+    assert dense[2]["c"][cell_pos] == pytest.approx(costs["c"][cell].sum())
+
+
+def test_integer_coded_table_equals_text_coded_table(demo_scenario, demo_cases):
+    # the fast small-integer path and the factorizing path give the same cell table
+    frame, _ = demo_cases
+    coded = frame.copy()
+    for col in ("age_band", "charge_class", "prior_record", "pending_case", "sex", "race_group"):
+        coded[col] = coded[col].astype("category")
+    a = CellTable.from_cases(frame, demo_scenario)
+    b = CellTable.from_cases(coded, demo_scenario)
+    assert a.layout.frame.astype(str).equals(b.layout.frame.astype(str))
+    np.testing.assert_array_equal(a.state_counts, b.state_counts)
 
 
 # ---------------------------------------------------------------------------------------------

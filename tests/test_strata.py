@@ -13,8 +13,7 @@ from scipy.optimize import isotonic_regression
 from policy import CellTable, InputError, RiskLevelEstimator, estimate_risk_levels, isotonic_nonincreasing
 from policy.demo import simulate_cases, true_risk_levels
 from policy.strata import (
-    design_matrix,
-    fit_logistic_counts,
+    level_risk_ratios,
     moment_prior_strength,
     outcome_probabilities,
     risk_level_distribution,
@@ -67,23 +66,51 @@ def test_risk_level_identities():
     np.testing.assert_allclose(q[..., -1], p[..., -1])
 
 
-def test_logistic_target_matches_statsmodels():
-    # cross-check of the unpenalized fit against statsmodels' binomial GLM on the same counts
-    sm = pytest.importorskip("statsmodels.api")
+def test_level_risk_ratio_matches_statsmodels_mantel_haenszel():
+    # independent reference: statsmodels' StratifiedTable.riskratio_pooled (the Mantel-Haenszel
+    # pooled risk ratio) over the cells that observed both levels
+    from statsmodels.stats.contingency_tables import StratifiedTable
+
     frame, _ = simulate_cases(30_000, seed=4)
     from policy import load_scenario
     from policy.demo import demo_scenario_path
 
     sc = load_scenario(demo_scenario_path())
     cells = CellTable.from_cases(frame, sc)
-    X = design_matrix(cells.layout, ["age_band", "charge_class", "prior_record"], 3)
-    events = cells.events.sum(axis=1)[:, 1, :].reshape(-1)
-    trials = cells.observed.sum(axis=1)[:, 1, :].reshape(-1)
-    beta = fit_logistic_counts(X, events, trials, ridge=0.0)
-    keep = trials > 0
-    endog = np.column_stack([events[keep], trials[keep] - events[keep]])
-    ref = sm.GLM(endog, X[keep], family=sm.families.Binomial()).fit()
-    np.testing.assert_allclose(beta, ref.params, rtol=1e-6, atol=1e-8)
+    events = cells.events.sum(axis=1)[:, 0, :]
+    observed = cells.observed.sum(axis=1)[:, 0, :]
+    theta = level_risk_ratios(events[:, None, :], observed[:, None, :])[0]
+    for k in (1, 2):
+        both = (observed[:, k] > 0) & (observed[:, k - 1] > 0)
+        a, n1 = events[both, k], observed[both, k]
+        c, n0 = events[both, k - 1], observed[both, k - 1]
+        # 2x2 tables [[exposed events, exposed non-events], [reference events, reference non-events]]
+        tables = np.stack([np.stack([a, n1 - a], -1), np.stack([c, n0 - c], -1)], -2).transpose(1, 2, 0)
+        ref = StratifiedTable(tables.astype(float)).riskratio_pooled
+        assert theta[k] / theta[k - 1] == pytest.approx(min(ref, 1.0), rel=1e-10)
+
+
+def test_loglinear_baseline_matches_statsmodels_poisson():
+    # independent reference: statsmodels' Poisson GLM with log exposure as offset; iterative
+    # proportional fitting without smoothing converges to the same maximum-likelihood fit
+    # (Bishop, Fienberg and Holland 1975, ch. 3).
+    import statsmodels.api as sm
+
+    from policy.cells import CellLayout
+    from policy.strata import factor_matrices, loglinear_rates
+
+    rng = np.random.default_rng(12)
+    a, b, c = np.meshgrid(np.arange(4), np.arange(3), np.arange(5), indexing="ij")
+    frame = pd.DataFrame({k: pd.Categorical(v.reshape(-1), ordered=True) for k, v in zip("abc", (a, b, c))})
+    layout = CellLayout(frame)
+    exposure = rng.uniform(20, 200, len(frame))
+    true_rate = 0.05 * np.exp(0.3 * a.reshape(-1) - 0.4 * b.reshape(-1) + 0.1 * c.reshape(-1))
+    events = rng.poisson(exposure * true_rate).astype(float)
+    got = loglinear_rates(events[:, None], exposure[:, None], factor_matrices(layout, ["a", "b", "c"]), smoothing=0.0)[:, 0]
+    X = pd.get_dummies(frame, drop_first=True).astype(float)
+    X.insert(0, "const", 1.0)
+    ref = sm.GLM(events, X, family=sm.families.Poisson(), offset=np.log(exposure)).fit()
+    np.testing.assert_allclose(got, ref.fittedvalues / exposure, rtol=1e-7)
 
 
 def test_moment_prior_strength_recovers_known_overdispersion():
