@@ -39,7 +39,7 @@ from .cautions import CAUTIONS, assumptions_for
 from .cells import CellLayout, CellTable
 from .costs import Costs, costs_from_scenario
 from .errors import InputError
-from .evaluate import Evaluation, evaluate, group_matrix, stratum_decision_mass
+from .evaluate import Evaluation, evaluate, group_matrix
 from .rules import Rule
 from .scenario import Key, Scenario, read_section, register_section
 from .solve import argmin_lenient, optimal_rule
@@ -380,7 +380,13 @@ def score_rules(deltas: Sequence[np.ndarray], p: np.ndarray, w: np.ndarray, cost
     gw = w @ onehot  # (b, G)
     with np.errstate(invalid="ignore", divide="ignore"):
         g_shares = np.einsum("xg,brxd->brgd", onehot, wd, optimize=True) / gw[:, None, :, None]
-    mass = stratum_decision_mass(D, q[:, None], w[:, None], onehot)  # (b, R, G, J, L+1, L)
+    # cases per (rule, group, outcome, risk level, decision): sum_x w q_jr(x) delta(d|x) over the
+    # group's cells, as policy.evaluate.stratum_decision_mass, with one matrix product per replicate
+    n, R = D.shape[2], D.shape[1]
+    J, K2 = q.shape[-2:]
+    wq = (w[:, :, None, None] * q).reshape(b, n, 1, J * K2) * onehot[None, :, :, None]  # (b, n, G, J*K2)
+    mass = np.swapaxes(wq.reshape(b, n, -1), 1, 2) @ np.swapaxes(D, 1, 2).reshape(b, n, R * D.shape[-1])
+    mass = np.moveaxis(mass.reshape(b, onehot.shape[1], J, K2, R, D.shape[-1]), 4, 1)  # (b, R, G, J, K2, L)
     total = mass.sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         at_least = _tail(mass) / total[..., None]
@@ -674,12 +680,12 @@ class Comparison:
         for j, label in enumerate(rl.outcome_labels):
             for r in range(0, L):
                 t = max(r, 1)
-                direction, meaning = _reading(eff[0, j, r, t - 1], lo[0, j, r, t - 1], hi[0, j, r, t - 1], r, t, L)
+                e, a, b = eff[0, j, r, t - 1], lo[0, j, r, t - 1], hi[0, j, r, t - 1]
+                direction, meaning = _reading(e, a, b, r, t, L)
+                interval = f" ({self.result.interval_label}: {pct(a)} to {pct(b)})" if np.isfinite(a) else ""
                 out.append(
                     f"{label}, {rl.risk_level_names[r]}: showing the aid changed the share given "
-                    f"{rl.level_labels[t]} or harsher by {pct(eff[0, j, r, t - 1])} points "
-                    f"({self.result.interval_label}: {pct(lo[0, j, r, t - 1])} to {pct(hi[0, j, r, t - 1])}); "
-                    f"{direction}; {meaning}."
+                    f"{rl.level_labels[t]} or harsher by {pct(e)} points{interval}; {direction}; {meaning}."
                 )
         return out
 
@@ -716,8 +722,9 @@ class Comparison:
         frame = self.comparison_frame()
         lines = [f"Rules compared ({self.result.interval_label}, {self.result.n_replicates} replicates, seed {self.result.seed}):"]
         for _, row in frame.iterrows():
-            lines.append(f"  {row['rule']}: {row['cost_per_1000_cases']:,.0f} per 1,000 cases "
-                         f"({row['cost_per_1000_cases_lower']:,.0f} to {row['cost_per_1000_cases_upper']:,.0f}); "
+            lo, hi = row["cost_per_1000_cases_lower"], row["cost_per_1000_cases_upper"]
+            interval = f" ({lo:,.0f} to {hi:,.0f})" if np.isfinite(lo) else ""
+            lines.append(f"  {row['rule']}: {row['cost_per_1000_cases']:,.0f} per 1,000 cases{interval}; "
                          f"regret {row['regret_per_1000_cases']:,.0f}; agreement {row['agreement']:.1%}")
         lines += self.readings()
         return "\n".join(lines)

@@ -215,3 +215,88 @@ def test_statistic_on_the_data_reproduces_the_point_rules(demo):
     shown, not_shown = observed_rules(cells)[1], observed_rules(cells)[0]
     at = lambda rule: evaluate(rule, rl, costs).at_least()
     np.testing.assert_allclose(out["effect"][0], at(shown) - at(not_shown), rtol=1e-10, atol=1e-14)
+
+
+# ----------------------------------------------------------------------------------------------
+# Against the simulator's exact truth
+# ----------------------------------------------------------------------------------------------
+def _truth_cells(truth, layout):
+    """Position in the truth's cells of each data cell."""
+    key = lambda f: f.astype(str).agg("|".join, axis=1)
+    where = dict(zip(key(truth.layout.frame), range(truth.n_cells)))
+    return np.array([where[k] for k in key(layout.frame)])
+
+
+def test_costs_and_the_aids_effect_match_the_truth_within_their_intervals(demo):
+    scenario = demo[0]
+    c = compare(scenario, replicates=400, workers=1)
+    truth, court = true_risk_levels()
+    costs = costs_from_scenario(scenario, truth)
+    pos = _truth_cells(truth, c.risk_levels.layout)
+    # fixed rules on the truth's cells: the candidates by their own definition, the aid's table by
+    # (tier, charge) and what courts did by the simulator's exact decision probabilities
+    cands = [candidate_rule(s, truth.layout, scenario.level_values, scenario.level_labels)
+             for s in scenario.sections["candidate_rules"]]
+    aid = c.rules[1]
+    tc = truth.layout.frame[["aid_tier", "charge_class"]].astype(str).agg("|".join, axis=1)
+    dc = c.risk_levels.layout.frame[["aid_tier", "charge_class"]].astype(str).agg("|".join, axis=1)
+    level_of = pd.Series(aid.cell_delta.argmax(axis=1), index=dc.to_numpy()).groupby(level=0).first()
+    aid_truth = np.eye(3)[level_of.loc[tc].to_numpy()]
+    true_delta = {aid.name: aid_truth, cands[0].name: cands[0].cell_delta, cands[1].name: cands[1].cell_delta,
+                  c.rules[-2].name: court[:, 0], c.rules[-1].name: court[:, 1]}
+    frame = c.comparison_frame().set_index("rule")
+    for name, delta in true_delta.items():
+        # truth: sum_x w(x) sum_d delta(d|x) C(d, x) / sum_x w(x) under the exact p (method notes, section 6)
+        true_cost = 1000 * evaluate(delta, truth, costs).cost_per_case
+        row = frame.loc[name]
+        assert row["cost_per_1000_cases_lower"] <= true_cost <= row["cost_per_1000_cases_upper"], (name, true_cost, row[:4])
+    assert len(pos) == c.risk_levels.n_cells
+    # the aid's effect by risk level, overall and by group, against the exact effect
+    onehot, _ = group_matrix(truth.layout)
+    at = lambda d: evaluate(d, truth, costs).at_least()
+    true_effect = at(court[:, 1]) - at(court[:, 0])  # (G, J, K+2, K)
+    lo, hi = c.result.interval("effect")
+    ok = np.isfinite(true_effect) & np.isfinite(lo)
+    inside = (lo <= true_effect) & (true_effect <= hi)
+    assert inside[0][ok[0]].mean() >= 0.85, inside[0]
+    assert inside[ok].mean() >= 0.85
+
+
+# ----------------------------------------------------------------------------------------------
+# The command line
+# ----------------------------------------------------------------------------------------------
+def test_compare_command_writes_every_table_with_replicates_and_seed(small_case_table, tmp_path, capsys):
+    path, _ = small_case_table
+    out = tmp_path / "out"
+    code, stdout, err = run_cli(["compare", path, "--out", out, "--replicates", "30", "--workers", "1", "--no-progress"], capsys)
+    assert code == 0, err
+    for name in ("comparison.csv", "comparison_gaps.csv", "risk_level_share_intervals.csv", "aid_effect.csv",
+                 "aid_effect_itt.csv"):
+        table = pd.read_csv(out / name)
+        assert (table["replicates"] == 30).all() and (table["seed"] == 7).all(), name
+    meta = json.loads((out / "compare.json").read_text())
+    assert meta["replicates"] == 30 and meta["seed"] == 7 and meta["cautions"]
+    assert "Cautions" in stdout and "Assumptions behind these figures" in stdout and "Effect of showing the aid" in stdout
+    comparison = pd.read_csv(out / "comparison.csv")
+    assert list(comparison["kind"]) == ["optimal", "aid", "observed", "observed"]
+    assert (comparison["cost_per_1000_cases_lower"] <= comparison["cost_per_1000_cases_upper"]).all()
+    # the same seed on two worker processes gives the same bytes
+    out2 = tmp_path / "out2"
+    code, _, err = run_cli(["compare", path, "--out", out2, "--replicates", "30", "--workers", "2", "--no-progress"], capsys)
+    assert code == 0, err
+    for f in out.iterdir():
+        assert (out2 / f.name).read_bytes() == f.read_bytes(), f.name
+
+
+def test_compare_command_rejects_bad_settings_and_risk_level_tables(small_case_table, tmp_path, capsys):
+    path, _ = small_case_table
+    code, _, err = run_cli(["compare", path, "--out", tmp_path / "o", "--resampling", "jackknife"], capsys)
+    assert code == 2 and "resampling must be one of: poisson, multinomial" in err
+    assert not (tmp_path / "o").exists()
+    code, _, _ = run_cli(["estimate", path, "--out", tmp_path / "est"], capsys)
+    assert code == 0
+    text = path.read_text().replace('case_table = "cases.csv"', 'risk_level_table = "est/risk_levels.csv"')
+    text = text.replace('arm = "aid_shown"\n', "")
+    path.write_text(text)
+    code, _, err = run_cli(["compare", path, "--out", tmp_path / "o"], capsys)
+    assert code == 2 and "compare needs the cases behind the estimates" in err
