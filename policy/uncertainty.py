@@ -189,15 +189,15 @@ class CountResampler:
     method : {'poisson', 'multinomial'}
     outcome_model : ndarray of shape (n_cells, J, L), optional
         Outcome probabilities to draw replicate outcomes from (the parametric, model-based
-        bootstrap): cases per cell x arm x level are resampled as by ``method``, the observed
-        ones among them thinned with the slot's observed share, and events drawn as
-        Binomial(observed*, p[x, j, d]). None: each case keeps its own outcomes.
+        bootstrap): cases, and which of their outcomes were observed, are resampled as without
+        it; the events among the observed are then drawn as Binomial(observed*, p[x, j, d]),
+        independently per outcome kind. None: each case keeps its own outcomes.
 
     Attributes
     ----------
     joint : bool
-        True when the joint outcome states are resampled (case table input, no outcome model);
-        False for the counts-table fallback and for model-based outcomes.
+        True when cases are resampled with their joint outcome states (case table input);
+        False for the counts-table fallback.
     """
 
     def __init__(self, cells: CellTable, method: str = "poisson", outcome_model: np.ndarray | None = None):
@@ -211,7 +211,10 @@ class CountResampler:
             cells.cases[None].astype(np.float64), cells.observed[None].astype(np.float64),
             cells.events[None].astype(np.float64), np.array([-1]),
         )
-        self.joint = cells.state_counts is not None and outcome_model is None
+        self.joint = cells.state_counts is not None
+        # outcome probabilities per (cell, arm, outcome, level) for model-based events
+        self.model = None if outcome_model is None else np.broadcast_to(
+            np.clip(np.asarray(outcome_model, dtype=np.float64), 0.0, 1.0)[:, None], (n, A, self.J, L))
         if self.joint:
             S = cells.state_counts.shape[-1]
             flat = cells.state_counts.reshape(-1)
@@ -243,10 +246,6 @@ class CountResampler:
             self.p_observed = obs / self.units[:, None]
             with np.errstate(invalid="ignore", divide="ignore"):
                 self.p_event = np.where(obs > 0, ev / np.where(obs > 0, obs, 1), 0.0)
-            if outcome_model is not None:
-                cell, rest = np.divmod(nz, A * L)
-                level = rest % L
-                self.p_event = np.clip(outcome_model[cell, :, level], 0.0, 1.0)
             self.group = nz // L
         if method == "multinomial":
             # units are stored group by group (cell, arm lead the flat order): pad to a matrix
@@ -271,27 +270,30 @@ class CountResampler:
         J = self.J
         b = len(seeds)
         ids = np.arange(b) if replicate_ids is None else np.asarray(replicate_ids)
+        rngs = [np.random.default_rng(s) for s in seeds]
         if self.joint:
-            units = np.stack([self._draw_units(np.random.default_rng(s)) for s in seeds], axis=1)  # (nnz, b)
+            units = np.stack([self._draw_units(rng) for rng in rngs], axis=1)  # (nnz, b)
             margins = np.asarray(self.to_margins @ units).T.reshape(b, 1 + 2 * J, n, A, L)
             cases = margins[:, 0]
             observed = np.moveaxis(margins[:, 1:1 + J], 1, 3)
             events = np.moveaxis(margins[:, 1 + J:], 1, 3)
-            return ResampledCounts(cases, observed, events, ids)
-        cases = np.zeros((b, n * A * L))
-        observed = np.zeros((b, n * A * L, J))
-        events = np.zeros((b, n * A * L, J))
-        for i, s in enumerate(seeds):
-            rng = np.random.default_rng(s)
-            u = self._draw_units(rng)
-            o = rng.binomial(u[:, None].astype(np.int64), self.p_observed)
-            e = rng.binomial(o, self.p_event)
-            cases[i, self.slots] = u
-            observed[i, self.slots] = o
-            events[i, self.slots] = e
-        observed = np.moveaxis(observed.reshape(b, n, A, L, J), -1, 3)
-        events = np.moveaxis(events.reshape(b, n, A, L, J), -1, 3)
-        return ResampledCounts(cases.reshape(b, n, A, L), observed, events, ids)
+        else:
+            cases = np.zeros((b, n * A * L))
+            observed = np.zeros((b, n * A * L, J))
+            events = np.zeros((b, n * A * L, J))
+            for i, rng in enumerate(rngs):
+                u = self._draw_units(rng)
+                o = rng.binomial(u[:, None].astype(np.int64), self.p_observed)
+                cases[i, self.slots] = u
+                observed[i, self.slots] = o
+                if self.model is None:
+                    events[i, self.slots] = rng.binomial(o, self.p_event)
+            cases = cases.reshape(b, n, A, L)
+            observed = np.moveaxis(observed.reshape(b, n, A, L, J), -1, 3)
+            events = np.moveaxis(events.reshape(b, n, A, L, J), -1, 3)
+        if self.model is not None:
+            events = np.stack([rng.binomial(observed[i].astype(np.int64), self.model) for i, rng in enumerate(rngs)]).astype(np.float64)
+        return ResampledCounts(cases, observed, events, ids)
 
 
 # ----------------------------------------------------------------------------------------------
