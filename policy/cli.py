@@ -230,6 +230,8 @@ def compare(
     replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates (default: [uncertainty] replicates, 1000)."),
     seed: Optional[int] = typer.Option(None, help="Root seed of the bootstrap (default: [scenario] seed)."),
     resampling: Optional[str] = typer.Option(None, help="'poisson' or 'multinomial' (default: [uncertainty] resampling)."),
+    outcomes: Optional[str] = typer.Option(None, help="'model' or 'cases' (default: [uncertainty] outcomes)."),
+    interval: Optional[float] = typer.Option(None, help="Coverage of the intervals (default: [uncertainty] interval, 0.95)."),
     workers: Optional[int] = typer.Option(None, help="Worker processes (default: every core); the output does not depend on it."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
 ):
@@ -237,12 +239,13 @@ def compare(
     from .compare import compare as run_compare
     from .outputs import write_outputs
 
-    comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling,
-                             workers=workers, progress=progress)
+    comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                             outcomes=outcomes, workers=workers, progress=progress)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
-    console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases), seed {r.seed}.")
+    console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
+                  f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
     console.print(_comparison_table(comparison))
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")

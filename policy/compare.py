@@ -39,7 +39,7 @@ from .cautions import CAUTIONS, assumptions_for
 from .cells import CellLayout, CellTable
 from .costs import Costs, costs_from_scenario
 from .errors import InputError
-from .evaluate import Evaluation, evaluate, group_matrix
+from .evaluate import evaluate, group_matrix
 from .rules import Rule
 from .scenario import Key, Scenario, read_section, register_section
 from .solve import argmin_lenient, optimal_rule
@@ -286,7 +286,7 @@ def observed_delta(cases: np.ndarray, fill_index: np.ndarray, n_fill: int) -> tu
     return delta, total[..., 0] == 0
 
 
-def observed_rules(cells: CellTable, aid_name: str = "the risk aid") -> list[Rule]:
+def observed_rules(cells: CellTable, aid_name: str = "the risk aid", level_labels: Sequence[str] | None = None) -> list[Rule]:
     """What courts did: one per-cell rule per arm (one rule without an arm column).
 
     The rule of arm a gives each cell the decision shares of its cases in that arm; a cell with
@@ -305,11 +305,11 @@ def observed_rules(cells: CellTable, aid_name: str = "the risk aid") -> list[Rul
         if borrowed.any():
             note = (f"{int(borrowed.sum())} cells ({w[borrowed].sum() / w.sum():.1%} of cases) had no case in this arm; "
                     "their decision mix is the arm's mix in their rule cell")
-        out.append(Rule.per_cell(name, "observed", cells.layout, delta, cells.levels, cells.levels, w, note))
+        out.append(Rule.per_cell(name, "observed", cells.layout, delta, cells.levels, level_labels or cells.levels, w, note))
     return out
 
 
-def aid_rule(cells: CellTable, aid_name: str = "the risk aid") -> Rule | None:
+def aid_rule(cells: CellTable, aid_name: str = "the risk aid", level_labels: Sequence[str] | None = None) -> Rule | None:
     """The aid's recommendation as a rule: per cell, the shares of each recommended level."""
     if cells.recommended is None:
         return None
@@ -318,8 +318,8 @@ def aid_rule(cells: CellTable, aid_name: str = "the risk aid") -> Rule | None:
     constant = bool((delta.max(axis=1) == 1.0).all())
     note = ("one recommended level per cell" if constant else
             "the recommendation varies within some cells; its per-cell mix is held fixed across replicates")
-    return Rule.per_cell(f"{aid_name} recommendation", "aid", cells.layout, delta, cells.levels, cells.levels,
-                         cells.weights.astype(np.float64), note)
+    return Rule.per_cell(f"{aid_name} recommendation", "aid", cells.layout, delta, cells.levels,
+                         level_labels or cells.levels, cells.weights.astype(np.float64), note)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -776,9 +776,9 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     optimum = optimal_rule(rl, costs)
     solved = [s(rl, costs) for s in solvers]
-    aid = aid_rule(cells, scenario.aid.name)
+    aid = aid_rule(cells, scenario.aid.name, scenario.level_labels)
     fixed = ([aid] if aid is not None else []) + candidate_rules(scenario, rl.layout, rl.weights) + list(rules)
-    observed = observed_rules(cells, scenario.aid.name)
+    observed = observed_rules(cells, scenario.aid.name, scenario.level_labels)
     all_rules = [optimum] + solved + fixed + observed
     names = [r.name for r in all_rules]
     dup = sorted({n for n in names if names.count(n) > 1})

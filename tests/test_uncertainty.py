@@ -20,6 +20,7 @@ from policy.uncertainty import (
     LocalProcesses,
     OnRiskLevels,
     bootstrap,
+    bootstrap_risk_levels,
     percentile_interval,
 )
 
@@ -154,6 +155,12 @@ def test_same_seed_same_bits_whatever_the_workers(demo_cells, demo_scenario):
     # the point figure is the estimator's own on the data
     rl = est.fit(demo_cells).risk_levels_
     np.testing.assert_allclose(one.point["safe"], (rl.weights[:, None] * rl.q[:, :, 0]).sum(0) / rl.weights.sum(), rtol=1e-12)
+    # the entry point for later stages: model-based by default, recorded in the result
+    model = bootstrap_risk_levels(demo_cells, _safe_share, est, 30, seed=11, runner=InProcess())
+    assert model.outcomes == "model" and model.meta()["outcomes"] == "model"
+    np.testing.assert_allclose(model.point["safe"], one.point["safe"], rtol=1e-12)
+    lo, hi = model.interval("safe")
+    assert (lo < model.point["safe"]).all() and (model.point["safe"] < hi).all()
 
 
 @pytest.mark.parametrize("entry, message", [
