@@ -86,8 +86,6 @@ FEASIBILITY_TOLERANCE = 1e-6
 BINDING_TOLERANCE = 1e-7
 #: bound value that makes any row inactive (every row's value lies in [-1, 1])
 INACTIVE_BOUND = 2.0
-#: relative objective slack allowed when choosing the most lenient of several optimal rules
-LENIENT_TIE_TOLERANCE = 1e-9
 
 # ----------------------------------------------------------------------------------------------
 # Settings: the scenario's [linear_program] section
@@ -668,12 +666,17 @@ class ConstrainedProblem:
                 reached = np.abs(v) if block.two_sided else v
                 i = int(np.argmax(reached))
                 value = float(reached[i] * block.scale)
+                value = 0.0 if abs(value) < 1e-12 else value
                 min_slack = float(slack.min() * block.scale)
                 binding = bool(slack.min() <= BINDING_TOLERANCE)
                 tight = np.flatnonzero(slack <= BINDING_TOLERANCE)
                 where = "; ".join(block.labels(int(r)) for r in tight[:3]) + (f"; and {len(tight) - 3} more" if len(tight) > 3 else "")
             else:
                 value, min_slack, binding, where = np.nan, np.nan, False, ""
+            # the equality rows of a group-blind rule have no tolerance to loosen, and their
+            # multipliers are not unique (solvers return different ones): no dual is reported
+            dual = float(lp.saving[k]) if self.active[k] and spec.kind != "group_blind" and block.n_rows else np.nan
+            step = 0.01 * (self._data.total if spec.bound_key == "max_cases" else 1.0)
             rows.append({
                 "constraint": spec.name,
                 "kind": spec.kind,
@@ -685,15 +688,16 @@ class ConstrainedProblem:
                 "value": value,
                 "slack": min_slack,
                 "binding": binding,
-                "dual": float(lp.saving[k]) if self.active[k] else np.nan,
-                "dual_per_1000": 1000.0 * float(lp.saving[k]) if self.active[k] else np.nan,
+                "dual": dual,
+                "dual_per_1000": 1000.0 * dual,
+                "saving_per_point_per_1000": 1000.0 * dual * step,
                 "saving_if_removed_per_1000": 1000.0 * removed[k],
                 "binding_rows": where,
                 "note": block.note,
             })
         return pd.DataFrame(rows, columns=["constraint", "kind", "arguments", "bound_key", "bound", "unit", "rows", "value",
-                                           "slack", "binding", "dual", "dual_per_1000", "saving_if_removed_per_1000",
-                                           "binding_rows", "note"])
+                                           "slack", "binding", "dual", "dual_per_1000", "saving_per_point_per_1000",
+                                           "saving_if_removed_per_1000", "binding_rows", "note"])
 
     # -- infeasibility -------------------------------------------------------------------------
     def _infeasible(self, status: str) -> PolicyError:
@@ -798,8 +802,9 @@ class _HighsDriver:
         block_duals = cumulative[data.offsets[1:]] - cumulative[data.offsets[:-1]]
         lenient_pass = False
         # HiGHS's reduced costs are c - A'y; computing them costs less than converting its list
-        if lenient and self._dual_degenerate(c, c - data.At @ y, y):
-            x2, extra_seconds, extra_iter = self._most_lenient(data, c, x)
+        reduced = c - data.At @ y if lenient else None
+        if lenient and self._dual_degenerate(c, reduced, y):
+            x2, extra_seconds, extra_iter = self._most_lenient(data, c, x, y, reduced, lo, hi)
             seconds += extra_seconds
             iterations += extra_iter
             if x2 is not None:
@@ -819,24 +824,41 @@ class _HighsDriver:
         zeros = int(np.count_nonzero(np.abs(col_dual) <= tol) + np.count_nonzero(np.abs(row_dual) <= tol))
         return zeros > len(row_dual)
 
-    def _most_lenient(self, data: _LPData, c, x):
-        """Among rules whose cost is within a hair of the optimum, the one with the fewest harsh decisions."""
+    def _most_lenient(self, data: _LPData, c, x, y, reduced, lo, hi):
+        """The most lenient of the optimal rules: minimize harshness over the optimal face.
+
+        With the optimal dual (y, reduced costs) fixed, a feasible point is optimal exactly when
+        it is zero on every column of positive reduced cost, at its upper bound on every column
+        of negative reduced cost, and on the active bound of every row with a non-zero dual
+        (complementary slackness). Those are fixed; the rest is free to move toward leniency.
+        Reduced costs and duals within 1e-9 of the largest cost count as zero, the tie tolerance
+        of the unconstrained rule.
+        """
         h = self.h
         basis = h.getBasis()
         n = data.n_cols
-        optimum = float((c * x).sum())
-        cap = optimum + LENIENT_TIE_TOLERANCE * max(1.0, abs(optimum))
+        tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+        at_zero = np.flatnonzero(reduced > tol).astype(np.int32)
+        at_one = np.flatnonzero(reduced < -tol).astype(np.int32)
+        rows = np.flatnonzero(np.abs(y) > tol).astype(np.int32)
+        values = data.A[rows] @ x
+        active = np.where(np.abs(values - hi[rows]) <= np.abs(values - lo[rows]), hi[rows], lo[rows])
         harsh = (data.group_share[:, None] * np.arange(data.n_levels)[None, :] / max(data.n_levels - 1, 1)).reshape(-1)
-        h.addRow(-np.inf, cap, n, self.cols, c)
+        h.changeColsBounds(len(at_zero), at_zero, np.zeros(len(at_zero)), np.zeros(len(at_zero)))
+        h.changeColsBounds(len(at_one), at_one, np.ones(len(at_one)), np.ones(len(at_one)))
+        h.changeRowsBounds(len(rows), rows, active, active)
         h.changeColsCost(n, self.cols, harsh)
         status, seconds = _highs_run(h, "simplex")
         iterations = _highs_iterations(h)
         x2 = None
         if status == "kOptimal":
             candidate = np.asarray(h.getSolution().col_value)
-            if float((c * candidate).sum()) <= cap + FEASIBILITY_TOLERANCE * max(1.0, abs(optimum)):
+            optimum = float((c * x).sum())
+            if float((c * candidate).sum()) <= optimum + 1e-9 * max(1.0, abs(optimum)):
                 x2 = candidate
-        h.deleteRows(1, np.array([data.A.shape[0]], dtype=np.int32))
+        changed = np.concatenate([at_zero, at_one])
+        h.changeColsBounds(len(changed), changed, np.zeros(len(changed)), np.ones(len(changed)))
+        h.changeRowsBounds(len(rows), rows, lo[rows], hi[rows])
         h.changeColsCost(n, self.cols, c)
         h.setBasis(basis)
         return x2, seconds, iterations
@@ -1066,7 +1088,8 @@ class ConstrainedRule:
 
     def to_frame(self) -> pd.DataFrame:
         """The constraint table: constraint, kind, arguments, bound_key, bound, unit, rows, value, slack,
-        binding, dual, dual_per_1000, saving_if_removed_per_1000, binding_rows, note."""
+        binding, dual, dual_per_1000, saving_per_point_per_1000, saving_if_removed_per_1000,
+        binding_rows, note (documented in docs/outputs.md)."""
         return self.constraints.copy()
 
     def overview(self) -> dict[str, Any]:
@@ -1101,13 +1124,13 @@ class ConstrainedRule:
         for _, row in self.constraints.iterrows():
             bound = "" if row["kind"] == "group_blind" else f" {row['bound_key']} {row['bound']:g};"
             state = "binds" if row["binding"] else "does not bind"
-            per_point = row["dual_per_1000"] * (0.01 if row["bound_key"] in ("tolerance", "max_share", "max_rate") else 1.0)
-            step = "one point (0.01)" if row["bound_key"] in ("tolerance", "max_share", "max_rate") else "one unit"
+            step = "1% of the cases" if row["bound_key"] == "max_cases" else "one point (0.01)"
             text = f"  - {row['constraint']}:{bound} {state}"
             if np.isfinite(row["value"]):
                 text += f" (reached {row['value']:.4g})"
-            if np.isfinite(per_point) and row["kind"] != "group_blind":
-                text += f"; loosening it by {step} saves about {per_point:,.1f} per 1,000 cases"
+            if np.isfinite(row["saving_per_point_per_1000"]):
+                text += (f"; at the margin it costs {row['saving_per_point_per_1000']:,.0f} per 1,000 cases per {step} "
+                         "of its bound (a rate, for small changes)")
             if np.isfinite(row["saving_if_removed_per_1000"]):
                 text += f"; removing it saves {row['saving_if_removed_per_1000']:,.0f} per 1,000 cases"
             lines.append(text)

@@ -49,6 +49,8 @@ __all__ = [
     "Vocabulary",
     "constraint_rows",
     "parse_constraint_text",
+    "scenario_specs",
+    "shorthand_tables",
     "spec_from_table",
 ]
 
@@ -362,6 +364,51 @@ def _check_unique_names(specs: Sequence[ConstraintSpec], file: str) -> None:
 
 
 register_section("[[constraints]]", CONSTRAINT_KEYS, _parse_section)
+
+
+def scenario_specs(scenario, extra: Sequence[Mapping | ConstraintSpec] = (), use_scenario: bool = True) -> tuple[ConstraintSpec, ...]:
+    """The scenario's constraints (unless ``use_scenario`` is false) followed by ``extra`` ones.
+
+    Extra constraints given as tables (e.g. from the command line) are validated against the
+    scenario like its own ``[[constraints]]``; they are numbered after them.
+    """
+    own = tuple(scenario.sections.get("constraints", ())) if use_scenario else ()
+    vocab = Vocabulary.of_scenario(scenario)
+    added = []
+    for i, entry in enumerate(extra, len(own) + 1):
+        if isinstance(entry, ConstraintSpec):
+            added.append(entry)
+        else:
+            added.append(spec_from_table(dict(entry), vocab, i, where=f"added constraint #{i}"))
+    specs = own + tuple(added)
+    _check_unique_names(specs, scenario.file)
+    return specs
+
+
+def shorthand_tables(group_blind: bool = False, principal_fairness: Sequence[str] = (), max_share: Sequence[str] = (),
+                     max_rate: Sequence[str] = ()) -> list[dict[str, Any]]:
+    """Constraint tables from the command line's short forms.
+
+    ``principal_fairness`` items are ``OUTCOME=TOLERANCE``, ``max_share`` items ``LEVEL=SHARE``
+    (cases at that level or harsher) and ``max_rate`` items ``OUTCOME=RATE``; shares and rates
+    may be written as percentages (``15%``).
+    """
+    tables: list[dict[str, Any]] = []
+    if group_blind:
+        tables.append({"kind": "group_blind"})
+    for option, items, key, value_key, kind in (
+        ("--principal-fairness", principal_fairness, "outcome", "tolerance", "principal_fairness"),
+        ("--max-share", max_share, "at_least", "max_share", "capacity"),
+        ("--max-rate", max_rate, "outcome", "max_rate", "outcome_cap"),
+    ):
+        for item in items:
+            name, sep, value = item.partition("=")
+            number = _number(value.strip(), float)
+            if not sep or not name.strip() or not isinstance(number, float):
+                raise InputError(f"{option} {item!r} must look like NAME=NUMBER, e.g. {option} "
+                                 f"{'bond=0.15' if key == 'at_least' else 'new_offense=0.02'}.")
+            tables.append({"kind": kind, key: name.strip(), value_key: number})
+    return tables
 
 
 # ----------------------------------------------------------------------------------------------
