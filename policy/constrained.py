@@ -42,10 +42,12 @@ programs for explaining infeasibility.)
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import os
 import sys
 import time
+import warnings
 from dataclasses import dataclass, field, replace
 from typing import Any, Mapping, Sequence
 
@@ -93,11 +95,15 @@ INACTIVE_BOUND = 2.0
 LP_KEYS: tuple[Key, ...] = (
     Key("solver", (str,), False, "HIGHS", "LP solver: HIGHS (default) or another LP solver cvxpy offers, e.g. CLARABEL, SCIPY"),
     Key("direct", (bool,), False, True, "HIGHS only: call HiGHS directly with warm starts (true) or through cvxpy (false)"),
-    Key("method", (str,), False, "ipm", "HIGHS only: first-solve method, 'ipm' (interior point with crossover), 'simplex' or 'choose'"),
+    Key("method", (str,), False, "auto", "HIGHS only: first-solve method, 'auto', 'ipm' (interior point with crossover), 'simplex' or 'choose'"),
     Key("time_limit", (float,), doc="seconds a single solve may take; a solve that stops at it is an error"),
     Key("lenient_ties", (bool,), False, True, "among several optimal rules, return the most lenient (HIGHS direct only)"),
 )
-HIGHS_METHODS = ("ipm", "simplex", "choose")
+HIGHS_METHODS = ("auto", "ipm", "simplex", "choose")
+#: with method 'auto', the first solve uses the interior-point method (with crossover) from this
+#: many decision probabilities (columns) on, the dual simplex below: the faster of the two on
+#: the benchmark LP (benchmarks/bench_constrained.py; docs/performance.md)
+IPM_FROM_COLUMNS = 20_000
 
 
 @dataclass(frozen=True)
@@ -106,13 +112,19 @@ class LPSettings:
 
     solver: str = "HIGHS"
     direct: bool = True
-    method: str = "ipm"
+    method: str = "auto"
     time_limit: float | None = None
     lenient_ties: bool = True
 
     @property
     def uses_direct(self) -> bool:
         return self.solver == "HIGHS" and self.direct
+
+    def first_method(self, n_cols: int) -> str:
+        """The HiGHS method of a first (cold) solve of an LP with ``n_cols`` columns."""
+        if self.method != "auto":
+            return self.method
+        return "ipm" if n_cols >= IPM_FROM_COLUMNS else "simplex"
 
     @property
     def label(self) -> str:
@@ -148,44 +160,39 @@ register_section("[linear_program]", LP_KEYS, _parse_lp_section)
 # ----------------------------------------------------------------------------------------------
 # HiGHS called directly
 # ----------------------------------------------------------------------------------------------
-_HIGHS_QUIET = False
+@contextlib.contextmanager
+def quiet_stdout():
+    """Point standard output (file descriptor 1) at the null device for a moment.
+
+    HiGHS prints a banner from C++ when a solver object is made; this keeps command output clean.
+    """
+    sys.stdout.flush()
+    saved, null = os.dup(1), os.open(os.devnull, os.O_WRONLY)
+    os.dup2(null, 1)
+    try:
+        yield
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+        os.close(null)
 
 
 @functools.lru_cache(maxsize=1)
 def highs_version() -> str:
-    import highspy
-
     try:
         from importlib.metadata import version
 
         return version("highspy")
     except Exception:  # pragma: no cover - metadata missing
-        return getattr(highspy, "__version__", "?")
+        return "?"
 
 
 def new_highs():
-    """A silent ``highspy`` solver object.
-
-    HiGHS prints a banner on standard output when the first solver object of a process is made;
-    standard output (file descriptor 1) is pointed at the null device for that one moment, so
-    command output stays clean.
-    """
-    global _HIGHS_QUIET
+    """A silent ``highspy`` solver object (made without its banner on standard output)."""
     from highspy import _core
 
-    if _HIGHS_QUIET:
+    with quiet_stdout():
         h = _core._Highs()
-    else:
-        sys.stdout.flush()
-        saved, null = os.dup(1), os.open(os.devnull, os.O_WRONLY)
-        os.dup2(null, 1)
-        try:
-            h = _core._Highs()
-        finally:
-            os.dup2(saved, 1)
-            os.close(saved)
-            os.close(null)
-        _HIGHS_QUIET = True
     h.setOptionValue("output_flag", False)
     return h
 
@@ -791,7 +798,7 @@ class _HighsDriver:
                 G = data.n_groups
                 self.h.changeRowsBounds(len(self.rows), self.rows, lo[G:], hi[G:])
         warm = self.h.getBasis().valid
-        status, seconds = _highs_run(self.h, "simplex" if warm else self.settings.method)
+        status, seconds = _highs_run(self.h, "simplex" if warm else self.settings.first_method(data.n_cols))
         iterations = _highs_iterations(self.h)
         if status != "kOptimal":
             return status, None, None, iterations, seconds, False
@@ -917,14 +924,17 @@ class _CvxpyModel:
 
         opts: dict[str, Any] = {}
         if settings.solver == "HIGHS":
-            opts["highs_options"] = {"solver": settings.method}
+            opts["highs_options"] = {"solver": settings.first_method(self.x.size), "output_flag": False}
             if settings.time_limit is not None:
                 opts["highs_options"]["time_limit"] = float(settings.time_limit)
         elif settings.time_limit is not None and settings.solver == "CLARABEL":
             opts["time_limit"] = float(settings.time_limit)
         start = time.perf_counter()
         try:
-            self.problem.solve(solver=settings.solver, warm_start=True, **opts)
+            with warnings.catch_warnings(), (quiet_stdout() if settings.solver == "HIGHS" else contextlib.nullcontext()):
+                # cvxpy warns of an inaccurate solution; its status says so and is refused below
+                warnings.simplefilter("ignore", UserWarning)
+                self.problem.solve(solver=settings.solver, warm_start=True, **opts)
         except cp.error.SolverError as exc:
             raise SolverError(f"the constrained rule's linear program: solver {settings.solver} failed ({exc}); no rule is reported.") from None
         seconds = time.perf_counter() - start
