@@ -766,6 +766,67 @@ def _validated_specs(constraints: Sequence[ConstraintSpec | Mapping], vocab: Voc
 # ----------------------------------------------------------------------------------------------
 # The two ways of solving
 # ----------------------------------------------------------------------------------------------
+def dual_degenerate(c: np.ndarray, reduced: np.ndarray, row_dual: np.ndarray) -> bool:
+    """Some nonbasic column or row has a zero reduced cost: another optimal vertex may exist.
+
+    Basic columns and rows have zero reduced cost and there are exactly n_rows of them, so
+    more than n_rows zeros means a nonbasic one is zero as well.
+    """
+    tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+    zeros = int(np.count_nonzero(np.abs(reduced) <= tol) + np.count_nonzero(np.abs(row_dual) <= tol))
+    return zeros > len(row_dual)
+
+
+def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
+    """The most lenient of the optimal rules: minimize harshness over the optimal face of a loaded model.
+
+    With the optimal dual (y, reduced costs) fixed, a feasible point is optimal exactly when it
+    is zero on every column of positive reduced cost, at its upper bound on every column of
+    negative reduced cost, and on the active bound of every row with a non-zero dual
+    (complementary slackness). Those are fixed; the rest is free to move toward leniency.
+    Reduced costs and duals within 1e-9 of the largest cost count as zero, the tie tolerance of
+    the unconstrained rule. The model is restored afterwards (bounds, costs, basis).
+
+    Returns
+    -------
+    x2 : ndarray or None
+        The most lenient optimal point (None if the pass failed; the first point stands).
+    seconds, iterations
+    """
+    basis = h.getBasis()
+    n = len(c)
+    cols = np.arange(n, dtype=np.int32)
+    tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+    at_zero = np.flatnonzero(reduced > tol).astype(np.int32)
+    at_upper = np.flatnonzero((reduced < -tol) & np.isfinite(col_hi)).astype(np.int32)
+    rows = np.flatnonzero(np.abs(y) > tol).astype(np.int32)
+    values = A[rows] @ x
+    active = np.where(np.abs(values - hi[rows]) <= np.abs(values - lo[rows]), hi[rows], lo[rows])
+    h.changeColsBounds(len(at_zero), at_zero, np.zeros(len(at_zero)), np.zeros(len(at_zero)))
+    h.changeColsBounds(len(at_upper), at_upper, col_hi[at_upper], col_hi[at_upper])
+    h.changeRowsBounds(len(rows), rows, active, active)
+    h.changeColsCost(n, cols, harsh)
+    status, seconds = _highs_run(h, "simplex")
+    iterations = _highs_iterations(h)
+    x2 = None
+    if status == "kOptimal":
+        candidate = np.asarray(h.getSolution().col_value)
+        optimum = float((c * x).sum())
+        if float((c * candidate).sum()) <= optimum + 1e-9 * max(1.0, abs(optimum)):
+            x2 = candidate
+    changed = np.concatenate([at_zero, at_upper])
+    h.changeColsBounds(len(changed), changed, np.zeros(len(changed)), col_hi[changed])
+    h.changeRowsBounds(len(rows), rows, lo[rows], hi[rows])
+    h.changeColsCost(n, cols, c)
+    h.setBasis(basis)
+    return x2, seconds, iterations
+
+
+def _harshness(group_share: np.ndarray, n_levels: int) -> np.ndarray:
+    """Share of cases times level / K for every decision probability: what the lenient pass minimizes."""
+    return (group_share[:, None] * np.arange(n_levels)[None, :] / max(n_levels - 1, 1)).reshape(-1)
+
+
 class _HighsDriver:
     """One HiGHS model kept loaded between solves so that re-solves start from the last basis."""
 
@@ -810,65 +871,15 @@ class _HighsDriver:
         lenient_pass = False
         # HiGHS's reduced costs are c - A'y; computing them costs less than converting its list
         reduced = c - data.At @ y if lenient else None
-        if lenient and self._dual_degenerate(c, reduced, y):
-            x2, extra_seconds, extra_iter = self._most_lenient(data, c, x, y, reduced, lo, hi)
+        if lenient and dual_degenerate(c, reduced, y):
+            x2, extra_seconds, extra_iter = most_lenient(self.h, data.A, c, x, y, reduced, lo, hi,
+                                                         _harshness(data.group_share, data.n_levels), np.ones(data.n_cols))
             seconds += extra_seconds
             iterations += extra_iter
             if x2 is not None:
                 x, lenient_pass = x2, True
         self.best_basis = self.h.getBasis()
         return status, x, block_duals, iterations, seconds, lenient_pass
-
-    @staticmethod
-    def _dual_degenerate(c, col_dual: np.ndarray, row_dual: np.ndarray) -> bool:
-        """Some nonbasic column or row has a zero reduced cost: another optimal vertex may exist.
-
-        Basic columns and rows have zero reduced cost and there are exactly n_rows of them, so
-        more than n_rows zeros means a nonbasic one is zero as well.
-        """
-        scale = max(float(np.abs(c).max()), 1e-12)
-        tol = 1e-9 * scale
-        zeros = int(np.count_nonzero(np.abs(col_dual) <= tol) + np.count_nonzero(np.abs(row_dual) <= tol))
-        return zeros > len(row_dual)
-
-    def _most_lenient(self, data: _LPData, c, x, y, reduced, lo, hi):
-        """The most lenient of the optimal rules: minimize harshness over the optimal face.
-
-        With the optimal dual (y, reduced costs) fixed, a feasible point is optimal exactly when
-        it is zero on every column of positive reduced cost, at its upper bound on every column
-        of negative reduced cost, and on the active bound of every row with a non-zero dual
-        (complementary slackness). Those are fixed; the rest is free to move toward leniency.
-        Reduced costs and duals within 1e-9 of the largest cost count as zero, the tie tolerance
-        of the unconstrained rule.
-        """
-        h = self.h
-        basis = h.getBasis()
-        n = data.n_cols
-        tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
-        at_zero = np.flatnonzero(reduced > tol).astype(np.int32)
-        at_one = np.flatnonzero(reduced < -tol).astype(np.int32)
-        rows = np.flatnonzero(np.abs(y) > tol).astype(np.int32)
-        values = data.A[rows] @ x
-        active = np.where(np.abs(values - hi[rows]) <= np.abs(values - lo[rows]), hi[rows], lo[rows])
-        harsh = (data.group_share[:, None] * np.arange(data.n_levels)[None, :] / max(data.n_levels - 1, 1)).reshape(-1)
-        h.changeColsBounds(len(at_zero), at_zero, np.zeros(len(at_zero)), np.zeros(len(at_zero)))
-        h.changeColsBounds(len(at_one), at_one, np.ones(len(at_one)), np.ones(len(at_one)))
-        h.changeRowsBounds(len(rows), rows, active, active)
-        h.changeColsCost(n, self.cols, harsh)
-        status, seconds = _highs_run(h, "simplex")
-        iterations = _highs_iterations(h)
-        x2 = None
-        if status == "kOptimal":
-            candidate = np.asarray(h.getSolution().col_value)
-            optimum = float((c * x).sum())
-            if float((c * candidate).sum()) <= optimum + 1e-9 * max(1.0, abs(optimum)):
-                x2 = candidate
-        changed = np.concatenate([at_zero, at_one])
-        h.changeColsBounds(len(changed), changed, np.zeros(len(changed)), np.ones(len(changed)))
-        h.changeRowsBounds(len(rows), rows, lo[rows], hi[rows])
-        h.changeColsCost(n, self.cols, c)
-        h.setBasis(basis)
-        return x2, seconds, iterations
 
     def restore_best(self) -> None:
         if self.h is not None and self.best_basis is not None and self.best_basis.valid:
