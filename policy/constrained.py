@@ -197,24 +197,25 @@ def new_highs():
     return h
 
 
-def highs_lp(c: np.ndarray, A: sp.csc_matrix, row_lo: np.ndarray, row_hi: np.ndarray,
-             col_lo: np.ndarray, col_hi: np.ndarray):
-    """A ``highspy.HighsLp`` minimizing c'x subject to row_lo <= A x <= row_hi, col_lo <= x <= col_hi."""
+def load_lp(h, c: np.ndarray, A: sp.spmatrix, row_lo: np.ndarray, row_hi: np.ndarray,
+            col_lo: np.ndarray, col_hi: np.ndarray) -> None:
+    """Load ``min c'x subject to row_lo <= A x <= row_hi, col_lo <= x <= col_hi`` into a HiGHS object.
+
+    The arrays go to HiGHS through highspy's array overload of ``passModel`` (filling a
+    ``HighsLp`` field by field converts them far more slowly).
+    """
     import highspy
 
     A = sp.csc_matrix(A)
-    lp = highspy.HighsLp()
-    lp.num_col_, lp.num_row_ = A.shape[1], A.shape[0]
-    lp.col_cost_ = np.ascontiguousarray(c, dtype=np.float64)
-    lp.col_lower_ = np.ascontiguousarray(col_lo, dtype=np.float64)
-    lp.col_upper_ = np.ascontiguousarray(col_hi, dtype=np.float64)
-    lp.row_lower_ = np.ascontiguousarray(row_lo, dtype=np.float64)
-    lp.row_upper_ = np.ascontiguousarray(row_hi, dtype=np.float64)
-    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
-    lp.a_matrix_.start_ = A.indptr.astype(np.int32)
-    lp.a_matrix_.index_ = A.indices.astype(np.int32)
-    lp.a_matrix_.value_ = A.data.astype(np.float64)
-    return lp
+    n = A.shape[1]
+    status = h.passModel(
+        n, A.shape[0], A.nnz, int(highspy.MatrixFormat.kColwise), int(highspy.ObjSense.kMinimize), 0.0,
+        np.ascontiguousarray(c, dtype=np.float64), np.ascontiguousarray(col_lo, dtype=np.float64),
+        np.ascontiguousarray(col_hi, dtype=np.float64), np.ascontiguousarray(row_lo, dtype=np.float64),
+        np.ascontiguousarray(row_hi, dtype=np.float64), A.indptr[:-1].astype(np.int32), A.indices.astype(np.int32),
+        np.ascontiguousarray(A.data, dtype=np.float64), np.zeros(n, dtype=np.int32))
+    if status == highspy.HighsStatus.kError:
+        raise SolverError(f"HiGHS refused the linear program ({A.shape[0]} rows, {n} columns); no rule is reported.")
 
 
 _STOPPED = {"kTimeLimit": "it reached the time limit", "kIterationLimit": "it reached the iteration limit",
@@ -842,7 +843,7 @@ class _HighsDriver:
         if self.settings.time_limit is not None:
             h.setOptionValue("time_limit", float(self.settings.time_limit))
         n = data.n_cols
-        h.passModel(highs_lp(c, data.A.tocsc(), lo, hi, np.zeros(n), np.ones(n)))
+        load_lp(h, c, data.A, lo, hi, np.zeros(n), np.ones(n))
         if basis is not None and basis.valid:
             h.setBasis(basis)
         self.h, self.shape = h, data.A.shape
@@ -1009,7 +1010,7 @@ def elastic_conflicts(data: _LPData, specs: Sequence[ConstraintSpec], internal: 
     c = np.concatenate([np.zeros(n), np.ones(K)])
     col_hi = np.concatenate([np.ones(n), np.where(active, np.inf, 0.0)])
     h = new_highs()
-    h.passModel(highs_lp(c, A, lo, hi, np.zeros(n + K), col_hi))
+    load_lp(h, c, A, lo, hi, np.zeros(n + K), col_hi)
     status, _ = _highs_run(h, "simplex")
     if status != "kOptimal":
         raise _status_error(status, "the elastic program that explains the conflict")
