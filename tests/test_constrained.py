@@ -315,13 +315,18 @@ def _random_rule(rl, columns, rng, blind: bool):
     return delta[index]
 
 
-@PROPERTY
-@given(instances, kind_sets, st.integers(0, 10**6), st.floats(0.0, 0.05))
-def test_property_optimum_beats_any_feasible_rule_and_holds_every_constraint(params, kinds, seed, slack):
+def _feasible_instance(params, kinds, seed, slack):
+    """A random instance, a random rule on it, and constraints of the given kinds that rule meets."""
     rl, costs, columns = random_instance(**params)
     rng = np.random.default_rng(seed)
     rule = _random_rule(rl, columns, rng, blind="group_blind" in kinds)
-    specs = _specs_satisfied_by(kinds, rl, columns, rule, rng, slack)
+    return rl, costs, columns, rule, _specs_satisfied_by(kinds, rl, columns, rule, rng, slack), rng
+
+
+@PROPERTY
+@given(instances, kind_sets, st.integers(0, 10**6), st.floats(0.0, 0.05))
+def test_property_optimum_beats_any_feasible_rule_and_holds_every_constraint(params, kinds, seed, slack):
+    rl, costs, columns, rule, specs, rng = _feasible_instance(params, kinds, seed, slack)
     lp = ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
     w = rl.weights
     random_cost = np.sum(w[:, None] * rule * costs.expected(rl.p)) / w.sum()
@@ -341,10 +346,7 @@ def test_property_optimum_beats_any_feasible_rule_and_holds_every_constraint(par
 @PROPERTY
 @given(instances, kind_sets, st.integers(0, 10**6), st.floats(0.0, 0.05), st.floats(0.0, 0.3))
 def test_property_loosening_never_raises_the_optimum(params, kinds, seed, slack, extra):
-    rl, costs, columns = random_instance(**params)
-    rng = np.random.default_rng(seed)
-    rule = _random_rule(rl, columns, rng, blind="group_blind" in kinds)
-    specs = _specs_satisfied_by(kinds, rl, columns, rule, rng, slack)
+    rl, costs, columns, rule, specs, rng = _feasible_instance(params, kinds, seed, slack)
     problem = ConstrainedProblem(rl, costs, specs, columns=columns)
     tight = problem.solve_lp().cost_per_case
     loosened = {k + 1: min(1.0, problem.declared[k] + extra * rng.random())
@@ -352,7 +354,7 @@ def test_property_loosening_never_raises_the_optimum(params, kinds, seed, slack,
     problem.set_bounds(loosened)
     loose = problem.solve_lp().cost_per_case
     assert loose <= tight + 1e-9 * max(1.0, abs(tight))
-    for k, spec in enumerate(problem.specs):
+    for k in range(len(problem.specs)):
         problem.set_active(k + 1, False)
     assert problem.solve_lp().cost_per_case <= loose + 1e-9 * max(1.0, abs(loose))
 
@@ -362,10 +364,7 @@ def test_property_loosening_never_raises_the_optimum(params, kinds, seed, slack,
 @given(instances, kind_sets, st.integers(0, 10**6), st.floats(0.0, 0.05))
 def test_property_many_instances_against_linprog(params, kinds, seed, slack):
     # reference: scipy.optimize.linprog(method="highs") on the independent formulation
-    rl, costs, columns = random_instance(**params)
-    rng = np.random.default_rng(seed)
-    rule = _random_rule(rl, columns, rng, blind="group_blind" in kinds)
-    specs = _specs_satisfied_by(kinds, rl, columns, rule, rng, slack)
+    rl, costs, columns, rule, specs, rng = _feasible_instance(params, kinds, seed, slack)
     expected, _ = reference_solve(rl, costs, columns, specs)
     assert rel_close(ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp().cost_per_case, expected)
 
