@@ -100,6 +100,8 @@ LP_KEYS: tuple[Key, ...] = (
     Key("lenient_ties", (bool,), False, True, "among several optimal rules, return the most lenient (HIGHS direct only)"),
 )
 HIGHS_METHODS = ("auto", "ipm", "simplex", "choose")
+#: solvers that return a vertex (HiGHS's simplex, or its interior point with crossover; SCIPY runs HiGHS)
+VERTEX_SOLVERS = ("HIGHS", "SCIPY")
 #: with method 'auto', the first solve uses the interior-point method (with crossover) from this
 #: many decision probabilities (columns) on, the dual simplex below: the faster of the two on
 #: the benchmark LP (benchmarks/bench_constrained.py; docs/performance.md)
@@ -306,14 +308,13 @@ def _assemble(risk_levels: RiskLevels, decision_costs: np.ndarray, specs: Sequen
     total = float(w.sum())
     ctx = RowContext(index, G, rule_cells, w, risk_levels.p, risk_levels.q, risk_levels.layout, vocab,
                      risk_levels.risk_level_names)
-    agg = sp.csr_matrix((w / total, (index, np.arange(len(index)))), shape=(G, len(index)))
-    dec = agg @ decision_costs
-    out = np.stack([agg @ risk_levels.p[:, j, :] for j in range(risk_levels.p.shape[1])])
+    dec = _aggregate(index, G, w, decision_costs)
+    out = np.stack([_aggregate(index, G, w, risk_levels.p[:, j, :]) for j in range(risk_levels.p.shape[1])])
     blocks = tuple(constraint_rows(spec, ctx) for spec in specs)
     simplex = sp.csr_matrix((np.ones(G * L), (np.repeat(np.arange(G), L), np.arange(G * L))), shape=(G, G * L))
     A = sp.vstack([simplex] + [b.matrix for b in blocks], format="csr")
     offsets = G + np.concatenate([[0], np.cumsum([b.n_rows for b in blocks])]).astype(np.int64)
-    return _LPData(G, L, total, np.asarray(agg.sum(axis=1)).ravel(), np.asarray(dec), out, blocks, A, offsets, ctx,
+    return _LPData(G, L, total, np.bincount(index, weights=w, minlength=G) / total, dec, out, blocks, A, offsets, ctx,
                    A[G:].tocsr(), A.T.tocsr())
 
 
@@ -440,8 +441,8 @@ class ConstrainedProblem:
         Parameters
         ----------
         costs : Costs, optional
-            New costs of the same cells. Per-cell decision costs that differ from the loaded
-            ones re-aggregate the objective (cheap) and resets ``decision_scale`` to 1.
+            New costs of the same cells; they replace the loaded ones (``decision_scale`` goes
+            back to 1). Per-cell decision costs that differ re-aggregate the objective (cheap).
         outcome_costs : sequence of float, shape (J,), optional
             Cost of one adverse outcome of each kind.
         decision_scale : sequence of float, shape (L,), optional
@@ -453,7 +454,7 @@ class ConstrainedProblem:
             if not np.array_equal(costs.decision, self.base_costs.decision):
                 self._data = replace(self._data, decision=_aggregate(self.index, self._data.n_groups, self.risk_levels.weights, costs.decision))
                 self._model = None
-                self.decision_scale = np.ones(self.risk_levels.n_levels)
+            self.decision_scale = np.ones(self.risk_levels.n_levels)
             self.base_costs = costs
             self.outcome_costs = np.asarray(costs.outcome, dtype=np.float64).copy()
         if outcome_costs is not None:
@@ -496,9 +497,12 @@ class ConstrainedProblem:
         The rows and the objective are recomputed (vectorized); the next solve starts from the
         last basis.
         """
-        if risk_levels.n_cells != self.risk_levels.n_cells or risk_levels.n_levels != self.risk_levels.n_levels:
-            raise InputError(f"risk levels of {risk_levels.n_cells} cells and {risk_levels.n_levels} levels given; "
-                             f"the problem was built for {self.risk_levels.n_cells} cells and {self.risk_levels.n_levels} levels.")
+        same = (risk_levels.n_cells == self.risk_levels.n_cells and risk_levels.n_levels == self.risk_levels.n_levels
+                and (risk_levels.layout is self.risk_levels.layout or risk_levels.layout.frame.equals(self.risk_levels.layout.frame)))
+        if not same:
+            raise InputError(f"risk levels of {risk_levels.n_cells} cells and {risk_levels.n_levels} levels given; the problem "
+                             f"was built for other cells ({self.risk_levels.n_cells} cells, {self.risk_levels.n_levels} levels). "
+                             "Build a new ConstrainedProblem for them.")
         costs = costs if costs is not None else self.base_costs
         self.risk_levels = risk_levels
         self.base_costs = costs
@@ -607,9 +611,9 @@ class ConstrainedProblem:
             removed = self._leave_one_out(lp.cost_per_case)
         table = self._table(lp, removed)
         notes = [f"{s.name}: {b.note}." for s, b in zip(self.specs, self._data.blocks) if b.note]
-        if not self.settings.uses_direct and self.settings.solver != "HIGHS":
-            notes.append(f"{self.settings.solver} is an interior-point solver: where several rules are optimal it may "
-                         "return a mixture of them, so split rule cells can be an artifact of the solver; HIGHS returns a vertex.")
+        if self.settings.solver not in VERTEX_SOLVERS:
+            notes.append(f"{self.settings.solver} need not return a vertex: where several rules are optimal it may return "
+                         "a mixture of them, so split rule cells can be an artifact of the solver; HIGHS returns a vertex.")
         return ConstrainedRule(
             rule=rule,
             evaluation=evaluation,
@@ -717,16 +721,20 @@ class ConstrainedProblem:
         involved = conflicts[conflicts["involved"]]
         lines = ["The constraints cannot all hold at once. These conflict:"]
         for _, row in involved.iterrows():
-            text = f"  - {row['constraint']} ({row['kind']}{', ' + row['arguments'] if row['arguments'] else ''})"
+            about = ", ".join(filter(None, [row["kind"] if row["kind"] not in row["constraint"] else "", row["arguments"]]))
+            text = f"  - {row['constraint']}" + (f" ({about})" if about else "")
+            blind = row["kind"] == "group_blind"
             if row["loosen_by"] > 0:
-                text += f": loosen {row['bound_key'] or 'it'} by {row['loosen_by']:.4g} to {row['loosened_bound']:.4g}"
+                text += (f": letting decisions differ by {row['loosen_by']:.4g} between groups" if blind else
+                         f": loosen {row['bound_key']} by {row['loosen_by']:.4g} to {row['loosened_bound']:.4g}")
             if np.isfinite(row["alone_bound"]):
-                text += f"; loosened alone, {row['bound_key'] or 'its tolerance'} {row['alone_bound']:.4g} would do"
-            elif row["kind"] != "group_blind":
-                text += "; loosening it alone cannot restore feasibility"
+                text += (f"; alone, letting decisions differ by {row['alone_by']:.4g} between groups would do" if blind else
+                         f"; loosened alone, {row['bound_key']} {row['alone_bound']:.4g} would do")
+            else:
+                text += "; loosening it alone cannot make the constraints hold"
             lines.append(text)
-        lines.append("The first figure is one smallest total loosening (in probability and share units); "
-                     "the second loosens that constraint only.")
+        lines.append("'loosen ... by' is one smallest total loosening (summed in probability and share units); "
+                     "'alone' loosens that constraint only and keeps the others.")
         return InfeasibleError("\n".join(lines), conflicts)
 
 
@@ -739,6 +747,7 @@ def _row_sums(a: np.ndarray) -> np.ndarray:
 
 
 def _aggregate(index: np.ndarray, n_groups: int, weights: np.ndarray, per_cell: np.ndarray) -> np.ndarray:
+    """sum_{x in g} w(x) v(x, d) / sum_x w(x) for every rule cell g and level d; per_cell (n_cells, L)."""
     total = weights.sum()
     return np.stack([np.bincount(index, weights=weights * per_cell[:, d], minlength=n_groups) for d in range(per_cell.shape[1])],
                     axis=1) / total

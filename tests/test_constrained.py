@@ -18,7 +18,7 @@ from policy.errors import InfeasibleError, InputError, SolverError
 from policy.evaluate import evaluate
 from policy.solve import optimal_rule
 
-from .conftest import ROOT, SCENARIOS, run_cli
+from .conftest import SCENARIOS, run_cli
 from .constrained_reference import constraint_violation, random_instance, reference_solve
 
 DEMO_CONSTRAINED = SCENARIOS / "demo_constrained.toml"
