@@ -73,7 +73,7 @@ CONSTRAINT_KEYS: tuple[Key, ...] = (
     Key("within", (str,), doc="cell covariate whose levels conditional_parity holds within"),
     Key("risk_levels", (list,), doc="principal_fairness: risk levels 0..K+1 to hold it at (default: all)", item_type=int),
     Key("thresholds", (list,), doc="decision values t for the comparisons of P(D >= t) (default: every level but the most lenient)", item_type=str),
-    Key("at_least", (str,), doc="capacity: counts cases at this decision level or harsher (default: the harshest level)"),
+    Key("at_least", (str, int), doc="capacity: counts cases at this decision level or harsher (default: the harshest level)"),
     Key("tolerance", (float,), doc="largest allowed difference of probabilities, 0..1 (fairness kinds; monotone, default 0)"),
     Key("max_share", (float,), doc="capacity: largest expected share of cases, 0..1"),
     Key("max_cases", (float,), doc="capacity: largest expected number of cases"),
@@ -185,12 +185,6 @@ class ConstraintSpec:
     @property
     def bound_unit(self) -> str:
         return BOUND_UNITS[self.bound_key]
-
-    def with_bound(self, value: float) -> "ConstraintSpec":
-        """A copy with another bound (in the declared unit)."""
-        from dataclasses import replace
-
-        return replace(self, **{self.bound_key: float(value)})
 
     def arguments(self) -> str:
         """The arguments as ``key=value`` text, for tables."""

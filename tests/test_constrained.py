@@ -246,6 +246,24 @@ def test_resolves_equal_fresh_builds(demo):
     assert rel_close(replicate.cost_per_case, fresh.cost_per_case, 1e-9)
 
 
+def test_resolve_api_refuses_what_it_cannot_do(demo):
+    rl, costs = demo
+    problem = ConstrainedProblem(rl, costs, demo_specs(), columns=DEMO_RULE)
+    with pytest.raises(InputError, match="no constraint is named 'capacity'"):
+        problem.set_bounds({"capacity": 0.2})
+    with pytest.raises(InputError, match="out of range 1..3"):
+        problem.set_bounds({4: 0.2})
+    with pytest.raises(InputError, match="has no tolerance"):
+        problem.set_bounds({1: 0.1})
+    with pytest.raises(InputError, match="must be in 0..1"):
+        problem.set_bounds({"#3 capacity": 1.5})
+    with pytest.raises(InputError, match="3 numbers >= 0"):
+        problem.set_costs(outcome_costs=[1.0, -2.0, 3.0])
+    other, other_costs, _ = random_instance(0)
+    with pytest.raises(InputError, match="built for other cells"):
+        problem.set_risk_levels(other, other_costs)
+
+
 def test_cvxpy_problem_is_dpp_and_carries_the_parameters(demo):
     import cvxpy as cp
 
@@ -275,7 +293,7 @@ instances = st.builds(
 )
 kind_sets = st.lists(st.sampled_from(["principal_fairness", "statistical_parity", "conditional_parity", "capacity",
                                       "outcome_cap", "monotone", "group_blind"]), min_size=1, max_size=4, unique=True)
-PROPERTY = settings(max_examples=400, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+PROPERTY = settings(max_examples=1000, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
 
 def _specs_satisfied_by(kinds, rl, columns, delta_cells, rng, slack: float):
