@@ -182,14 +182,14 @@ def _constraint_table(constrained) -> Table:
     frame = constrained.to_frame()
     table = Table(title=f"Constraints (price {constrained.price_per_1000:,.0f} {constrained.unit} per 1,000 cases "
                         "above the unconstrained optimum)")
-    for col in ("constraint", "bound", "reached", "binds", "marginal saving per point per 1,000", "saving if removed per 1,000"):
+    for col in ("constraint", "bound", "reached", "binds", "saving if loosened one point, per 1,000", "saving if removed per 1,000"):
         table.add_column(col, justify="left" if col == "constraint" else "right")
     for _, row in frame.iterrows():
         bound = "-" if row["kind"] == "group_blind" else f"{row['bound_key']} {row['bound']:g}"
         table.add_row(f"{row['constraint']} ({row['kind']})", bound,
                       "" if row["value"] != row["value"] else f"{row['value']:.4g}",
                       "yes" if row["binding"] else "no",
-                      "" if row["saving_per_point_per_1000"] != row["saving_per_point_per_1000"]
+                      "" if row["saving_per_point_per_1000"] != row["saving_per_point_per_1000"] or row["kind"] == "group_blind"
                       else f"{row['saving_per_point_per_1000']:,.0f}",
                       f"{row['saving_if_removed_per_1000']:,.0f}")
     return table

@@ -588,7 +588,7 @@ class ConstrainedProblem:
         saving = np.asarray(block_duals, dtype=np.float64) / np.where(scales > 0, scales, 1.0) if len(scales) else np.zeros(0)
         return LPSolution(delta, float((c * flat).sum()), saving, row_values, "optimal", self.settings.label, iterations, seconds, lenient_pass)
 
-    def solve(self, name: str = "constrained optimal rule", leave_one_out: bool = True) -> "ConstrainedRule":
+    def solve(self, name: str = "constrained optimal rule", sensitivity: bool = True) -> "ConstrainedRule":
         """Solve and present: the rule, its price against the unconstrained optimum, each constraint's dual
         value and whether it binds, and the rule's evaluation.
 
@@ -596,8 +596,9 @@ class ConstrainedProblem:
         ----------
         name : str
             The rule's name in outputs.
-        leave_one_out : bool
-            Also re-solve without each constraint in turn (warm) to report what removing it would save.
+        sensitivity : bool
+            Also re-solve (warm) with each bound loosened by one point and without each constraint
+            in turn, to report what loosening or removing it would save.
         """
         lp = self.solve_lp()
         costs = self.current_costs()
@@ -606,10 +607,10 @@ class ConstrainedProblem:
         rule = self._present(lp.delta, name)
         evaluation = evaluate(rule, rl, costs, reference=unconstrained)
         unc_eval = evaluate(unconstrained, rl, costs)
-        removed = np.full(len(self.specs), np.nan)
-        if leave_one_out and len(self.specs):
-            removed = self._leave_one_out(lp.cost_per_case)
-        table = self._table(lp, removed)
+        removed = loosened = np.full(len(self.specs), np.nan)
+        if sensitivity and len(self.specs):
+            loosened, removed = self._sensitivity(lp.cost_per_case)
+        table = self._table(lp, loosened, removed)
         notes = [f"{s.name}: {b.note}." for s, b in zip(self.specs, self._data.blocks) if b.note]
         if self.settings.solver not in VERTEX_SOLVERS:
             notes.append(f"{self.settings.solver} need not return a vertex: where several rules are optimal it may return "
@@ -647,27 +648,45 @@ class ConstrainedProblem:
         coarse /= w[:, None]
         return Rule(name, "constrained", groups, index, coarse, rl.level_values, rl.level_labels, w, note)
 
-    def _leave_one_out(self, cost: float) -> np.ndarray:
-        """Expected cost per case saved by removing each constraint alone (warm re-solves)."""
-        out = np.full(len(self.specs), np.nan)
-        for k, block in enumerate(self._data.blocks):
+    def _sensitivity(self, cost: float) -> tuple[np.ndarray, np.ndarray]:
+        """Expected cost per case saved by loosening each bound one point, and by removing each constraint.
+
+        Warm re-solves, each from the optimum. One point is 0.01 of a probability, share or rate
+        (1% of the cases for ``max_cases``); a bound already at its limit cannot loosen (NaN).
+        The saving per point is what the re-solve shows, not the dual value: on a degenerate LP
+        the dual is one of several and may price tightening rather than loosening.
+        """
+        K = len(self.specs)
+        per_point, removed = np.full(K, np.nan), np.full(K, np.nan)
+        for k, (spec, block) in enumerate(zip(self.specs, self._data.blocks)):
             if not self.active[k]:
                 continue
             if block.n_rows == 0:
-                out[k] = 0.0
+                per_point[k] = removed[k] = 0.0
                 continue
-            self.active[k] = False
-            self._dirty["bounds"] = True
+            before = self.declared[k]
             try:
-                out[k] = cost - self.solve_lp(lenient_ties=False).cost_per_case
+                if spec.kind != "group_blind":
+                    step = 0.01 * (self._data.total if spec.bound_key == "max_cases" else 1.0)
+                    limit = np.inf if spec.bound_key == "max_cases" else 1.0
+                    self.declared[k] = min(limit, before + step)
+                    if self.declared[k] > before:
+                        self._dirty["bounds"] = True
+                        gain = cost - self.solve_lp(lenient_ties=False).cost_per_case
+                        per_point[k] = max(gain, 0.0) * step / (self.declared[k] - before)
+                    self.declared[k] = before
+                self.active[k] = False
+                self._dirty["bounds"] = True
+                removed[k] = max(cost - self.solve_lp(lenient_ties=False).cost_per_case, 0.0)
             finally:
+                self.declared[k] = before
                 self.active[k] = True
                 self._dirty["bounds"] = True
         if self._highs is not None:
             self._highs.restore_best()
-        return np.maximum(out, 0.0)
+        return per_point, removed
 
-    def _table(self, lp: LPSolution, removed: np.ndarray) -> pd.DataFrame:
+    def _table(self, lp: LPSolution, loosened: np.ndarray, removed: np.ndarray) -> pd.DataFrame:
         rows = []
         internal = self._internal_bounds()
         for k, (spec, block) in enumerate(zip(self.specs, self._data.blocks)):
@@ -688,7 +707,6 @@ class ConstrainedProblem:
             # the equality rows of a group-blind rule have no tolerance to loosen, and their
             # multipliers are not unique (solvers return different ones): no dual is reported
             dual = float(lp.saving[k]) if self.active[k] and spec.kind != "group_blind" and block.n_rows else np.nan
-            step = 0.01 * (self._data.total if spec.bound_key == "max_cases" else 1.0)
             rows.append({
                 "constraint": spec.name,
                 "kind": spec.kind,
@@ -702,7 +720,7 @@ class ConstrainedProblem:
                 "binding": binding,
                 "dual": dual,
                 "dual_per_1000": 1000.0 * dual,
-                "saving_per_point_per_1000": 1000.0 * dual * step,
+                "saving_per_point_per_1000": 1000.0 * loosened[k],
                 "saving_if_removed_per_1000": 1000.0 * removed[k],
                 "binding_rows": where,
                 "note": block.note,
@@ -1159,9 +1177,8 @@ class ConstrainedRule:
             text = f"  - {row['constraint']}:{bound} {state}"
             if np.isfinite(row["value"]):
                 text += f" (reached {row['value']:.4g})"
-            if np.isfinite(row["saving_per_point_per_1000"]):
-                text += (f"; at the margin it costs {row['saving_per_point_per_1000']:,.0f} per 1,000 cases per {step} "
-                         "of its bound (a rate, for small changes)")
+            if np.isfinite(row["saving_per_point_per_1000"]) and row["kind"] != "group_blind":
+                text += f"; loosening it by {step} saves {row['saving_per_point_per_1000']:,.0f} per 1,000 cases"
             if np.isfinite(row["saving_if_removed_per_1000"]):
                 text += f"; removing it saves {row['saving_if_removed_per_1000']:,.0f} per 1,000 cases"
             lines.append(text)

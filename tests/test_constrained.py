@@ -182,7 +182,7 @@ def test_dual_is_the_rate_at_which_the_optimum_falls_as_a_bound_loosens(demo):
         assert abs((base.cost_per_case - moved.cost_per_case) / h - base.saving[k]) <= 1e-3 * base.saving[k]
 
 
-def test_price_binding_and_leave_one_out(demo):
+def test_price_binding_and_sensitivity(demo):
     rl, costs = demo
     result = ConstrainedProblem(rl, costs, demo_specs(), columns=DEMO_RULE).solve()
     table = result.to_frame()
@@ -195,6 +195,13 @@ def test_price_binding_and_leave_one_out(demo):
         without, _ = reference_solve(rl, costs, DEMO_RULE, others)
         # reference: linprog on the independent formulation without that constraint
         assert row["saving_if_removed_per_1000"] == pytest.approx(1000 * (result.cost_per_case - without), rel=1e-5, abs=1e-6)
+        if row["kind"] != "group_blind":
+            looser = [dict(s) for s in demo_specs()]
+            looser[k][row["bound_key"]] = row["bound"] + 0.01
+            after, _ = reference_solve(rl, costs, DEMO_RULE, looser)
+            # reference: linprog on the independent formulation with the bound one point looser
+            assert row["saving_per_point_per_1000"] == pytest.approx(1000 * (result.cost_per_case - after), rel=1e-5, abs=1e-6)
+            assert row["saving_per_point_per_1000"] <= row["saving_if_removed_per_1000"] + 1e-6
         if not row["binding"]:
             assert row["saving_if_removed_per_1000"] == pytest.approx(0.0, abs=1e-6)
             assert row["dual"] == pytest.approx(0.0, abs=1e-9)
