@@ -21,6 +21,7 @@ from .errors import InputError, PolicyError
 
 app = typer.Typer(
     add_completion=False,
+    rich_markup_mode=None,
     no_args_is_help=True,
     help=(
         "Release-rule analysis for pretrial decisions: risk levels, cost-minimizing rules, "
