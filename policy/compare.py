@@ -38,7 +38,7 @@ import pandas as pd
 from .cautions import CAUTIONS, assumptions_for
 from .cells import CellLayout, CellTable
 from .costs import Costs, costs_from_scenario
-from .errors import InputError
+from .errors import InputError, PolicyError
 from .evaluate import evaluate, group_matrix
 from .rules import Rule
 from .scenario import Key, Scenario, read_section, register_section
@@ -60,7 +60,36 @@ __all__ = [
     "compare",
 ]
 
-RuleSolver = Callable[[RiskLevels, Costs], Rule]
+#: ``solver(risk_levels, costs)`` -> a Rule, or decision probabilities per cell (n_cells, L)
+RuleSolver = Callable[[RiskLevels, Costs], "Rule | np.ndarray"]
+
+
+class ConstrainedSolver:
+    """Re-solves the scenario's constrained optimum in each replicate.
+
+    Picklable: each process builds its own linear program (:class:`policy.constrained.ConstrainedProblem`)
+    on first use and then only reloads the replicate's risk levels, warm-starting from the last
+    basis. Returns the decision probabilities per cell.
+    """
+
+    def __init__(self, specs: Sequence[Any], settings: Any = None):
+        self.specs = tuple(specs)
+        self.settings = settings
+        self._problem = None
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state["_problem"] = None
+        return state
+
+    def __call__(self, risk_levels: RiskLevels, costs: Costs) -> np.ndarray:
+        from .constrained import ConstrainedProblem
+
+        if self._problem is None or self._problem.risk_levels.layout is not risk_levels.layout:
+            self._problem = ConstrainedProblem(risk_levels, costs, self.specs, settings=self.settings)
+        else:
+            self._problem.set_risk_levels(risk_levels, costs)
+        return self._problem.solve_lp().delta[self._problem.index]
 
 
 # ----------------------------------------------------------------------------------------------
@@ -453,8 +482,17 @@ class ComparisonStatistic:
         total = member.T @ (w[..., None] * per_case)  # (b, G, L)
         best = np.eye(L)[argmin_lenient(total)][:, self.rule_index]  # (b, n, L)
         deltas = [best]
-        for solver in self.solvers:
-            deltas.append(np.stack([solver(replace(self.base, p=p[i], weights=w[i]), self.costs).cell_delta for i in range(b)]))
+        failed = np.zeros((b, len(self.solvers)), dtype=bool)
+        for k, solver in enumerate(self.solvers):
+            solved = np.full((b, n, L), np.nan)
+            for i in range(b):
+                try:
+                    got = solver(replace(self.base, p=p[i], weights=w[i].astype(np.float64)), self.costs)
+                except PolicyError:  # e.g. constraints that cannot all hold in this replicate
+                    failed[i, k] = True
+                    continue
+                solved[i] = got.cell_delta if isinstance(got, Rule) else got
+            deltas.append(solved)
         deltas += self.fixed
         arm_deltas = [observed_delta(batch.cases[:, :, a, :], self.rule_index, self.n_rule_cells)[0] for a in range(self.n_arms)]
         out = score_rules(deltas + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
@@ -474,6 +512,7 @@ class ComparisonStatistic:
             out["itt_at_least_diff"] = _tail(arm_share[:, :, 1]) - _tail(arm_share[:, :, 0])
             out["itt_cases"] = arm_cases.sum(axis=-1)
         del out["at_least"]  # large; the effect keeps what is reported
+        out["solver_failed"] = failed
         return out
 
 
@@ -733,6 +772,7 @@ class Comparison:
 def compare(scenario, replicates: int | None = None, seed: int | None = None, resampling: str | None = None,
             interval: float | None = None, outcomes: str | None = None, workers: int | None = None, runner: TaskRunner | None = None,
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
+            constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
             decision_costs: Mapping[str, float] | None = None) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
@@ -750,8 +790,11 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     rules : sequence of Rule
         Further fixed rules to compare (built on the scenario's cells).
     solvers : sequence of callable
-        ``solver(risk_levels, costs) -> Rule`` re-run in every replicate (e.g. a constrained
-        optimum); the point rule comes from the same solver on the estimates.
+        ``solver(risk_levels, costs) -> Rule`` re-run in every replicate; the point rule comes
+        from the same solver on the estimates.
+    constraints : bool
+        With the scenario's ``[[constraints]]``, also compare the constrained optimum
+        (:mod:`policy.constrained`), re-solved in every replicate (default true).
     outcome_costs, decision_costs : mapping, optional
         What-if cost overrides, as for ``solve``.
     """
@@ -772,10 +815,21 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         "compare:",
         base.outcomes if outcomes is None else outcomes,
     )
+    from .constrained import ConstrainedProblem
+    from .constraints import scenario_specs
+
+    specs = scenario_specs(scenario) if constraints else ()
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     optimum = optimal_rule(rl, costs)
+    solvers = list(solvers)
     solved = [s(rl, costs) for s in solvers]
+    if specs:
+        lp = scenario.sections.get("linear_program")
+        solved.append(ConstrainedProblem(rl, costs, specs, settings=lp).solve().rule)
+        solvers.append(ConstrainedSolver(specs, lp))
+    if any(not isinstance(r, Rule) for r in solved):
+        raise InputError("a solver given to compare must return a Rule for the point estimates.")
     aid = aid_rule(cells, scenario.aid.name, scenario.level_labels)
     fixed = ([aid] if aid is not None else []) + candidate_rules(scenario, rl.layout, rl.weights) + list(rules)
     observed = observed_rules(cells, scenario.aid.name, scenario.level_labels)
@@ -799,4 +853,9 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     elif not result.joint_states:
         notes.append("counts-table input: outcome kinds of one case were resampled independently given cell, arm and level")
     notes.append("the optimum is re-solved in each replicate; its estimated cost is optimistic (chosen on the same data)")
+    failed = result.replicates.get("solver_failed")
+    for k, rule in enumerate(solved):
+        if failed is not None and failed.shape[0] and failed[:, k].any():
+            notes.append(f"{rule.name}: no solution in {int(failed[:, k].sum())} of {result.n_replicates} replicates "
+                         "(left out of its intervals)")
     return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes))
