@@ -4,8 +4,8 @@ Every rule is scored by the same evaluation under the estimated risk levels (met
 section 6): the unconstrained optimum, the aid's recommendation, the committee's candidate rules
 from the scenario's ``[[candidate_rules]]``, and the *observed* rule of each arm (the empirical
 decision distribution per cell among cases where the aid was not shown, and where it was).
-Rules solved per replicate by other stages (e.g. a constrained optimum) join through
-``solvers``.
+With ``[[constraints]]`` the constrained optimum (:mod:`policy.constrained`) joins them; other
+rules solved per replicate join through ``solvers``.
 
 The effect of showing the aid, by risk level, is
 
