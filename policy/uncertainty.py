@@ -66,7 +66,7 @@ from __future__ import annotations
 import os
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from multiprocessing import get_context
 from typing import Any, Callable, Iterator, Mapping, Protocol, Sequence
 
@@ -361,6 +361,10 @@ def one_blas_thread():
 
 class LocalProcesses:
     """Run tasks in worker processes on this machine (``spawn`` start method).
+
+    Worker processes import the caller's main module again, so a script that runs a bootstrap
+    with more than one worker must do so under ``if __name__ == "__main__":`` (notebooks and the
+    command line need nothing).
 
     Parameters
     ----------
