@@ -14,6 +14,8 @@ from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .uncertainty import BootstrapResult, bootstrap
+from .compare import Comparison, compare
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
@@ -33,6 +35,8 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "BootstrapResult",
+    "Comparison",
     "ConstrainedProblem",
     "ConstrainedRule",
     "ConstraintSpec",
@@ -49,7 +53,9 @@ __all__ = [
     "Scenario",
     "SolverError",
     "analyze",
+    "bootstrap",
     "check",
+    "compare",
     "costs_from_scenario",
     "estimate",
     "estimate_risk_levels",
