@@ -6,15 +6,35 @@ Rows are counted from 1 after the header line, in the order of the file.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
+from contextvars import ContextVar
 from pathlib import Path
-from typing import Iterable, Sequence
+from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
 
 from .errors import InputError
 
-__all__ = ["read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns"]
+__all__ = ["read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns", "rows_from", "row_number"]
+
+#: rows before the block being checked (a table read in blocks numbers its rows from the file's start)
+_ROWS_BEFORE: ContextVar[int] = ContextVar("rows_before", default=0)
+
+
+@contextmanager
+def rows_from(rows_before: int) -> Iterator[None]:
+    """Within this context, messages number rows as if ``rows_before`` rows came first."""
+    token = _ROWS_BEFORE.set(int(rows_before))
+    try:
+        yield
+    finally:
+        _ROWS_BEFORE.reset(token)
+
+
+def row_number(position: int) -> int:
+    """1-based row number in the file of a 0-based position in the block being checked."""
+    return int(position) + 1 + _ROWS_BEFORE.get()
 
 
 def first_bad_utf8(path: Path, chunk: int = 1 << 20) -> tuple[int, int]:
@@ -118,7 +138,7 @@ def describe_bad(values: pd.Series | np.ndarray, bad: np.ndarray, limit: int = 5
     vals = pd.unique(pd.Series(np.asarray(values)[rows[:10_000]], dtype=object))
     shown = sorted((repr(v.item() if isinstance(v, np.generic) else v) for v in vals), key=str)
     text = "{" + ", ".join(shown[:limit]) + (", ..." if len(shown) > limit else "") + "}"
-    return text, len(rows), int(rows[0]) + 1
+    return text, len(rows), row_number(rows[0])
 
 
 def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool, typed: bool = False) -> np.ndarray:
@@ -167,5 +187,5 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
         states = np.where(missing, 0, np.where(one.to_numpy(dtype=bool), 2, 1)).astype(np.int8)
     if not allow_missing and missing is not None and missing.any():
         rows = np.flatnonzero(missing)
-        raise InputError(f"{file}: column {column!r} must be {expected} in every row; {len(rows)} rows are empty (first: row {rows[0] + 1}).")
+        raise InputError(f"{file}: column {column!r} must be {expected} in every row; {len(rows)} rows are empty (first: row {row_number(rows[0])}).")
     return states
