@@ -22,8 +22,11 @@ from .tables import binary_states, describe_bad, read_table, require_columns, ro
 
 __all__ = ["BlockCounts", "CellLayout", "CellTable", "CodedColumn", "count_block", "load_cell_table", "aggregate_codes", "code_column"]
 
-#: rows per chunk of the aggregation pass (bounds the temporary key array)
-CHUNK_ROWS = 1 << 21
+#: rows per chunk of the aggregation pass (bounds the temporary key array; a file is read in
+#: blocks of this many rows, so that both add per-cell sums in the same order)
+CHUNK_ROWS = 1 << 20
+#: rows per step of the key computation within a chunk (the step's key stays in cache)
+KEY_STEP = 1 << 15
 #: largest key space counted with one dense bincount; beyond it keys are sorted and merged
 DENSE_KEYS = 1 << 22
 
@@ -734,13 +737,17 @@ def aggregate_codes(
     for start in range(0, n, chunk_rows):
         stop = min(n, start + chunk_rows)
         key = np.zeros(stop - start, dtype=np.int64)
-        cell_key = None
-        for i, (col, size) in enumerate(zip(columns, sizes)):
-            if i:
-                key *= size
-            col.add_to(key, start, stop)
-            if i == n_cell_columns - 1 and cost_values:
-                cell_key = key.copy()
+        cell_key = np.empty(stop - start, dtype=np.int64) if cost_values else None
+        # Horner's scheme in cache-sized steps: each step's key stays in cache across the columns
+        for step in range(start, stop, KEY_STEP):
+            end = min(stop, step + KEY_STEP)
+            part = key[step - start:end - start]
+            for i, (col, size) in enumerate(zip(columns, sizes)):
+                if i:
+                    part *= size
+                col.add_to(part, step, end)
+                if i == n_cell_columns - 1 and cell_key is not None:
+                    cell_key[step - start:end - start] = part
         if dense:
             acc += np.bincount(key, minlength=space)
             for c, values in cost_values.items():

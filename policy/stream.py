@@ -65,7 +65,8 @@ class _Block:
 class _Source:
     """A case table file read in blocks of exactly ``block_rows`` rows (the last one shorter)."""
 
-    def __init__(self, path: Path, columns: list[str], what: str, text_columns: list[str], block_rows: int):
+    def __init__(self, path: Path, columns: list[str], what: str, text_columns: list[str], block_rows: int,
+                 plain: tuple[str, ...] = ()):
         self.path, self.columns, self.what, self.block_rows = path, columns, what, int(block_rows)
         self.text_columns = text_columns
         self.kind = path.suffix.lower().lstrip(".")
@@ -80,8 +81,9 @@ class _Source:
             except Exception as exc:  # pyarrow raises several types for a damaged file
                 raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
             require_columns(schema.names, columns, path.name, what)
-            self.dictionary = [c for c in columns if pa.types.is_string(schema.field(c).type)
-                               or pa.types.is_large_string(schema.field(c).type)]
+            # text columns arrive as categoricals, except ``plain`` ones (case ids: all distinct)
+            self.dictionary = [c for c in columns if c not in plain and (pa.types.is_string(schema.field(c).type)
+                               or pa.types.is_large_string(schema.field(c).type))]
             self.file = pq.ParquetFile(path, read_dictionary=self.dictionary)
             self.total = self.file.metadata.num_rows
             self.unit = "rows"
@@ -167,17 +169,23 @@ class _Source:
                 raise InputError(f"{self.path.name}: not a well-formed CSV file ({exc}).") from None
 
 
-def _prefetched(items: Iterator[Any]) -> Iterator[Any]:
-    """Iterate ``items`` with the next one prepared in a background thread (reading and
-    decoding a block release the GIL, so they overlap with counting the previous one)."""
+def _prefetched(items: Iterator[Any], prepare: Callable[[Any], Any] = lambda item: item) -> Iterator[Any]:
+    """Iterate ``prepare(item)`` over ``items``, the next one read and prepared in a background
+    thread (reading, decoding and hashing a block release the GIL, so they overlap with
+    counting the previous one)."""
     sentinel = object()
+
+    def step():
+        item = next(items, sentinel)
+        return item if item is sentinel else prepare(item)
+
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="policy-read") as pool:
-        future = pool.submit(next, items, sentinel)
+        future = pool.submit(step)
         while True:
             item = future.result()
             if item is sentinel:
                 return
-            future = pool.submit(next, items, sentinel)
+            future = pool.submit(step)
             yield item
 
 
@@ -290,6 +298,8 @@ def _typed_like_pandas(texts: list[str]) -> list:
 _M1 = np.uint64(0xBF58476D1CE4E5B9)
 _M2 = np.uint64(0x94D049BB133111EB)
 _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
+#: odd multipliers of the successive 64-bit words of an id before the final mix
+_WORD = tuple(np.uint64(m) for m in (0xD6E8FEB86659FD93, 0xA0761D6478BD642F, 0xE7037ED1A0B428DB, 0x8EBC6AF09C88C6E3))
 
 
 def _mix(h: np.ndarray) -> np.ndarray:
@@ -302,38 +312,41 @@ def _mix(h: np.ndarray) -> np.ndarray:
     return h
 
 
-def _bytes_keys(offsets: np.ndarray, data: np.ndarray) -> np.ndarray | None:
+def _bytes_keys(offsets: np.ndarray, data: np.ndarray, lengths: np.ndarray | None = None) -> np.ndarray | None:
     """Hash of each string's bytes (strings given by Arrow offsets into ``data``), grouped by
-    length so every group is one fixed-width matrix; None when there are too many lengths."""
-    lengths = np.diff(offsets)
-    n = len(lengths)
+    length so every group is one fixed-width matrix read as 64-bit words; None when there are
+    too many lengths. ``lengths``: the strings' own byte lengths when ``data`` holds them
+    padded (they enter the hash, so padding never makes two ids equal)."""
+    widths = np.diff(offsets)
+    lengths = widths if lengths is None else lengths
+    n = len(widths)
     out = np.empty(n, dtype=np.uint64)
     if n == 0:
         return out
-    lo, hi = int(lengths.min()), int(lengths.max())
+    lo, hi = int(widths.min()), int(widths.max())
     if lo == hi:
         groups = [(lo, None)]
     else:
-        present = np.flatnonzero(np.bincount(lengths - lo))
+        present = np.flatnonzero(np.bincount(widths - lo))
         if len(present) > _MAX_ID_LENGTHS:
             return None
-        groups = [(int(lo + p), np.flatnonzero(lengths == lo + p)) for p in present]
-    for length, rows in groups:
-        width = max(8, (length + 7) // 8 * 8)
+        groups = [(int(lo + p), np.flatnonzero(widths == lo + p)) for p in present]
+    for width, rows in groups:
+        padded_width = max(8, (width + 7) // 8 * 8)
         m = n if rows is None else len(rows)
-        padded = np.zeros((m, width), dtype=np.uint8)
-        if length:
+        padded = np.zeros((m, padded_width), dtype=np.uint8)
+        if width:
             if rows is None:
                 start = int(offsets[0])
-                padded[:, :length] = data[start:start + n * length].reshape(n, length)
+                padded[:, :width] = data[start:start + n * width].reshape(n, width)
             else:
-                padded[:, :length] = data[offsets[rows][:, None] + np.arange(length)]
+                padded[:, :width] = data[offsets[rows][:, None] + np.arange(width)]
         words = padded.view("<u8")
-        h = np.full(m, length + 1, dtype=np.uint64)
+        h = (lengths if rows is None else lengths[rows]).astype(np.uint64)
         h *= _GOLDEN
         for k in range(words.shape[1]):
-            h ^= words[:, k]
-            _mix(h)
+            h += words[:, k] * _WORD[k % len(_WORD)]
+        _mix(h)
         if rows is None:
             out[:] = h
         else:
@@ -364,7 +377,19 @@ def id_keys(values: Any) -> np.ndarray:
             offsets = np.frombuffer(arr.buffers()[1], dtype=wide)[arr.offset:arr.offset + len(arr) + 1]
             data_buffer = arr.buffers()[2]
             data = np.frombuffer(data_buffer, dtype=np.uint8) if data_buffer is not None else np.zeros(0, np.uint8)
-            keys = _bytes_keys(offsets.astype(np.int64), data)
+            offsets = offsets.astype(np.int64)
+            lengths = np.diff(offsets)
+            if len(lengths) and lengths.min() != lengths.max():
+                # pad to one width in pyarrow (fast); non-ASCII text may still vary: grouped below
+                import pyarrow.compute as pc
+
+                widest = pc.max(pc.utf8_length(arr)).as_py()
+                padded = pc.utf8_rpad(arr, width=widest, padding="\0")
+                padded_offsets = np.frombuffer(padded.buffers()[1], dtype=wide)[padded.offset:padded.offset + len(padded) + 1]
+                widths = np.diff(padded_offsets)
+                if widths.min() == widths.max():
+                    return _bytes_keys(padded_offsets.astype(np.int64), np.frombuffer(padded.buffers()[2], dtype=np.uint8), lengths)
+            keys = _bytes_keys(offsets, data)
             if keys is not None:
                 return keys
     plain = values.to_numpy(zero_copy_only=False) if arr is not None and values is arr else np.asarray(values, dtype=object)
@@ -380,8 +405,7 @@ class _IdCheck:
         self.parts: list[np.ndarray] = []
         self.filled = 0
 
-    def add(self, ids: pd.Series) -> None:
-        keys = id_keys(ids)
+    def add(self, keys: np.ndarray) -> None:
         if self.keys is not None and self.filled + len(keys) <= len(self.keys):
             self.keys[self.filled:self.filled + len(keys)] = keys
         else:
@@ -445,13 +469,17 @@ def stream_cell_table(path: str | Path, scenario: Scenario, what: str | None = N
     cell_columns = list(scenario.cell_columns)
     id_column = scenario.case_id
     text = cell_columns + ([id_column] if id_column else [])
-    source = _Source(path, columns, what, text, block_rows)
+    source = _Source(path, columns, what, text, block_rows, plain=(id_column,) if id_column else ())
     file = path.name
     merged = _Merged(len(cell_columns))
     ids = _IdCheck(id_column, source.total if source.kind == "parquet" else None) if id_column else None
     with _progress_bar(progress, source, file) as advance:
         start = 0
-        for frame, position in _prefetched(source.blocks()):
+        def with_keys(item):
+            frame, position = item
+            return frame, position, id_keys(frame[id_column]) if id_column else None
+
+        for frame, position, keys in _prefetched(source.blocks(), with_keys):
             n = len(frame)
             try:
                 with rows_from(start):
@@ -462,7 +490,7 @@ def stream_cell_table(path: str | Path, scenario: Scenario, what: str | None = N
                 raise InputError(f"{exc} (rows {start + 1:,} to {start + n:,} checked; the table is read in blocks of "
                                  f"{source.block_rows:,} rows and stops at the first block with an error)") from None
             if ids is not None:
-                ids.add(frame[id_column])
+                ids.add(keys)
             merged.add(block)
             start += n
             if advance is not None:

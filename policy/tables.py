@@ -159,19 +159,21 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
             missing = None
     elif pd.api.types.is_integer_dtype(dtype) or pd.api.types.is_float_dtype(dtype):
         arr = series.to_numpy(dtype=np.float64, na_value=np.nan) if series.hasnans or pd.api.types.is_float_dtype(dtype) else series.to_numpy()
-        if arr.dtype.kind == "f":
+        states = _numeric_states(arr)
+        if states is not None:  # every value 0, 1 or missing (the usual case): no masks needed
+            if not allow_missing and arr.dtype.kind == "f":
+                missing = states == 0
+            else:
+                missing = None
+        elif arr.dtype.kind == "f":
             missing = np.isnan(arr)
             bad = ~missing & (arr != 0) & (arr != 1)
         else:
             missing = None
             bad = (arr != 0) & (arr != 1)
-        if bad.any():
+        if states is None:
             text, n, first = describe_bad(arr, bad)
             raise InputError(f"{file}: column {column!r} must be {expected}; got {text} in {n} rows (first: row {first}).")
-        if missing is not None:
-            states = np.where(missing, 0, arr + 1).astype(np.int8)
-        else:
-            states = arr.astype(np.int8) + 1
     else:
         if typed:
             raise InputError(f"{file}: column {column!r} has type {dtype}; expected integer or boolean 0/1 (null for missing).")
@@ -189,3 +191,30 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
         rows = np.flatnonzero(missing)
         raise InputError(f"{file}: column {column!r} must be {expected} in every row; {len(rows)} rows are empty (first: row {row_number(rows[0])}).")
     return states
+
+
+#: rows per step of :func:`_numeric_states` (its temporaries stay in the processor's cache)
+_STEP = 1 << 14
+
+
+def _numeric_states(arr: np.ndarray) -> np.ndarray | None:
+    """States (0 missing, 1 zero, 2 one) of a numeric 0/1 array (NaN = missing), or None if it
+    holds any other value. Done in cache-sized steps: the column is read once."""
+    out = np.empty(len(arr), dtype=np.int8)
+    if arr.dtype.kind == "f":
+        for start in range(0, len(arr), _STEP):
+            a = arr[start:start + _STEP]
+            o = out[start:start + _STEP]
+            one = a == 1
+            np.add(a == 0, one, out=o, casting="unsafe")
+            o += one
+            if not (o.astype(bool) | np.isnan(a)).all():
+                return None
+        return out
+    unsigned = arr.view(np.dtype(f"u{arr.dtype.itemsize}")) if arr.dtype.kind == "i" else arr
+    for start in range(0, len(arr), _STEP):
+        a = unsigned[start:start + _STEP]
+        if (a > 1).any():  # negative numbers are large as unsigned
+            return None
+        np.add(a, 1, out=out[start:start + _STEP], casting="unsafe")
+    return out
