@@ -193,6 +193,89 @@ def solve(
     show_written(paths)
 
 
+def _ranges(values: Optional[List[str]]) -> Optional[list]:
+    if not values:
+        return None
+    out = []
+    for item in values:
+        lo, sep, hi = item.partition(":")
+        try:
+            pair = (float(lo), float(hi))
+        except ValueError:
+            pair = None
+        if not sep or pair is None:
+            raise InputError(f"--range {item!r} must look like LOW:HIGH, e.g. 0:40.")
+        out.append(pair)
+    return out
+
+
+@command
+def sweep(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    ratio: List[str] = typer.Option(..., "--ratio", help="Outcome key whose cost is swept; once for a sweep, twice for a map."),
+    range_: Optional[List[str]] = typer.Option(None, "--range", help="LOW:HIGH of each ratio, in --ratio order (default 0 to 4x the scenario's)."),
+    scale: str = typer.Option("linear", "--scale", help="linear or log."),
+    per: Optional[str] = typer.Option(None, "--per", help="Decision level whose mean cost divides the swept cost (default the harshest)."),
+    gamma: Optional[List[float]] = typer.Option(None, "--gamma", help="Sensitivity parameter of a robust region (repeatable; default 1.1, 1.25, 1.5)."),
+    no_bounds: bool = typer.Option(False, "--no-bounds", help="Leave out the monotone-response bounds."),
+    missing: str = typer.Option("worst_case", "--missing", help="Missing outcome records in the bounds: worst_case or ignore."),
+    share: float = typer.Option(0.5, "--share", help="Share of cases in 'lenient stays optimal for this share up to ratio Y'."),
+    points: int = typer.Option(200, "--points", help="Display grid points per axis of the map figure."),
+    table_points: int = typer.Option(51, "--table-points", help="Grid points per axis written to map_grid.csv."),
+    figure: Optional[List[str]] = typer.Option(None, "--figure", help="Figure format png or svg (repeatable; default both)."),
+    no_figures: bool = typer.Option(False, "--no-figures", help="Write the tables only."),
+    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
+    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
+):
+    """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+    from .outputs import write_outputs
+    from .sweep import sweep_scenario
+
+    if table_points < 2:
+        raise InputError(f"--table-points must be at least 2; got {table_points}.")
+    formats = [] if no_figures else list(figure or ["png", "svg"])
+    progress = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
+                        TimeElapsedColumn(), console=err_console, transient=True)
+    with progress:
+        task = progress.add_task("sweep", total=3)
+
+        def step(what: str) -> None:
+            progress.update(task, description=what, advance=1)
+
+        result = sweep_scenario(scenario, ratio, _ranges(range_), scale, per, gamma or None, False if no_bounds else None,
+                                missing, None, points, share, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+                                on_step=step)
+        files = result.output_files(formats, table_points)
+        progress.update(task, total=3 + len(files), description="writing tables and figures")
+
+        def counted(name, content):
+            def write(path):
+                content(path)
+                progress.update(task, advance=1, description=f"wrote {name}")
+            return write
+
+        staged = {}
+        for name, content in files.items():
+            if callable(content):
+                staged[name] = counted(name, content)
+            else:
+                staged[name] = content
+                progress.update(task, advance=1)
+        paths = write_outputs(out, staged)
+    from .sweep import assumption_lines
+
+    console.print(result.scenario.title, style="bold")
+    console.print(str(result))
+    console.print("Assumptions behind these figures:", style="bold")
+    for line in assumption_lines("robust_sweep" if len(result.assumptions) > 1 else "sweep", result.assumptions)[:-1]:
+        console.print(f"  - {line}")
+    show_cautions()
+    show_written(paths)
+
+
 def main(argv: Optional[List[str]] = None) -> int:
     """Run the command line; return the exit code."""
     try:
