@@ -20,7 +20,7 @@ from .errors import InputError
 from .scenario import Scenario
 from .tables import binary_states, describe_bad, read_table, require_columns
 
-__all__ = ["CellLayout", "CellTable", "load_cell_table", "aggregate_codes"]
+__all__ = ["CellLayout", "CellTable", "CodedColumn", "load_cell_table", "aggregate_codes", "code_column"]
 
 #: rows per chunk of the aggregation pass (bounds the temporary key array)
 CHUNK_ROWS = 1 << 21
@@ -105,7 +105,6 @@ def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: st
         except TypeError:
             return sorted(uniques, key=str)
     declared_text = [str(v) for v in declared]
-    out = []
     for value in uniques:
         if str(value) not in declared_text:
             raise InputError(
@@ -113,38 +112,85 @@ def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: st
                 f"expected one of: {', '.join(declared_text)}."
             )
     by_text = {str(v): v for v in uniques}
-    for text in declared_text:
-        if text in by_text:
-            out.append(by_text[text])
-    return out
+    return [by_text[text] for text in declared_text if text in by_text]
+
+
+@dataclass(frozen=True)
+class CodedColumn:
+    """A column as integer codes 0..size-1, read chunk by chunk without a full-length copy.
+
+    Small integer columns are coded as ``value - offset`` on the fly (no hashing, no copy);
+    categorical columns use their codes; anything else is factorized once.
+    """
+
+    values: np.ndarray
+    offset: int
+    uniques: list
+
+    @property
+    def size(self) -> int:
+        return len(self.uniques)
+
+    def add_to(self, key: np.ndarray, start: int, stop: int) -> None:
+        """``key += code`` for rows start..stop, in place."""
+        key += self.values[start:stop]
+        if self.offset:
+            key -= self.offset
+
+    def codes(self) -> np.ndarray:
+        return self.values - self.values.dtype.type(self.offset) if self.offset else self.values
+
+
+def _smallest_int(codes: np.ndarray, size: int) -> np.ndarray:
+    for dtype in (np.int8, np.int16, np.int32):
+        if size < np.iinfo(dtype).max:
+            return codes.astype(dtype, copy=False)
+    return codes
+
+
+def code_column(series: pd.Series, column: str, file: str, what: str = "column") -> CodedColumn:
+    """Code a complete column (cell covariate, decision, recommendation) as integers."""
+    if series.hasnans:
+        rows = np.flatnonzero(series.isna().to_numpy())
+        raise InputError(
+            f"{file}: {what} {column!r} is empty in {len(rows)} rows (first: row {rows[0] + 1}); "
+            f"every row needs a value."
+        )
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        return CodedColumn(series.cat.codes.to_numpy(), 0, list(series.cat.categories))
+    values = series.to_numpy()
+    if values.dtype.kind == "u" and values.dtype.itemsize == 8:
+        values = values.astype(np.int64)
+    if values.dtype.kind in "iub" and len(values):
+        lo, hi = int(values.min()), int(values.max())
+        if hi - lo < (1 << 16):
+            if values.dtype.kind == "b":
+                return CodedColumn(values.view(np.int8), lo, [bool(v) for v in range(lo, hi + 1)])
+            return CodedColumn(values, lo, list(range(lo, hi + 1)))
+    codes, uniques = pd.factorize(series, sort=False)
+    uniques = [u.item() if isinstance(u, np.generic) else u for u in uniques]
+    return CodedColumn(_smallest_int(codes, len(uniques)), 0, uniques)
+
+
+def categories_of(coded: CodedColumn, present: np.ndarray, declared: Sequence | None,
+                  column: str, file: str) -> tuple[list, np.ndarray]:
+    """Ordered categories of the codes present, and a lookup from code to category position
+    (-1 for codes not present)."""
+    values = [coded.uniques[i] for i in present.tolist()]
+    cats = _ordered_categories(values, declared, column, file)
+    position = {v: i for i, v in enumerate(cats)}
+    lookup = np.full(coded.size, -1, dtype=np.int64)
+    lookup[present] = [position[v] for v in values]
+    return cats, lookup
 
 
 def code_cell_column(series: pd.Series, column: str, file: str, declared: Sequence | None) -> tuple[np.ndarray, list]:
-    """Integer codes 0..n-1 for a cell column and its ordered categories (present values only)."""
-    if series.hasnans:
-        missing = series.isna().to_numpy()
-        rows = np.flatnonzero(missing)
-        raise InputError(
-            f"{file}: cell column {column!r} is empty in {len(rows)} rows (first: row {rows[0] + 1}); "
-            "cell columns must be complete."
-        )
-    values = series.to_numpy() if not isinstance(series.dtype, pd.CategoricalDtype) else None
-    if values is not None and values.dtype.kind in "iub":
-        # small integer codes: use the values themselves (no hashing), then keep present ones
-        lo, hi = int(values.min()), int(values.max())
-        if hi - lo < (1 << 16):
-            raw = (values - values.dtype.type(lo)) if lo else values
-            present = np.flatnonzero(np.bincount(raw.astype(np.intp, copy=False), minlength=hi - lo + 1))
-            cats = _ordered_categories([v + lo for v in present.tolist()], declared, column, file)
-            lookup = np.full(hi - lo + 1, -1, dtype=np.int32)
-            lookup[np.asarray(cats, dtype=np.int64) - lo] = np.arange(len(cats), dtype=np.int32)
-            return lookup[raw], cats
-    codes, uniques = pd.factorize(series, sort=False)
-    uniques = list(uniques)
-    cats = _ordered_categories(uniques, declared, column, file)
-    position = {v: i for i, v in enumerate(cats)}
-    remap = np.array([position[v] for v in uniques], dtype=np.int32)
-    return remap[codes], cats
+    """Codes 0..n-1 of a (small) table's cell column and its ordered categories (present values only)."""
+    coded = code_column(series, column, file, "cell column")
+    raw = coded.codes().astype(np.int64)
+    present = np.flatnonzero(np.bincount(raw, minlength=coded.size))
+    cats, lookup = categories_of(coded, present, declared, column, file)
+    return lookup[raw], cats
 
 
 # ----------------------------------------------------------------------------------------------
@@ -244,41 +290,48 @@ class CellTable:
         if scenario.case_id is not None:
             _check_unique_ids(frame[scenario.case_id], scenario.case_id, file)
 
-        cell_codes, categories = [], {}
-        for col in scenario.cell_columns:
-            codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col))
-            cell_codes.append(codes)
-            categories[col] = cats
-        level_codes = _level_codes(frame[scenario.decision], scenario, scenario.decision, file, typed)
+        cells = [code_column(frame[c], c, file, "cell column") for c in scenario.cell_columns]
+        columns = list(cells)
         if scenario.arm is not None:
-            arm_codes = binary_states(frame[scenario.arm], scenario.arm, file, allow_missing=False, typed=typed) - 1
+            arm = binary_states(frame[scenario.arm], scenario.arm, file, allow_missing=False, typed=typed) - 1
+            columns.append(CodedColumn(arm, 0, [0, 1]))
             arms: tuple = (0, 1)
         else:
-            arm_codes, arms = None, (None,)
-        rec_codes = None
+            arms = (None,)
+        decision = code_column(frame[scenario.decision], scenario.decision, file)
+        columns.append(decision)
+        recommendation = None
         if scenario.aid.recommendation is not None:
-            rec_codes = _level_codes(frame[scenario.aid.recommendation], scenario, scenario.aid.recommendation, file, typed)
-        states = []
+            recommendation = code_column(frame[scenario.aid.recommendation], scenario.aid.recommendation, file)
+            columns.append(recommendation)
         for outcome in scenario.outcomes:
-            s = binary_states(frame[outcome.column], outcome.column, file, allow_missing=True, typed=typed)
-            if not s.any():
+            states = binary_states(frame[outcome.column], outcome.column, file, allow_missing=True, typed=typed)
+            if not states.any():
                 raise InputError(f"{file}: outcome column {outcome.column!r} ({outcome.label}) is empty in every row; nothing can be estimated for it.")
-            states.append(s)
-        costs_raw = {}
-        for col in scenario.cost_columns:
-            costs_raw[col] = _cost_values(frame[col], col, file)
+            columns.append(CodedColumn(states, 0, [None, 0, 1]))
+        costs_raw = {col: _cost_values(frame[col], col, file) for col in scenario.cost_columns}
 
-        counts, cell_ids, cost_sums = aggregate_codes(
-            cell_codes, [len(categories[c]) for c in scenario.cell_columns],
-            arm_codes, level_codes, len(scenario.levels), states, rec_codes, costs_raw,
-        )
-        table = cls._from_counts_array(counts, cell_ids, categories, scenario, arms, rec_codes is not None, cost_sums, f"case table {file}")
+        counts, cell_ids, cost_sums = aggregate_codes(columns, len(cells), costs_raw)
+        # counts: (cells present, [arm], decision codes, [recommendation codes], 3, ..., 3)
+        if scenario.arm is None:
+            counts = counts[:, None]
+        axis = 2
+        counts = _to_levels(counts, axis, decision, scenario, scenario.decision, frame, file)
+        if recommendation is not None:
+            counts = _to_levels(counts, axis + 1, recommendation, scenario, scenario.aid.recommendation, frame, file)
+        else:
+            counts = counts[:, :, :, None]
+        J = len(scenario.outcomes)
+        counts = counts.reshape(counts.shape[:4] + (3 ** J,))
+        categories, order = _present_categories(cells, cell_ids, scenario, file)
+        table = cls._from_counts_array(counts[order], categories, scenario, arms, recommendation is not None,
+                                       {c: v[order] for c, v in cost_sums.items()}, f"case table {file}")
         _check_structural_zeros(table, scenario, file)
         return table
 
     @classmethod
-    def _from_counts_array(cls, counts, cell_ids, categories, scenario, arms, has_rec, cost_sums, source) -> "CellTable":
-        # counts: (n_cells, A, L, R, 3**J) -> margins
+    def _from_counts_array(cls, counts, categories, scenario, arms, has_rec, cost_sums, source) -> "CellTable":
+        # counts: (n_cells, A, L, R, 3**J) -> margins; categories: column -> (values, codes per cell)
         J, L = len(scenario.outcomes), len(scenario.levels)
         n_cells = counts.shape[0]
         by_state = counts.reshape(counts.shape[:4] + (3,) * J)
@@ -292,11 +345,9 @@ class CellTable:
             per_state = base.sum(axis=other) if other else base  # (n, A, L, 3)
             observed[:, :, j, :] = per_state[..., 1] + per_state[..., 2]
             events[:, :, j, :] = per_state[..., 2]
-        sizes = [len(categories[c]) for c in scenario.cell_columns]
-        parts = np.unravel_index(cell_ids, sizes)
         frame = pd.DataFrame({
-            c: pd.Categorical.from_codes(p.astype(np.int64), categories=categories[c], ordered=True)
-            for c, p in zip(scenario.cell_columns, parts)
+            c: pd.Categorical.from_codes(codes, categories=values, ordered=True)
+            for c, (values, codes) in categories.items()
         })
         w = cases.sum(axis=(1, 2))
         cell_costs = {col: s / w for col, s in cost_sums.items()}
@@ -340,7 +391,7 @@ class CellTable:
             codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col))
             cell_codes.append(codes)
             categories[col] = cats
-        level_codes = _level_codes(frame[scenario.decision], scenario, scenario.decision, file, typed)
+        level_codes = _level_codes(frame[scenario.decision], scenario, scenario.decision, file)
         if scenario.arm is not None:
             arm_codes = binary_states(frame[scenario.arm], scenario.arm, file, allow_missing=False, typed=typed) - 1
             arms: tuple = (0, 1)
@@ -381,13 +432,16 @@ class CellTable:
         return table
 
     def to_frame(self) -> pd.DataFrame:
-        """The counts table: one row per cell x arm x decision level with cases > 0.
+        """The counts table: one row per cell x arm x decision level with cases > 0 (or with
+        cases the aid recommended that level for).
 
         Reading it back with :meth:`from_counts` gives the same cell table.
         """
         n, A, L = self.cases.shape
         idx_cell, idx_arm, idx_level = np.unravel_index(np.arange(n * A * L), (n, A, L))
         keep = self.cases.reshape(-1) > 0
+        if self.recommended is not None:
+            keep |= self.recommended.reshape(-1) > 0
         out = self.layout.frame.iloc[idx_cell[keep]].reset_index(drop=True).copy()
         for c in out.columns:
             out[c] = out[c].astype(object)
@@ -482,26 +536,66 @@ def _check_unique_ids(ids: pd.Series, column: str, file: str) -> None:
         )
 
 
-def _level_codes(series: pd.Series, scenario: Scenario, column: str, file: str, typed: bool) -> np.ndarray:
-    """Decision level position of each row; undeclared or empty values raise."""
-    values = scenario.level_values
-    codes, uniques = pd.factorize(series, sort=False, use_na_sentinel=True)
-    if (codes < 0).any():
-        rows = np.flatnonzero(codes < 0)
-        raise InputError(f"{file}: column {column!r} is empty in {len(rows)} rows (first: row {rows[0] + 1}); expected one of: {', '.join(values)}.")
-    text = [str(u.item() if isinstance(u, np.generic) else u) for u in uniques]
+def _level_text(value: Any) -> str:
+    text = str(value.item() if isinstance(value, np.generic) else value)
     # integers stored as floats ("1.0") still name level "1"
-    text = [t[:-2] if t.endswith(".0") and t[:-2].lstrip("-").isdigit() else t for t in text]
-    remap = np.array([values.index(t) if t in values else -1 for t in text], dtype=np.int8)
-    level = remap[codes]
+    return text[:-2] if text.endswith(".0") and text[:-2].lstrip("-").isdigit() else text
+
+
+def _undeclared(series: pd.Series, bad_values: list, scenario: Scenario, column: str, file: str) -> InputError:
+    bad = series.isin(bad_values).to_numpy()
+    shown, n, first = describe_bad(series.to_numpy(dtype=object), bad)
+    return InputError(
+        f"{file}: column {column!r} has values that are not declared decision levels: {shown} in {n} rows "
+        f"(first: row {first}); expected one of: {', '.join(scenario.level_values)} (see [[decisions]] value in {scenario.file})."
+    )
+
+
+def _to_levels(counts: np.ndarray, axis: int, coded: CodedColumn, scenario: Scenario, column: str,
+               frame: pd.DataFrame, file: str) -> np.ndarray:
+    """Turn an axis of raw decision codes into the declared levels' axis (length L)."""
+    values = scenario.level_values
+    other = tuple(i for i in range(counts.ndim) if i != axis)
+    present = np.flatnonzero(counts.sum(axis=other) > 0)
+    mapping = np.zeros((coded.size, len(values)), dtype=np.int64)
+    bad = []
+    for code in present.tolist():
+        text = _level_text(coded.uniques[code])
+        if text in values:
+            mapping[code, values.index(text)] = 1
+        else:
+            bad.append(coded.uniques[code])
+    if bad:
+        raise _undeclared(frame[column], bad, scenario, column, file)
+    return np.moveaxis(np.moveaxis(counts, axis, -1) @ mapping, -1, axis)
+
+
+def _level_codes(series: pd.Series, scenario: Scenario, column: str, file: str) -> np.ndarray:
+    """Decision level position of each row of a (small) table; undeclared or empty values raise."""
+    coded = code_column(series, column, file)
+    values = scenario.level_values
+    remap = np.array([values.index(_level_text(u)) if _level_text(u) in values else -1 for u in coded.uniques], dtype=np.int64)
+    level = remap[coded.codes().astype(np.int64)]
     if (level < 0).any():
-        bad = level < 0
-        shown, n, first = describe_bad(series.to_numpy(dtype=object), bad)
-        raise InputError(
-            f"{file}: column {column!r} has values that are not declared decision levels: {shown} in {n} rows "
-            f"(first: row {first}); expected one of: {', '.join(values)} (see [[decisions]] value in {scenario.file})."
-        )
+        bad = sorted({coded.uniques[i] for i in np.flatnonzero(remap < 0)}, key=str)
+        raise _undeclared(series, bad, scenario, column, file)
     return level
+
+
+def _present_categories(cells: Sequence[CodedColumn], cell_ids: np.ndarray, scenario: Scenario,
+                        file: str) -> tuple[dict, np.ndarray]:
+    """Categories of each cell column among the cells present, and the order that sorts the
+    cells by them (category order, first column slowest)."""
+    parts = np.unravel_index(cell_ids, [c.size for c in cells])
+    categories, positions = {}, []
+    for name, coded, raw in zip(scenario.cell_columns, cells, parts):
+        cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file)
+        pos = lookup[raw]
+        categories[name] = (cats, pos)
+        positions.append(pos)
+    order = np.lexsort(positions[::-1]) if positions else np.arange(len(cell_ids))
+    categories = {name: (cats, pos[order]) for name, (cats, pos) in categories.items()}
+    return categories, order
 
 
 def _cost_values(series: pd.Series, column: str, file: str) -> np.ndarray:
@@ -526,57 +620,45 @@ def _check_structural_zeros(table: CellTable, scenario: Scenario, file: str) -> 
 
 
 def aggregate_codes(
-    cell_codes: Sequence[np.ndarray],
-    cell_sizes: Sequence[int],
-    arm_codes: np.ndarray | None,
-    level_codes: np.ndarray,
-    n_levels: int,
-    outcome_states: Sequence[np.ndarray],
-    rec_codes: np.ndarray | None = None,
+    columns: Sequence[CodedColumn],
+    n_cell_columns: int,
     cost_values: Mapping[str, np.ndarray] | None = None,
     chunk_rows: int = CHUNK_ROWS,
 ) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
-    """Count integer-coded cases per (cell, arm, level, recommended level, outcome states).
+    """Count cases per combination of integer-coded columns, compacted to the cells present.
 
     Parameters
     ----------
-    cell_codes : sequence of ndarray of shape (n,)
-        Codes 0..size-1 of each cell column.
-    cell_sizes : sequence of int
-        Number of categories of each cell column.
-    arm_codes : ndarray of shape (n,) or None
-        0/1 arm of each case.
-    level_codes : ndarray of shape (n,)
-        Decision level 0..L-1 of each case.
-    n_levels : int
-        L.
-    outcome_states : sequence of ndarray of shape (n,)
-        Per outcome kind: 0 missing, 1 no event, 2 event.
-    rec_codes : ndarray of shape (n,) or None
-        The aid's recommended level of each case.
+    columns : sequence of CodedColumn
+        The cell columns first (``n_cell_columns`` of them), then any others (arm, decision,
+        recommendation, outcome states).
+    n_cell_columns : int
+        How many of ``columns`` define the cell.
     cost_values : dict of str to ndarray of shape (n,), optional
         Per-case costs to sum per cell.
+    chunk_rows : int
+        Rows per chunk; bounds the temporary key array.
 
     Returns
     -------
-    counts : ndarray of shape (n_cells, A, L, R, 3**J)
-        Case counts for the cells present (A = 1 without arm, R = 1 without recommendation).
+    counts : ndarray of shape (n_cells, size of each non-cell column ...)
+        Case counts for the cells present.
     cell_ids : ndarray of shape (n_cells,)
-        Mixed-radix id of each present cell (``numpy.ravel_multi_index`` of its codes).
+        Mixed-radix id of each present cell over the cell columns' codes.
     cost_sums : dict of str to ndarray of shape (n_cells,)
         Sum of each cost column per present cell.
 
     Notes
     -----
-    One ``bincount`` per chunk over a single combined key. When the key space is larger than
+    Each chunk's codes are combined in place into one mixed-radix int64 key (Horner's scheme)
+    and counted with a single ``numpy.bincount``. When the key space is larger than
     :data:`DENSE_KEYS`, chunks are counted by sorting (``numpy.unique``) and merged.
     """
-    n = len(level_codes)
-    A = 1 if arm_codes is None else 2
-    R = 1 if rec_codes is None else n_levels
-    S = 3 ** len(outcome_states)
-    inner = A * n_levels * R * S
-    n_radix = int(np.prod([int(s) for s in cell_sizes]))
+    n = len(columns[0].values)
+    sizes = [c.size for c in columns]
+    n_radix = int(np.prod([int(s) for s in sizes[:n_cell_columns]]))
+    inner_sizes = sizes[n_cell_columns:]
+    inner = int(np.prod([int(s) for s in inner_sizes]))
     space = n_radix * inner
     if space >= 1 << 62:
         raise InputError(
@@ -586,30 +668,24 @@ def aggregate_codes(
     dense = space <= DENSE_KEYS
     cost_values = dict(cost_values or {})
     acc = np.zeros(space, dtype=np.int64) if dense else None
-    cost_acc = {c: np.zeros(n_radix) for c in cost_values} if dense else {c: [] for c in cost_values}
+    cost_acc: dict = {c: np.zeros(n_radix) for c in cost_values} if dense else {c: [] for c in cost_values}
     sparse_parts: list[tuple[np.ndarray, np.ndarray]] = []
-    strides = np.cumprod([1] + list(cell_sizes[::-1]))[::-1][1:]
     for start in range(0, n, chunk_rows):
         stop = min(n, start + chunk_rows)
-        cell_key = np.zeros(stop - start, dtype=np.int64)
-        for codes, stride in zip(cell_codes, strides):
-            cell_key += codes[start:stop].astype(np.int64) * int(stride)
-        key = cell_key * inner
-        rest = level_codes[start:stop].astype(np.int64)
-        if arm_codes is not None:
-            rest += arm_codes[start:stop].astype(np.int64) * n_levels
-        if rec_codes is not None:
-            rest = rest * R + rec_codes[start:stop]
-        for states in outcome_states:
-            rest = rest * 3 + states[start:stop]
-        key += rest
+        key = np.zeros(stop - start, dtype=np.int64)
+        cell_key = None
+        for i, (col, size) in enumerate(zip(columns, sizes)):
+            if i:
+                key *= size
+            col.add_to(key, start, stop)
+            if i == n_cell_columns - 1 and cost_values:
+                cell_key = key.copy()
         if dense:
             acc += np.bincount(key, minlength=space)
             for c, values in cost_values.items():
                 cost_acc[c] += np.bincount(cell_key, weights=values[start:stop], minlength=n_radix)
         else:
-            uniq, cnt = np.unique(key, return_counts=True)
-            sparse_parts.append((uniq, cnt))
+            sparse_parts.append(np.unique(key, return_counts=True))
             for c, values in cost_values.items():
                 u, inv = np.unique(cell_key, return_inverse=True)
                 cost_acc[c].append((u, np.bincount(inv, weights=values[start:stop])))
@@ -629,11 +705,10 @@ def aggregate_codes(
         cost_sums = {}
         for c, parts in cost_acc.items():
             u = np.concatenate([p[0] for p in parts])
-            s = np.concatenate([p[1] for p in parts])
+            v = np.concatenate([p[1] for p in parts])
             uu, inv2 = np.unique(u, return_inverse=True)
-            cost_sums[c] = np.bincount(inv2, weights=s)[np.searchsorted(uu, present)]
-    counts = counts.reshape(len(present), A, n_levels, R, S)
-    return counts, present, cost_sums
+            cost_sums[c] = np.bincount(inv2, weights=v)[np.searchsorted(uu, present)]
+    return counts.reshape((len(present),) + tuple(inner_sizes)), present, cost_sums
 
 
 def load_cell_table(scenario: Scenario) -> CellTable:

@@ -29,8 +29,8 @@ app = typer.Typer(
     ),
 )
 # markup is off: labels from scenario files are printed as written, never as styles
-console = Console(highlight=False, markup=False, width=120)
-err_console = Console(stderr=True, highlight=False, markup=False)
+console = Console(highlight=False, markup=False, width=120, soft_wrap=True)
+err_console = Console(stderr=True, highlight=False, markup=False, soft_wrap=True)
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""

@@ -168,8 +168,7 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
     ),
     "[estimator]": (
         Key("prior_strength", (str, float), False, "auto", "'auto' (empirical Bayes) or the beta prior's strength in cases"),
-        Key("target_covariates", (list,), doc="cell columns of the logistic target model sparse cells borrow from (default: every cell column)", item_type=str),
-        Key("ridge", (float,), False, 1.0, "ridge penalty of the target model (keeps sparse categories finite)"),
+        Key("target_covariates", (list,), doc="cell columns of the log-linear baseline model sparse cells borrow from (default: every cell column)", item_type=str),
         Key("sparse_below", (int,), False, 20, "a cell with fewer cases is reported as sparse"),
     ),
 }
@@ -226,7 +225,6 @@ class EstimatorSettings:
 
     prior_strength: float | str = "auto"
     target_covariates: tuple[str, ...] | None = None
-    ridge: float = 1.0
     sparse_below: int = 20
 
 
@@ -372,8 +370,6 @@ class Scenario:
         for p in est["target_covariates"] or ():
             if p not in cell_columns:
                 raise InputError(f"{file}: [estimator] target_covariates lists {p!r}, which is not a cell column; expected one of: {', '.join(cell_columns)}.")
-        if est["ridge"] < 0:
-            raise InputError(f"{file}: key 'ridge' in [estimator] must be >= 0; got {est['ridge']!r}.")
         strength = est["prior_strength"]
         if isinstance(strength, str) and strength != "auto":
             raise InputError(f"{file}: key 'prior_strength' in [estimator] must be 'auto' or a number >= 0; got {strength!r}.")
@@ -406,7 +402,6 @@ class Scenario:
             estimator=EstimatorSettings(
                 prior_strength=strength,
                 target_covariates=None if est["target_covariates"] is None else tuple(est["target_covariates"]),
-                ridge=est["ridge"],
                 sparse_below=est["sparse_below"],
             ),
             path=path,

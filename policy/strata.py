@@ -7,8 +7,9 @@ every decision) has the distribution
     P(R_j = 0 | x) = 1 - p_j0(x),  P(R_j = k | x) = p_j,k-1(x) - p_jk(x),  P(R_j = K+1 | x) = p_jK(x).
 
 Under unconfoundedness given the cell, p_jd(x) = P(Y_j = 1 | D = d, x). The cell estimator
-pools both arms, shrinks each (cell, level) rate toward a coarser pooled rate (a nested
-beta-binomial, prior strength by the method of moments), and projects each cell's rates onto
+pools both arms, shrinks each (cell, level) rate toward a pooled target (the cell's baseline
+risk, shrunk toward a coarser group's, times the level's Mantel-Haenszel risk ratio; beta-binomial
+with prior strengths by the method of moments), and projects each cell's rates onto
 non-increasing sequences in d by weighted isotonic regression.
 
 References
@@ -19,6 +20,8 @@ Robertson, T., Wright, F. T. and Dykstra, R. L. (1988). Order Restricted Statist
 Wiley. (The min-max formula for isotonic regression, Theorem 1.4.4.)
 Kleinman, J. C. (1973). Proportions with extraneous variance: single and independent samples.
 JASA 68(341), 46-54. (Method-of-moments weights for overdispersed proportions.)
+Greenland, S. and Robins, J. M. (1985). Estimation of a common effect parameter from sparse
+follow-up data. Biometrics 41(1), 55-68. (The Mantel-Haenszel risk ratio.)
 """
 
 from __future__ import annotations
@@ -28,7 +31,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
-from scipy.special import expit
+import scipy.sparse as sp
 
 from .cautions import assumptions_for
 from .cells import CellLayout, CellTable, code_cell_column, load_cell_table
@@ -78,22 +81,32 @@ def isotonic_nonincreasing(y: np.ndarray, w: np.ndarray | None = None) -> np.nda
     """
     y = np.asarray(y, dtype=np.float64)
     w = np.ones_like(y) if w is None else np.broadcast_to(np.asarray(w, dtype=np.float64), y.shape)
-    w = np.maximum(w, 1e-300)
-    n = y.shape[-1]
-    zero = np.zeros(y.shape[:-1] + (1,))
+    out = y.copy()
+    # only sequences that break the order need work; most cells' rates are already monotone
+    rows = np.flatnonzero((np.diff(y, axis=-1) > 0).any(axis=-1).reshape(-1))
+    if len(rows):
+        flat = out.reshape(-1, y.shape[-1])
+        flat[rows] = _min_max_fit(y.reshape(-1, y.shape[-1])[rows], np.maximum(w.reshape(-1, y.shape[-1])[rows], 1e-300))
+    return out
+
+
+def _min_max_fit(y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """The min-max formula on rows of y (m, n) with positive weights w (m, n)."""
+    m, n = y.shape
+    zero = np.zeros((m, 1))
     cy = np.concatenate([zero, np.cumsum(w * y, axis=-1)], axis=-1)
     cw = np.concatenate([zero, np.cumsum(w, axis=-1)], axis=-1)
-    # avg[..., s, t] for s <= t
+    # avg[:, s, t] for s <= t
     with np.errstate(invalid="ignore", divide="ignore"):
-        avg = (cy[..., None, 1:] - cy[..., :-1, None]) / (cw[..., None, 1:] - cw[..., :-1, None])
+        avg = (cy[:, None, 1:] - cy[:, :-1, None]) / (cw[:, None, 1:] - cw[:, :-1, None])
     s_idx, t_idx = np.indices((n, n))
     avg = np.where(t_idx >= s_idx, avg, -np.inf)
-    # suffix max over t: m[..., s, i] = max_{t >= i} avg[s, t]
+    # suffix max over t: m[:, s, i] = max_{t >= i} avg[s, t]
     suffix_max = np.flip(np.maximum.accumulate(np.flip(avg, axis=-1), axis=-1), axis=-1)
     # prefix min over s <= i, then the diagonal
     suffix_max = np.where(s_idx <= t_idx, suffix_max, np.inf)
     prefix_min = np.minimum.accumulate(suffix_max, axis=-2)
-    return np.diagonal(prefix_min, axis1=-2, axis2=-1).copy()
+    return np.diagonal(prefix_min, axis1=-2, axis2=-1)
 
 
 def risk_level_distribution(p: np.ndarray) -> np.ndarray:
@@ -165,114 +178,188 @@ def moment_prior_strength(events: np.ndarray, trials: np.ndarray, target: np.nda
     return 1.0 / rho - 1.0
 
 
-def design_matrix(layout: CellLayout, columns: Sequence[str], n_levels: int) -> np.ndarray:
-    """Design of the target model: intercept, one-hot main effects of the cell columns (first
-    category dropped) and decision-level effects (level 0 dropped).
-
-    Returns
-    -------
-    ndarray of shape (n_cells * n_levels, k)
-        Rows ordered cell-major: row x * n_levels + d.
-    """
-    blocks = [np.ones((layout.n_cells, 1))]
-    for col in columns:
-        codes = layout.codes(col)
-        k = len(layout.categories(col))
-        if k > 1:
-            blocks.append(np.eye(k)[codes][:, 1:])
-    cell_part = np.concatenate(blocks, axis=1)
-    level_part = np.eye(n_levels)[:, 1:]
-    rows_cell = np.repeat(cell_part, n_levels, axis=0)
-    rows_level = np.tile(level_part, (layout.n_cells, 1))
-    return np.concatenate([rows_cell, rows_level], axis=1)
-
-
-def fit_logistic_counts(X: np.ndarray, events: np.ndarray, trials: np.ndarray, ridge: float = 1.0,
-                        max_iter: int = 50, tol: float = 1e-9) -> np.ndarray:
-    """Ridge-penalized binomial logistic regression on counts, by Newton's method, batched.
+def level_risk_ratios(events: np.ndarray, observed: np.ndarray) -> np.ndarray:
+    """Outcome risk at each decision level relative to the most lenient, by chained
+    Mantel-Haenszel risk ratios of adjacent levels across cells.
 
     Parameters
     ----------
-    X : ndarray of shape (n, k)
-        Design; column 0 is the intercept (not penalized).
-    events, trials : ndarray of shape (..., n)
-        Counts; any leading axes are independent fits solved together.
-    ridge : float
-        Penalty 0.5 * ridge * ||beta[1:]||^2 (keeps sparse categories finite).
+    events, observed : ndarray of shape (..., n_cells, J, L)
 
     Returns
     -------
-    ndarray of shape (..., k)
-        Coefficients. With ``ridge=0`` they equal an unpenalized binomial GLM
-        (checked against statsmodels in the tests).
+    ndarray of shape (..., J, L)
+        theta_0 = 1 and theta_d = prod_{k <= d} RR_k, where RR_k is the Mantel-Haenszel risk
+        ratio of level k against level k-1 over the cells that observed both,
+        RR_k = sum_x (a_x n0_x / T_x) / sum_x (c_x n1_x / T_x) with a, n1 the events and cases at
+        level k, c, n0 those at level k-1 and T = n0 + n1 (Greenland and Robins 1985). Each RR_k
+        is clipped to [0, 1]: under monotonicity a harsher level never raises the risk. Where no
+        cell observed both levels (or no events at either), RR_k = 1.
+
+    References
+    ----------
+    Mantel, N. and Haenszel, W. (1959). Statistical aspects of the analysis of data from
+    retrospective studies of disease. JNCI 22(4), 719-748.
+    Greenland, S. and Robins, J. M. (1985). Estimation of a common effect parameter from sparse
+    follow-up data. Biometrics 41(1), 55-68.
     """
     events = np.asarray(events, dtype=np.float64)
-    trials = np.asarray(trials, dtype=np.float64)
-    k = X.shape[1]
-    penalty = np.full(k, float(ridge))
-    penalty[0] = 0.0
-    total = trials.sum(axis=-1)
-    rate = np.clip(events.sum(axis=-1) / np.where(total > 0, total, 1), 1e-6, 1 - 1e-6)
-    beta = np.zeros(events.shape[:-1] + (k,))
-    beta[..., 0] = np.log(rate / (1 - rate))
-    for _ in range(max_iter):
-        eta = beta @ X.T
-        mu = expit(eta)
-        grad = (events - trials * mu) @ X - penalty * beta
-        w = trials * mu * (1 - mu)
-        hess = np.einsum("nk,...n,nl->...kl", X, w, X) + np.diag(penalty) + 1e-10 * np.eye(k)
-        step = np.linalg.solve(hess, grad[..., None])[..., 0]
-        beta = beta + step
-        if np.max(np.abs(step)) < tol:
+    observed = np.asarray(observed, dtype=np.float64)
+    a, n1 = events[..., 1:], observed[..., 1:]
+    c, n0 = events[..., :-1], observed[..., :-1]
+    total = n0 + n1
+    both = (n0 > 0) & (n1 > 0)
+    safe_total = np.where(both, total, 1.0)
+    num = np.sum(np.where(both, a * n0 / safe_total, 0.0), axis=-3)
+    den = np.sum(np.where(both, c * n1 / safe_total, 0.0), axis=-3)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rr = np.where(den > 0, num / np.where(den > 0, den, 1.0), 1.0)
+    rr = np.clip(rr, 0.0, 1.0)
+    ones = np.ones(rr.shape[:-1] + (1,))
+    return np.concatenate([ones, np.cumprod(rr, axis=-1)], axis=-1)
+
+
+def factor_matrices(layout: CellLayout, columns: Sequence[str]) -> list[tuple[sp.csr_matrix, np.ndarray]]:
+    """Per cell column: a sparse (n_categories, n_cells) membership matrix and each cell's category."""
+    out = []
+    n = layout.n_cells
+    for col in columns:
+        codes = layout.codes(col)
+        k = len(layout.categories(col))
+        out.append((sp.csr_matrix((np.ones(n), (codes, np.arange(n))), shape=(k, n)), codes))
+    return out
+
+
+def _sum_by(matrix: sp.csr_matrix, x: np.ndarray) -> np.ndarray:
+    """Group sums over the cell axis (-2) of x (..., n_cells, J): (..., n_groups, J)."""
+    moved = np.moveaxis(x, -2, 0)
+    out = np.asarray(matrix @ moved.reshape(moved.shape[0], -1)).reshape((matrix.shape[0],) + moved.shape[1:])
+    return np.moveaxis(out, 0, -2)
+
+
+def loglinear_rates(events: np.ndarray, exposure: np.ndarray, factors: Sequence[tuple[sp.csr_matrix, np.ndarray]],
+                    smoothing: float = 1.0, max_sweeps: int = 200, tol: float = 1e-9) -> np.ndarray:
+    """Rates of a main-effects log-linear (Poisson) model, fitted by iterative proportional fitting.
+
+    Parameters
+    ----------
+    events, exposure : ndarray of shape (..., n_cells, J)
+        Events and exposure (cases) per cell; leading axes are independent fits.
+    factors : sequence of (sparse matrix of shape (n_categories, n_cells), codes of shape (n_cells,))
+        The cell columns of the model (:func:`factor_matrices`).
+    smoothing : float
+        Expected events added to both sides of every category's margin at the overall rate; it
+        keeps categories without events finite and pulls thin categories toward no effect.
+        With 0 the fit is the Poisson maximum-likelihood fit.
+
+    Returns
+    -------
+    ndarray of shape (..., n_cells, J)
+        Fitted rate per unit of exposure: exp(alpha + sum_u beta_u[category of the cell]).
+
+    Notes
+    -----
+    Iterative proportional fitting (Deming and Stephan 1940) matches, one cell column at a
+    time, the fitted events to the observed events in every category; for a main-effects
+    Poisson model with log exposure as offset it converges to the maximum-likelihood fit
+    (Bishop, Fienberg and Holland 1975, ch. 3).
+    """
+    events = np.asarray(events, dtype=np.float64)
+    exposure = np.asarray(exposure, dtype=np.float64)
+    total_e = events.sum(axis=-2, keepdims=True)
+    total_n = exposure.sum(axis=-2, keepdims=True)
+    overall = (total_e + 0.5) / (total_n + 1.0)
+    rate = np.broadcast_to(overall, events.shape).copy()
+    observed_margins = [_sum_by(matrix, events) for matrix, _ in factors]
+    # each fit (leading index) stops on its own, so a fit gives the same numbers alone or in a batch
+    active = np.ones(events.shape[:-2] + (1, 1), dtype=bool)
+    for _ in range(max_sweeps):
+        change = np.zeros(active.shape)
+        for (matrix, codes), obs in zip(factors, observed_margins):
+            fitted = _sum_by(matrix, exposure * rate)
+            num, den = obs + smoothing * overall, fitted + smoothing * overall
+            ratio = np.where((num > 0) & (den > 0) & active, num / np.where(den > 0, den, 1.0), 1.0)
+            rate *= np.take(ratio, codes, axis=-2)
+            change = np.maximum(change, np.abs(np.log(ratio)).max(axis=(-2, -1), keepdims=True))
+        active &= change >= tol
+        if not active.any():
             break
-    return beta
+    return rate
+
+
+def shrunk_baselines(events: np.ndarray, observed: np.ndarray, theta: np.ndarray,
+                     factors: Sequence[tuple[sp.csr_matrix, np.ndarray]] | None) -> np.ndarray:
+    """Each cell's risk under the most lenient level, shrunk toward a log-linear model's.
+
+    With level ratios theta, a cell's cases count as ``N_x = sum_d n_xd theta_d`` cases under
+    the most lenient level (indirect standardization), with ``e_x = sum_d e_xd`` events. A
+    main-effects log-linear model of e_x with exposure N_x (:func:`loglinear_rates`) gives each
+    cell a model baseline m_x; the cell's baseline (e_x + k m_x) / (N_x + k) shrinks toward it,
+    the prior strength k by moments.
+
+    Returns
+    -------
+    ndarray of shape (..., n_cells, J)
+    """
+    e = events.sum(axis=-1)
+    n = np.sum(observed * theta[..., None, :, :], axis=-1)
+    if factors:
+        target = loglinear_rates(e, n, factors)
+    else:
+        target = np.broadcast_to(e.sum(axis=-2, keepdims=True) / np.maximum(n.sum(axis=-2, keepdims=True), 1e-300), e.shape)
+    target = np.clip(target, 0.0, 1.0)
+    k = moment_prior_strength(e, n, target, cell_axis=-2)[..., None, :]
+    return (e + k * target) / (n + k)
 
 
 def shrunk_rates(
     events: np.ndarray,
     observed: np.ndarray,
-    design: np.ndarray,
+    factors: Sequence[tuple[sp.csr_matrix, np.ndarray]] | None,
     prior_strength: float | str = "auto",
-    ridge: float = 1.0,
+    zero: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Rates per (cell, outcome, level) shrunk toward a logistic model's rate (beta-binomial).
+    """Rates per (cell, outcome, level) shrunk toward a pooled target (beta-binomial).
+
+    The target of cell x at level d is ``b_x * theta_d``: the cell's baseline risk, shrunk
+    toward a main-effects log-linear model's (:func:`shrunk_baselines`), times the level's risk
+    ratio (:func:`level_risk_ratios`). It carries a cell's own risk, seen at the levels it did
+    observe, to the levels it did not.
 
     Parameters
     ----------
     events, observed : ndarray of shape (..., n_cells, J, L)
         Counts pooled over arms.
-    design : ndarray of shape (n_cells * L, k)
-        Design of the target model (see :func:`design_matrix`).
+    factors : list from :func:`factor_matrices`, or None
+        The cell columns of the baseline model; None: one overall baseline.
     prior_strength : 'auto' or float
-        Prior strength (in cases) around the target; 'auto' estimates it by moments per
-        outcome kind and level.
-    ridge : float
-        Ridge penalty of the target model.
+        Prior strength (in cases) of each rate around its target; 'auto' estimates it by
+        moments per outcome kind and level.
+    zero : ndarray of shape (J, L) of bool, optional
+        Structural zeros: the outcome cannot occur at these levels.
 
     Returns
     -------
     rate : ndarray of shape (..., n_cells, J, L)
-        Posterior mean rates (equal to the target where a level was never observed).
+        Posterior mean rates (the target where a level was never observed).
     weight : ndarray of shape (..., n_cells, J, L)
         Observed cases plus prior strength: the weights of the isotonic projection.
     kappa : ndarray of shape (..., J, L)
         Prior strength used.
     target : ndarray of shape (..., n_cells, J, L)
-        The target model's rates.
+        The target rates.
     """
     events = np.asarray(events, dtype=np.float64)
     observed = np.asarray(observed, dtype=np.float64)
-    n_cells, J, L = events.shape[-3:]
-    # (..., J, n_cells * L) in the design's cell-major row order
-    e = np.swapaxes(events, -3, -2).reshape(events.shape[:-3] + (J, n_cells * L))
-    n = np.swapaxes(observed, -3, -2).reshape(e.shape)
-    beta = fit_logistic_counts(design, e, n, ridge)
-    target = expit(beta @ design.T).reshape(events.shape[:-3] + (J, n_cells, L))
-    target = np.swapaxes(target, -3, -2)
+    theta = level_risk_ratios(events, observed)
+    if zero is not None:
+        theta = np.where(zero, 0.0, theta)
+    base = shrunk_baselines(events, observed, theta, factors)
+    target = np.clip(base[..., None] * theta[..., None, :, :], 0.0, 1.0)
     if prior_strength == "auto":
         kappa = moment_prior_strength(events, observed, target)
     else:
-        kappa = np.full(events.shape[:-3] + (J, L), float(prior_strength))
+        kappa = np.full(events.shape[:-3] + events.shape[-2:], float(prior_strength))
     k = kappa[..., None, :, :]
     weight = observed + k
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -430,13 +517,11 @@ class RiskLevelEstimator:
     Parameters
     ----------
     prior_strength : 'auto' or float, default 'auto'
-        Strength (in cases) of the beta prior centred on the target model's rate; 'auto'
+        Strength (in cases) of the beta prior of each cell's rate around its target; 'auto'
         estimates it per outcome kind and level by the method of moments.
     target_covariates : sequence of str or None, default None
-        Cell columns of the target model (a ridge-penalized logistic regression of the outcome
-        on main effects of these columns and the decision level). None: every cell column.
-    ridge : float, default 1.0
-        Ridge penalty of the target model.
+        Cell columns of the log-linear baseline model that sparse cells borrow from.
+        None: every cell column; empty: one overall baseline.
     structural_zeros : mapping of int to int, optional
         Outcome position -> first decision level at which the outcome cannot occur.
 
@@ -446,28 +531,37 @@ class RiskLevelEstimator:
         The estimates after :meth:`fit`.
     prior_strength_ : ndarray of shape (J, L)
         The prior strength used.
+    level_ratios_ : ndarray of shape (J, L)
+        Risk at each level relative to the most lenient (Mantel-Haenszel, chained).
     target_ : ndarray of shape (n_cells, J, L)
-        The target model's rates.
+        The target rates.
 
     Notes
     -----
-    A cell's rate at a level it never observed is the target model's rate there: the model
-    carries the cell's risk from the levels it did observe (through its covariates) and the
-    level's effect from other cells. The output flags those levels (``borrowed``).
+    Steps, per outcome kind, vectorized over cells (and over bootstrap replicates):
+
+    1. level risk ratios theta_d by chained Mantel-Haenszel estimators over cells
+       (:func:`level_risk_ratios`), clipped so a harsher level never raises risk;
+    2. each cell's baseline risk b_x by indirect standardization, shrunk toward a main-effects
+       log-linear model's fitted by iterative proportional fitting (:func:`shrunk_baselines`);
+    3. each (cell, level) rate shrunk toward the target b_x theta_d (beta-binomial, prior
+       strength by moments, Kleinman 1973); a level never observed in a cell takes the target;
+    4. projection onto non-increasing sequences over the levels, weighted by observed cases
+       plus prior strength (:func:`isotonic_nonincreasing`).
+
+    Outputs flag the levels a cell never observed (``borrowed``).
     """
 
     def __init__(self, prior_strength: float | str = "auto", target_covariates: Sequence[str] | None = None,
-                 ridge: float = 1.0, structural_zeros: Mapping[int, int] | None = None):
+                 structural_zeros: Mapping[int, int] | None = None):
         self.prior_strength = prior_strength
         self.target_covariates = None if target_covariates is None else tuple(target_covariates)
-        self.ridge = ridge
         self.structural_zeros = dict(structural_zeros or {})
 
     @classmethod
     def from_scenario(cls, scenario: Scenario) -> "RiskLevelEstimator":
         zeros = {j: o.impossible_from for j, o in enumerate(scenario.outcomes) if o.impossible_from is not None}
-        est = scenario.estimator
-        return cls(est.prior_strength, est.target_covariates, est.ridge, zeros)
+        return cls(scenario.estimator.prior_strength, scenario.estimator.target_covariates, zeros)
 
     def zero_mask(self, J: int, L: int) -> np.ndarray:
         mask = np.zeros((J, L), dtype=bool)
@@ -475,21 +569,22 @@ class RiskLevelEstimator:
             mask[j, d:] = True
         return mask
 
-    def design(self, layout: CellLayout, n_levels: int) -> np.ndarray:
-        """The target model's design for these cells."""
+    def design(self, layout: CellLayout, n_levels: int | None = None) -> list:
+        """The baseline model's structure for these cells (:func:`factor_matrices`)."""
         columns = layout.columns if self.target_covariates is None else self.target_covariates
         for col in columns:
             if col not in layout.columns:
                 raise InputError(f"target_covariates lists {col!r}, which is not a cell column; expected one of: {', '.join(layout.columns)}.")
-        return design_matrix(layout, columns, n_levels)
+        return factor_matrices(layout, columns)
 
-    def estimate_p(self, events: np.ndarray, observed: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def estimate_p(self, events: np.ndarray, observed: np.ndarray, design: list) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Monotone outcome probabilities from counts pooled over arms.
 
         Parameters
         ----------
         events, observed : ndarray of shape (..., n_cells, J, L)
-        design : ndarray of shape (n_cells * L, k)
+        design : list
+            From :meth:`design`.
 
         Returns
         -------
@@ -499,10 +594,10 @@ class RiskLevelEstimator:
         """
         J, L = events.shape[-2:]
         zero = self.zero_mask(J, L)
-        # structural zeros are known, not estimated: keep them out of the target model
+        # structural zeros are known, not estimated
         observed = np.where(zero, 0, observed)
         events = np.where(zero, 0, events)
-        rate, weight, kappa, target = shrunk_rates(events, observed, design, self.prior_strength, self.ridge)
+        rate, weight, kappa, target = shrunk_rates(events, observed, design, self.prior_strength, zero)
         rate = np.where(zero, 0.0, rate)
         p = isotonic_nonincreasing(rate, weight)
         return np.clip(np.where(zero, 0.0, p), 0.0, 1.0), kappa, target
@@ -526,6 +621,9 @@ class RiskLevelEstimator:
         p, kappa, target = self.estimate_p(events, observed, self.design(cells.layout, L))
         self.prior_strength_ = kappa
         self.target_ = target
+        # the target is baseline x level ratio, so its level profile gives the ratios back
+        level_sums = target.sum(axis=0)
+        self.level_ratios_ = level_sums / np.where(level_sums[:, :1] > 0, level_sums[:, :1], 1.0)
         self.risk_levels_ = RiskLevels(
             layout=cells.layout,
             level_values=cells.levels,

@@ -1,0 +1,102 @@
+"""Costs and the unconstrained optimal rule."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from policy import Costs, InputError, RiskLevels, costs_from_scenario, estimate_risk_levels, optimal_rule
+from policy.cells import CellLayout
+from policy.solve import argmin_lenient, rule_cell_costs
+
+
+def make_risk_levels(p, weights=None, groups=None, rule=("tier",), protected=("group",)):
+    """RiskLevels for hand-made probabilities p of shape (n_cells, J, L)."""
+    n, J, L = p.shape
+    rng = np.random.default_rng(0)
+    frame = pd.DataFrame({
+        "tier": pd.Categorical(np.arange(n) // 2 if groups is None else groups, ordered=True),
+        "group": pd.Categorical(np.arange(n) % 2, ordered=True),
+        "cell": pd.Categorical(np.arange(n), ordered=True),
+    })
+    layout = CellLayout(frame, tuple(protected), tuple(rule), "tier")
+    return RiskLevels(
+        layout=layout,
+        level_values=tuple(f"l{d}" for d in range(L)),
+        level_labels=tuple(f"level {d}" for d in range(L)),
+        outcome_keys=tuple(f"o{j}" for j in range(J)),
+        outcome_labels=tuple(f"outcome {j}" for j in range(J)),
+        weights=np.ones(n) if weights is None else np.asarray(weights, float),
+        p=p,
+        borrowed=np.zeros_like(p, dtype=bool),
+    )
+
+
+def test_textbook_threshold_one_outcome_two_levels():
+    # Elkan (2001), "The Foundations of Cost-Sensitive Learning" (docs/reference-values.md, seen in
+    # the abstract; threshold derived): act iff the prevented risk p0 - p1 exceeds
+    # (c_dec(1) - c_dec(0)) / c_outcome.
+    rng = np.random.default_rng(5)
+    n = 2_000
+    p0 = rng.random(n)
+    p1 = p0 * rng.random(n)
+    rl = make_risk_levels(np.stack([p0, p1], axis=-1)[:, None, :], groups=np.arange(n), rule=("tier",))
+    c_act, c_harm = 300.0, 1_000.0
+    costs = Costs(np.tile([0.0, c_act], (n, 1)), np.array([c_harm]))
+    rule = optimal_rule(rl, costs)
+    act = rule.level[rl.layout.rule_index()[0]] == 1
+    np.testing.assert_array_equal(act, (p0 - p1) > c_act / c_harm)
+
+
+def test_ties_go_to_the_more_lenient_level():
+    total = np.array([[5.0, 5.0, 7.0], [3.0, 2.0, 2.0], [1.0, 1.0 + 1e-13, 1.0]])
+    np.testing.assert_array_equal(argmin_lenient(total), [0, 1, 0])
+    # an exact tie in expected cost: prevented risk times harm cost equals the decision cost
+    p = np.array([[[0.5, 0.2]]])
+    rl = make_risk_levels(p, groups=[0])
+    rule = optimal_rule(rl, Costs(np.array([[0.0, 300.0]]), np.array([1000.0])))
+    assert rule.level.tolist() == [0]
+
+
+def test_rule_cells_sum_weighted_costs_like_pandas():
+    rng = np.random.default_rng(9)
+    n = 400
+    p = -np.sort(-rng.random((n, 2, 3)), axis=-1)
+    w = rng.integers(1, 50, n)
+    groups = rng.integers(0, 12, n)
+    rl = make_risk_levels(p, w, groups)
+    costs = Costs(rng.uniform(0, 500, (n, 3)), np.array([800.0, 2500.0]))
+    index, cells = rl.layout.rule_index()
+    got = rule_cell_costs(rl, costs, index, len(cells))
+    per_case = costs.decision + p[:, 0, :] * 800.0 + p[:, 1, :] * 2500.0
+    ref = pd.DataFrame(per_case * w[:, None]).groupby(groups).sum().to_numpy()
+    np.testing.assert_allclose(got, ref, rtol=1e-12)
+    rule = optimal_rule(rl, costs)
+    np.testing.assert_array_equal(rule.level, ref.argmin(axis=1))
+    assert rule.is_deterministic
+    np.testing.assert_allclose(rule.delta.sum(axis=1), 1.0)
+
+
+def test_demo_costs_and_overrides(demo_scenario):
+    rl = estimate_risk_levels(demo_scenario)
+    costs = costs_from_scenario(demo_scenario, rl)
+    assert costs.decision.shape == (rl.n_cells, 3)
+    assert (costs.decision[:, 0] == 0).all() and (costs.decision[:, 1] == 750).all()
+    np.testing.assert_allclose(costs.decision[:, 2], rl.cell_costs["bond_cost"])
+    other = costs_from_scenario(demo_scenario, rl, {"new_offense": 9000}, {"supervision": 100})
+    assert other.outcome[1] == 9000 and (other.decision[:, 1] == 100).all()
+    with pytest.raises(InputError, match="'arson' is not a declared outcome kind"):
+        costs_from_scenario(demo_scenario, rl, {"arson": 1})
+    with pytest.raises(InputError, match="'parole' is not a declared decision level"):
+        costs_from_scenario(demo_scenario, rl, None, {"parole": 1})
+
+
+def test_cheaper_harm_never_makes_the_rule_harsher(demo_scenario):
+    # common practice (decision theory): lowering an outcome's cost can only move the optimum
+    # toward more lenient levels in every rule cell
+    rl = estimate_risk_levels(demo_scenario)
+    base = costs_from_scenario(demo_scenario, rl)
+    levels = [optimal_rule(rl, base.with_outcome_cost(2, c)).level for c in (200_000, 100_000, 50_000, 0)]
+    for harsher, lenient in zip(levels, levels[1:]):
+        assert (lenient <= harsher).all()
