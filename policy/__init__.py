@@ -10,11 +10,13 @@ from .cautions import CAUTIONS
 from .cells import CellLayout, CellTable, load_cell_table
 from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
+from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
+from .sweep import LenientMap, OneRatioSweep, SweepResult, lenient_map, ratio_axis, sweep_one, sweep_scenario
 from .strata import (
     RiskLevelEstimator,
     RiskLevels,
@@ -35,12 +37,16 @@ __all__ = [
     "Evaluation",
     "InfeasibleError",
     "InputError",
+    "LenientMap",
+    "OneRatioSweep",
     "PolicyError",
+    "RiskBounds",
     "RiskLevelEstimator",
     "RiskLevels",
     "Rule",
     "Scenario",
     "SolverError",
+    "SweepResult",
     "analyze",
     "check",
     "costs_from_scenario",
@@ -49,8 +55,14 @@ __all__ = [
     "evaluate",
     "expected_cost",
     "isotonic_nonincreasing",
+    "lenient_map",
     "load_cell_table",
     "load_scenario",
+    "manski_bounds",
     "optimal_rule",
+    "ratio_axis",
     "risk_level_distribution",
+    "sensitivity_bounds",
+    "sweep_one",
+    "sweep_scenario",
 ]

@@ -25,7 +25,7 @@ from matplotlib.ticker import PercentFormatter
 
 from .sweep import LenientMap, OneRatioSweep, assumption_lines
 
-__all__ = ["STYLE", "level_colours", "share_figure", "regret_figure", "map_figure", "figure_files", "FORMATS"]
+__all__ = ["STYLE", "level_colours", "share_figure", "regret_figure", "map_figure", "figure_files", "save_figure", "FORMATS"]
 
 FORMATS = ("png", "svg")
 
@@ -54,7 +54,7 @@ STYLE = {
     "lines.linewidth": 1.6,
     "savefig.dpi": 200,
     "svg.hashsalt": "policy-release-rules",
-    "svg.fonttype": "path",
+    "svg.fonttype": "none",
 }
 
 #: Okabe-Ito colours, ordered from the lenient end (bluish green) to the harsh end (vermillion)
@@ -297,10 +297,15 @@ def figure_files(stem: str, make: Callable[[], Figure], formats: Sequence[str] =
         def write(path: Path) -> None:
             if "figure" not in cache:
                 cache["figure"] = make()
-            with mpl.rc_context(STYLE):
-                metadata = {"Date": None} if fmt == "svg" else {"Software": None}
-                cache["figure"].savefig(path, format=fmt, metadata=metadata)
+            save_figure(cache["figure"], path, fmt)
 
         return write
 
     return {f"{stem}.{fmt}": writer(fmt) for fmt in formats}
+
+
+def save_figure(fig: Figure, path: str | Path, fmt: str) -> None:
+    """Save a figure in the tool's style: SVG text stays text, no time stamps (same input, same bytes)."""
+    with mpl.rc_context(STYLE):
+        metadata = {"Date": None} if fmt == "svg" else {"Software": None}
+        fig.savefig(path, format=fmt, metadata=metadata)

@@ -638,9 +638,10 @@ def assumption_lines(figure: str, robust: Sequence[AssumptionInfo | RiskBounds])
     """Plain statements of what a sweep's curves assume: those common to every curve (the
     figure kind's, :data:`policy.cautions.FIGURE_ASSUMPTIONS`), then what each robust
     assumption adds, then the caution on individual decisions."""
-    lines = ["Assumes, for every curve: " + "; ".join(assumptions_for(figure)) + "."]
+    common = assumptions_for(figure)
+    lines = ["Assumes, for every curve: " + "; ".join(common) + "."]
     for info in robust:
-        if info.figure == "rule":
+        if info.figure == "rule" and ASSUMPTIONS["unconfoundedness"] not in common:
             lines.append(f"{info.label}: {ASSUMPTIONS['unconfoundedness']}.")
     gammas = [info.label for info in robust if info.figure == "sensitivity"]
     if gammas:
