@@ -273,50 +273,59 @@ def lower_envelope(A: np.ndarray, B: np.ndarray) -> Envelope:
     the slope, so there are at most L - 1 moves. Each breakpoint is the crossing of the two
     lines optimal on either side, computed by one division.
     """
-    A = np.asarray(A, dtype=np.float64)
-    B = np.asarray(B, dtype=np.float64)
-    n, L = A.shape
-    rows = np.arange(n)
-    idx = np.broadcast_to(np.arange(L), (n, L))
-    cur = np.lexsort((idx, A, -B), axis=-1)[:, 0]
-    breaks = np.full((n, max(L - 1, 0)), np.inf)
+    # level-major (L, n) layout: reductions over the few levels become fast elementwise passes
+    At = np.ascontiguousarray(np.asarray(A, dtype=np.float64).T)
+    Bt = np.ascontiguousarray(np.asarray(B, dtype=np.float64).T)
+    L, n = At.shape
+    K = max(L - 1, 0)
+    cols = np.arange(n)
+    breaks = np.full((n, K), np.inf)
     levels = np.full((n, L), -1, dtype=np.int64)
-    at_break = np.full((n, max(L - 1, 0)), -1, dtype=np.int64)
-    levels[:, 0] = cur
+    at_break = np.full((n, K), -1, dtype=np.int64)
     count = np.zeros(n, dtype=np.int64)
+    top = np.where(Bt == Bt.max(axis=0), At, np.inf)
+    cur = _first_true(top == top.min(axis=0))
+    levels[:, 0] = cur
     pos = np.full(n, -np.inf)
-    for _ in range(L - 1):
-        a_c, b_c = A[rows, cur], B[rows, cur]
-        dB = b_c[:, None] - B
+    for _ in range(K):
+        a_c, b_c = At[cur, cols], Bt[cur, cols]
+        dB = b_c - Bt
         cand = dB > 0
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            tau = np.where(cand, (A - a_c[:, None]) / np.where(cand, dB, 1.0), np.inf)
-        t = tau.min(axis=1)
-        moving = np.isfinite(t)
+            tau = (At - a_c) / dB
+        tau[~cand] = np.inf
+        t = tau.min(axis=0)
+        moving = t < np.inf
         if not moving.any():
             break
         tol = CONCURRENT_TOLERANCE * np.maximum(1.0, np.abs(np.where(moving, t, 0.0)))
-        conc = cand & (tau <= (t + tol)[:, None])
-        min_b = np.where(conc, B, np.inf).min(axis=1)
-        nxt = np.argmax(conc & (B <= min_b[:, None]), axis=1)
-        tied_low = np.minimum(cur, np.argmax(conc, axis=1))
+        conc = tau <= t + tol
+        b_conc = np.where(conc, Bt, np.inf)
+        nxt = _first_true(conc & (b_conc == b_conc.min(axis=0)))
+        tied_low = np.minimum(cur, _first_true(conc))
         # a crossing at the previous breakpoint (rounding) belongs to that breakpoint
         merge = moving & (t <= pos + tol)
         new = moving & ~merge
-        k = count
         if merge.any():
             m = np.flatnonzero(merge)
-            levels[m, k[m]] = nxt[m]
-            at_break[m, k[m] - 1] = np.minimum(at_break[m, k[m] - 1], tied_low[m])
-        if new.any():
-            m = np.flatnonzero(new)
-            breaks[m, k[m]] = t[m]
-            at_break[m, k[m]] = tied_low[m]
-            levels[m, k[m] + 1] = nxt[m]
-            count = count + new
-            pos = np.where(new, t, pos)
+            levels[m, count[m]] = nxt[m]
+            at_break[m, count[m] - 1] = np.minimum(at_break[m, count[m] - 1], tied_low[m])
+        m = np.flatnonzero(new)
+        breaks[m, count[m]] = t[m]
+        at_break[m, count[m]] = tied_low[m]
+        levels[m, count[m] + 1] = nxt[m]
+        count = count + new
+        pos = np.where(new, t, pos)
         cur = np.where(moving, nxt, cur)
     return Envelope(breaks, levels, at_break, count)
+
+
+def _first_true(mask: np.ndarray) -> np.ndarray:
+    """Position of the first True along the (short) first axis, 0 where there is none."""
+    first = np.zeros(mask.shape[1:], dtype=np.int64)
+    for d in range(mask.shape[0] - 1, -1, -1):
+        first[mask[d]] = d
+    return first
 
 
 @dataclass(frozen=True)
@@ -338,32 +347,38 @@ class StepFunction:
     at: np.ndarray
 
     @classmethod
-    def from_events(cls, initial: np.ndarray, knots: np.ndarray, columns: np.ndarray, d_right: np.ndarray,
-                    d_at: np.ndarray) -> "StepFunction":
-        """Build from changes at event points, one component at a time.
+    def from_events(cls, initial: np.ndarray, knots: np.ndarray, d_right: np.ndarray, d_at: np.ndarray) -> "StepFunction":
+        """Build from changes at event points.
 
         Parameters
         ----------
         initial : ndarray of shape (k,)
             Value left of every event.
-        knots, columns : ndarray of shape (E,)
-            Event point (may repeat) and the component it changes.
-        d_right : ndarray of shape (E,)
-            Change of that component from the left to the right of the event.
-        d_at : ndarray of shape (E,)
-            Change of that component from the left of the event to the event point itself.
+        knots : ndarray of shape (E,)
+            Event points (may repeat).
+        d_right : ndarray of shape (E, k)
+            Change of the value from the left to the right of each event.
+        d_at : ndarray of shape (E, k)
+            Change of the value from the left of each event to the event point itself.
         """
         initial = np.asarray(initial, dtype=np.float64)
         k = initial.shape[-1]
         if len(knots) == 0:
             return cls(np.zeros(0), initial[None, :].copy(), np.zeros((0, k)))
-        uniq, inv = np.unique(knots, return_inverse=True)
-        m = len(uniq)
-        flat = inv * k + np.asarray(columns, dtype=np.int64)
-        right = np.bincount(flat, weights=d_right, minlength=m * k).reshape(m, k)
-        at = np.bincount(flat, weights=d_at, minlength=m * k).reshape(m, k)
-        between = np.concatenate([initial[None, :], initial[None, :] + np.cumsum(right, axis=0)], axis=0)
-        return cls(uniq, between, between[:-1] + at)
+        order = np.argsort(knots)
+        ordered = knots[order]
+        starts = np.flatnonzero(np.concatenate([[True], ordered[1:] != ordered[:-1]]))
+        # component-major (k, E): sums and running sums along contiguous rows
+        right = np.ascontiguousarray(np.asarray(d_right, dtype=np.float64).T)[:, order]
+        at = np.ascontiguousarray(np.asarray(d_at, dtype=np.float64).T)[:, order]
+        if len(starts) < len(ordered):
+            right = np.add.reduceat(right, starts, axis=1)
+            at = np.add.reduceat(at, starts, axis=1)
+        between = np.empty((k, len(starts) + 1))
+        between[:, 0] = initial
+        np.cumsum(right, axis=1, out=between[:, 1:])
+        between[:, 1:] += initial[:, None]
+        return cls(ordered[starts], between.T.copy(), (between[:, :-1] + at).T.copy())
 
     def __call__(self, x: float | np.ndarray) -> np.ndarray:
         """Values at ``x``; shape ``np.shape(x) + (k,)``."""
@@ -407,34 +422,46 @@ class PiecewiseLinear:
 
 
 def _break_events(env: Envelope) -> tuple[np.ndarray, np.ndarray]:
-    """Row and position of every breakpoint of an envelope."""
-    return np.nonzero(np.arange(env.breaks.shape[1])[None, :] < env.count[:, None])
+    """Row and position of every breakpoint of an envelope (grouped by position)."""
+    rows = [np.flatnonzero(env.count > k) for k in range(env.breaks.shape[1])]
+    if not rows:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    return np.concatenate(rows), np.repeat(np.arange(len(rows)), [len(r) for r in rows])
 
 
-def envelope_shares(env: Envelope, weights: np.ndarray, n_levels: int) -> StepFunction:
-    """Cases at each optimal level as a step function of the ratio (k = L components)."""
-    initial = np.bincount(env.levels[:, 0], weights=weights, minlength=n_levels).astype(np.float64)
+def envelope_functions(env: Envelope, weights: np.ndarray, A: np.ndarray, B: np.ndarray) -> tuple[StepFunction, StepFunction]:
+    """The two step functions of an envelope, built together from one sort of its breakpoints.
+
+    Returns
+    -------
+    shares : StepFunction
+        Cases at each optimal level (k = L components).
+    total : StepFunction
+        (intercept, slope) of the optimal total cost sum_g min_d (A + r B), which is
+        continuous, concave and piecewise linear (k = 2); at a breakpoint it equals the left value.
+    """
+    n, L = A.shape
+    rows = np.arange(n)
+    l0 = env.levels[:, 0]
     g, s = _break_events(env)
     w = weights[g]
     before, after, at = env.levels[g, s], env.levels[g, s + 1], env.at_break[g, s]
-    zero = np.zeros_like(w)
-    return StepFunction.from_events(
-        initial, np.tile(env.breaks[g, s], 3), np.concatenate([after, before, at]),
-        np.concatenate([w, -w, zero]), np.concatenate([zero, -w, w]))
-
-
-def envelope_total(env: Envelope, A: np.ndarray, B: np.ndarray) -> StepFunction:
-    """The optimal total cost sum_g min_d (A + r B) as a step function of (intercept, slope)."""
-    rows = np.arange(env.n)
-    l0 = env.levels[:, 0]
-    initial = np.array([A[rows, l0].sum(), B[rows, l0].sum()])
-    g, s = _break_events(env)
-    before, after = env.levels[g, s], env.levels[g, s + 1]
-    knots = np.tile(env.breaks[g, s], 2)
-    cols = np.repeat([0, 1], len(g))
-    d_right = np.concatenate([A[g, after] - A[g, before], B[g, after] - B[g, before]])
-    # the optimal total is continuous: at a breakpoint it equals the left value
-    return StepFunction.from_events(initial, knots, cols, d_right, np.zeros_like(d_right))
+    # components 0..L-1: cases at each level; L, L+1: intercept and slope of the optimal total
+    initial = np.concatenate([np.bincount(l0, weights=weights, minlength=L), [A[rows, l0].sum(), B[rows, l0].sum()]])
+    E = len(g)
+    e = np.arange(E)
+    d_right = np.zeros((E, L + 2))
+    d_right[e, after] = w
+    d_right[e, before] = -w
+    d_right[:, L] = A[g, after] - A[g, before]
+    d_right[:, L + 1] = B[g, after] - B[g, before]
+    d_at = np.zeros((E, L + 2))
+    d_at[e, before] = -w
+    d_at[e, at] += w
+    both = StepFunction.from_events(initial, env.breaks[g, s], d_right, d_at)
+    shares = StepFunction(both.knots, both.between[:, :L], both.at[:, :L])
+    total = StepFunction(both.knots, both.between[:, L:], both.between[:-1, L:])
+    return shares, total
 
 
 # ----------------------------------------------------------------------------------------------
@@ -476,6 +503,16 @@ def lenient_margins(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioA
     return np.asarray(M @ per_cell.reshape(n, -1)).reshape(n_groups, Lm1, K1)
 
 
+def _margins(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioAxis], index: np.ndarray, n_groups: int,
+             bounds: RiskBounds, A: np.ndarray, B: Sequence[np.ndarray]) -> np.ndarray:
+    """:func:`lenient_margins`, read off the rule-cell cost lines when the bounds are the point
+    estimate itself (then Delta_g(d) = T_g(0) - T_g(d) exactly, the envelope's own numbers)."""
+    if bounds.lower is risk_levels.p and bounds.upper is risk_levels.p:
+        parts = [A[:, :1] - A[:, 1:]] + [b[:, :1] - b[:, 1:] for b in B]
+        return np.stack(parts, axis=-1)
+    return lenient_margins(risk_levels, costs, axes, index, n_groups, bounds)
+
+
 def lenient_intervals(const: np.ndarray, slope: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The closed interval of r where const + r slope <= 0 for every column.
 
@@ -488,11 +525,14 @@ def lenient_intervals(const: np.ndarray, slope: np.ndarray) -> tuple[np.ndarray,
     low, high : ndarray of shape (...)
         The interval [low, high] (possibly infinite ends); empty rows have low = high = nan.
     """
+    # comparison-major: the reductions over the few comparisons are elementwise passes
+    c = np.ascontiguousarray(np.moveaxis(np.asarray(const, dtype=np.float64), -1, 0))
+    b = np.ascontiguousarray(np.moveaxis(np.asarray(slope, dtype=np.float64), -1, 0))
     with np.errstate(invalid="ignore", divide="ignore"):
-        root = -const / slope
-    low = np.max(np.where(slope < 0, root, -np.inf), axis=-1)
-    high = np.min(np.where(slope > 0, root, np.inf), axis=-1)
-    never = np.any((slope == 0) & (const > 0), axis=-1) | (low > high)
+        root = -c / b
+    low = np.maximum.reduce(np.where(b < 0, root, -np.inf), axis=0)
+    high = np.minimum.reduce(np.where(b > 0, root, np.inf), axis=0)
+    never = np.logical_or.reduce((b == 0) & (c > 0), axis=0) | (low > high)
     return np.where(never, np.nan, low), np.where(never, np.nan, high)
 
 
@@ -504,9 +544,9 @@ def interval_shares(low: np.ndarray, high: np.ndarray, weights: np.ndarray) -> S
     start = np.isfinite(low)
     stop = np.isfinite(high)
     knots = np.concatenate([low[start], high[stop]])
-    d_right = np.concatenate([w[start], -w[stop]])
-    d_at = np.concatenate([w[start], np.zeros(int(stop.sum()))])
-    return StepFunction.from_events(initial, knots, np.zeros(len(knots), dtype=np.int64), d_right, d_at)
+    d_right = np.concatenate([w[start], -w[stop]])[:, None]
+    d_at = np.concatenate([w[start], np.zeros(int(stop.sum()))])[:, None]
+    return StepFunction.from_events(initial, knots, d_right, d_at)
 
 
 def clip_polygons(vertices: np.ndarray, count: np.ndarray, halfplanes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -632,6 +672,11 @@ class AssumptionInfo:
     gamma: float
     figure: str
     assumptions: tuple[str, ...]
+
+    @property
+    def table_gamma(self) -> float:
+        """Gamma as written in tables: empty (nan) for the monotone bounds, which have none."""
+        return self.gamma if np.isfinite(self.gamma) else np.nan
 
 
 def assumption_lines(figure: str, robust: Sequence[AssumptionInfo | RiskBounds]) -> list[str]:
@@ -803,7 +848,7 @@ class OneRatioSweep:
         groups = _plain_groups(self.rule_cells)
         for info, (low, high) in zip(self.robust, self.lenient):
             f = groups.copy()
-            f.insert(0, "gamma", info.gamma)
+            f.insert(0, "gamma", info.table_gamma)
             f.insert(0, "assumption_label", info.label)
             f.insert(0, "assumption", info.key)
             f["cases"] = self.weights
@@ -822,7 +867,7 @@ class OneRatioSweep:
         for info, f in zip(self.robust, self.lenient_shares):
             edges, values = f.pieces(self.lo, self.hi)
             frames.append(pd.DataFrame({
-                "assumption": info.key, "assumption_label": info.label, "gamma": info.gamma,
+                "assumption": info.key, "assumption_label": info.label, "gamma": info.table_gamma,
                 "from_ratio": edges[:-1], "to_ratio": edges[1:],
                 "from_cost": edges[:-1] * self.axis.reference_cost, "to_cost": edges[1:] * self.axis.reference_cost,
                 "share_lenient": values[:, 0] / self.total,
@@ -915,8 +960,7 @@ def sweep_one(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, lo: float,
     A, B = M @ base, M @ slope[0]
     env = lower_envelope(A, B)
     L = risk_levels.n_levels
-    shares = envelope_shares(env, weights, L)
-    total = envelope_total(env, A, B)
+    shares, total = envelope_functions(env, weights, A, B)
     inside = total.knots[(total.knots > lo) & (total.knots < hi)]
     x = np.concatenate([[lo], inside, [hi]])
     coef = total(x)
@@ -928,7 +972,7 @@ def sweep_one(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, lo: float,
         regret[rule.name] = PiecewiseLinear(x, (alpha + beta * x - opt) / W)
     infos, intervals, lshares = [], [], []
     for b in (assumptions or [point_bounds(risk_levels)]):
-        m = lenient_margins(risk_levels, costs, [axis], index, len(groups), b)
+        m = _margins(risk_levels, costs, [axis], index, len(groups), b, A, [B])
         low, high = lenient_intervals(m[..., 0], m[..., 1])
         infos.append(_info(b))
         intervals.append((low, high))
@@ -1051,7 +1095,7 @@ class LenientMap:
             area = polygon_area(V, cnt) / box_area
             g, v = np.nonzero(np.arange(V.shape[1])[None, :] < cnt[:, None])
             f = groups.iloc[g].reset_index(drop=True)
-            f.insert(0, "gamma", info.gamma)
+            f.insert(0, "gamma", info.table_gamma)
             f.insert(0, "assumption_label", info.label)
             f.insert(0, "assumption", info.key)
             f["cases"] = self.weights[g]
@@ -1071,7 +1115,7 @@ class LenientMap:
         frames = []
         for a, info in enumerate(self.robust):
             frames.append(pd.DataFrame({
-                "assumption": info.key, "assumption_label": info.label, "gamma": info.gamma,
+                "assumption": info.key, "assumption_label": info.label, "gamma": info.table_gamma,
                 "ratio_1": X.ravel(), "ratio_2": Y.ravel(),
                 "cost_1": X.ravel() * self.axes[0].reference_cost, "cost_2": Y.ravel() * self.axes[1].reference_cost,
                 "share_lenient": self.grid(points, a, x, y).ravel(),
@@ -1123,7 +1167,7 @@ def lenient_map(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioAxis]
     A = M @ base
     B = np.stack([M @ s for s in slope])
     bs = list(assumptions or [point_bounds(risk_levels)])
-    margins = np.stack([lenient_margins(risk_levels, costs, axes, index, len(groups), b) for b in bs])
+    margins = np.stack([_margins(risk_levels, costs, axes, index, len(groups), b, A, B) for b in bs])
     return LenientMap(tuple(axes), ((float(x0), float(x1)), (float(y0), float(y1))), scale, groups, weights,
                       risk_levels.level_values, risk_levels.level_labels, [_info(b) for b in bs], margins, A, B)
 

@@ -291,8 +291,8 @@ def test_lenient_up_to_reads_the_share_curve(demo):
 
 # -- step functions and intervals -----------------------------------------------------------------
 def test_step_function_values_at_and_between_knots():
-    f = StepFunction.from_events(np.array([1.0]), np.array([2.0, 1.0, 2.0]), np.array([0, 0, 0]),
-                                 np.array([-1.0, 2.0, 0.5]), np.array([0.0, 2.0, 0.5]))
+    f = StepFunction.from_events(np.array([1.0]), np.array([2.0, 1.0, 2.0]),
+                                 np.array([[-1.0], [2.0], [0.5]]), np.array([[0.0], [2.0], [0.5]]))
     np.testing.assert_allclose(f(np.array([0.0, 1.0, 1.5, 2.0, 3.0]))[:, 0], [1.0, 3.0, 3.0, 3.5, 2.5])
     edges, values = f.pieces(0.5, 2.5)
     np.testing.assert_allclose(edges, [0.5, 1.0, 2.0, 2.5])
