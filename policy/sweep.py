@@ -200,7 +200,7 @@ def cost_lines(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioAxis])
         raise InputError("each ratio must sweep a different outcome kind.")
     fixed = costs.outcome.astype(np.float64).copy()
     fixed[swept] = 0.0
-    base = costs.decision + np.einsum("xjd,j->xd", risk_levels.p, fixed)
+    base = costs.decision + np.matmul(fixed, risk_levels.p)
     slope = np.stack([a.reference_cost * risk_levels.p[:, a.outcome_index, :] for a in axes])
     return base, slope
 
@@ -443,24 +443,40 @@ def envelope_functions(env: Envelope, weights: np.ndarray, A: np.ndarray, B: np.
     n, L = A.shape
     rows = np.arange(n)
     l0 = env.levels[:, 0]
-    g, s = _break_events(env)
-    w = weights[g]
-    before, after, at = env.levels[g, s], env.levels[g, s + 1], env.at_break[g, s]
     # components 0..L-1: cases at each level; L, L+1: intercept and slope of the optimal total
     initial = np.concatenate([np.bincount(l0, weights=weights, minlength=L), [A[rows, l0].sum(), B[rows, l0].sum()]])
+    g, s = _break_events(env)
+    knots = env.breaks[g, s]
+    order = np.argsort(knots)
+    g, s, knots = g[order], s[order], knots[order]
+    first = np.concatenate([[True], knots[1:] != knots[:-1]])
+    uniq = knots[first]
+    w = weights[g]
+    before, after, at = env.levels[g, s], env.levels[g, s + 1], env.at_break[g, s]
     E = len(g)
     e = np.arange(E)
-    d_right = np.zeros((E, L + 2))
-    d_right[e, after] = w
-    d_right[e, before] = -w
-    d_right[:, L] = A[g, after] - A[g, before]
-    d_right[:, L + 1] = B[g, after] - B[g, before]
-    d_at = np.zeros((E, L + 2))
-    d_at[e, before] = -w
-    d_at[e, at] += w
-    both = StepFunction.from_events(initial, env.breaks[g, s], d_right, d_at)
-    shares = StepFunction(both.knots, both.between[:, :L], both.at[:, :L])
-    total = StepFunction(both.knots, both.between[:, L:], both.between[:-1, L:])
+    # component-major changes at each event (sorted): running sums along contiguous rows
+    change = np.zeros((L + 2, E))
+    change[after, e] = w
+    change[before, e] = -w
+    change[L] = A[g, after] - A[g, before]
+    change[L + 1] = B[g, after] - B[g, before]
+    if len(uniq) < E:
+        change = np.add.reduceat(change, np.flatnonzero(first), axis=1)
+    between = np.empty((L + 2, len(uniq) + 1))
+    between[:, 0] = initial
+    np.cumsum(change, axis=1, out=between[:, 1:])
+    between[:, 1:] += initial[:, None]
+    # at a breakpoint the rule takes the most lenient tied level: the left value, except where
+    # that level is neither side's (several lines meeting at one point)
+    at_values = between[:L, :-1].copy()
+    odd = np.flatnonzero(at != before)
+    if len(odd):
+        k = np.cumsum(first)[odd] - 1
+        np.add.at(at_values, (at[odd], k), w[odd])
+        np.add.at(at_values, (before[odd], k), -w[odd])
+    shares = StepFunction(uniq, between[:L].T, at_values.T)
+    total = StepFunction(uniq, between[L:].T, between[L:, :-1].T)
     return shares, total
 
 

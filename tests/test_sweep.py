@@ -22,6 +22,7 @@ from policy.strata import RiskLevels
 from policy.sweep import (
     StepFunction,
     clip_polygons,
+    envelope_functions,
     lenient_intervals,
     lenient_map,
     lower_envelope,
@@ -94,6 +95,27 @@ def test_envelope_ties_go_to_the_more_lenient_level_at_breakpoints_and_on_identi
     r = np.arange(-40, 41) / 8.0               # every crossing (A diff / B diff) of these lines
     grid = np.argmin(A[None] + r[:, None, None] * B[None], axis=-1)
     np.testing.assert_array_equal(env.level_at(r), grid)
+
+
+def test_envelope_shares_and_optimal_cost_at_and_between_breakpoints():
+    # Reference: numpy argmin (first minimum) and min at points that include every crossing of
+    # integer lines, where several lines often meet at once.
+    # intercepts in multiples of 12 put every crossing on an integer, so the half-integer grid
+    # below holds every breakpoint and every value on it is exact in floating point
+    rng = np.random.default_rng(7)
+    A = 12.0 * rng.integers(0, 5, size=(4000, 4))
+    B = rng.integers(0, 5, size=(4000, 4)).astype(float)
+    w = rng.integers(1, 9, size=4000).astype(float)
+    env = lower_envelope(A, B)
+    shares, total = envelope_functions(env, w, A, B)
+    assert (env.at_break[env.at_break >= 0] != env.levels[:, :-1][env.at_break >= 0]).any()
+    r = np.arange(-100, 101) / 2.0
+    values = A[None] + r[:, None, None] * B[None]
+    level = np.argmin(values, axis=-1)
+    for i, x in enumerate(r):
+        np.testing.assert_allclose(shares(x), np.bincount(level[i], weights=w, minlength=4))
+        coef = total(x)
+        assert coef[0] + x * coef[1] == pytest.approx(values[i].min(axis=-1).sum(), rel=1e-12)
 
 
 def test_envelope_breakpoints_are_the_crossings_of_the_neighbouring_lines():
