@@ -232,7 +232,7 @@ def sweep(
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     from .outputs import write_outputs
-    from .sweep import sweep_scenario
+    from .sweep import assumption_lines, sweep_scenario
 
     if table_points < 2:
         raise InputError(f"--table-points must be at least 2; got {table_points}.")
@@ -245,28 +245,21 @@ def sweep(
         def step(what: str) -> None:
             progress.update(task, description=what, advance=1)
 
-        result = sweep_scenario(scenario, ratio, _ranges(range_), scale, per, gamma or None, False if no_bounds else None,
-                                missing, None, points, share, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
-                                on_step=step)
+        result = sweep_scenario(
+            scenario, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+            bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
+            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"), on_step=step)
         files = result.output_files(formats, table_points)
-        progress.update(task, total=3 + len(files), description="writing tables and figures")
+        drawn = [name for name, content in files.items() if callable(content)]
+        progress.update(task, total=3 + len(drawn), description="drawing figures")
 
-        def counted(name, content):
-            def write(path):
-                content(path)
-                progress.update(task, advance=1, description=f"wrote {name}")
-            return write
+        def advancing(name, write):
+            def run(path):
+                write(path)
+                progress.update(task, advance=1, description=f"drew {name}")
+            return run
 
-        staged = {}
-        for name, content in files.items():
-            if callable(content):
-                staged[name] = counted(name, content)
-            else:
-                staged[name] = content
-                progress.update(task, advance=1)
-        paths = write_outputs(out, staged)
-    from .sweep import assumption_lines
-
+        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()})
     console.print(result.scenario.title, style="bold")
     console.print(str(result))
     console.print("Assumptions behind these figures:", style="bold")

@@ -52,7 +52,7 @@ from typing import Any, Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from .bounds import RiskBounds, point_bounds, robust_assumptions
+from .bounds import MISSING_TREATMENTS, RiskBounds, point_bounds, robust_assumptions
 from .cautions import ASSUMPTIONS, CAUTIONS, assumptions_for
 from .costs import Costs, costs_from_scenario
 from .errors import InputError
@@ -118,10 +118,6 @@ class RatioAxis:
     unit: str
     scenario_ratio: float
 
-    def cost(self, ratio: np.ndarray | float) -> np.ndarray | float:
-        """The outcome's cost in ``unit`` at a ratio."""
-        return np.asarray(ratio) * self.reference_cost if np.ndim(ratio) else float(ratio) * self.reference_cost
-
     @property
     def title(self) -> str:
         """Axis title: what the ratio divides by what."""
@@ -158,22 +154,10 @@ def ratio_axis(risk_levels: RiskLevels, costs: Costs, outcome: str, per: str | N
     per : str, optional
         Reference decision level (value or label); default the harshest.
     """
-    keys, labels = list(risk_levels.outcome_keys), list(risk_levels.outcome_labels)
-    if outcome in keys:
-        j = keys.index(outcome)
-    elif outcome in labels:
-        j = labels.index(outcome)
-    else:
-        raise InputError(f"ratio {outcome!r} is not an outcome kind of the scenario; expected one of: {', '.join(keys)}.")
-    values, level_labels = list(risk_levels.level_values), list(risk_levels.level_labels)
-    if per is None:
-        ref = len(values) - 1
-    elif per in values:
-        ref = values.index(per)
-    elif per in level_labels:
-        ref = level_labels.index(per)
-    else:
-        raise InputError(f"reference level {per!r} is not a decision level; expected one of: {', '.join(values)}.")
+    keys, labels = risk_levels.outcome_keys, risk_levels.outcome_labels
+    values, level_labels = risk_levels.level_values, risk_levels.level_labels
+    j = _position(outcome, keys, labels, "ratio", "an outcome kind of the scenario")
+    ref = len(values) - 1 if per is None else _position(per, values, level_labels, "reference level", "a decision level")
     w = risk_levels.weights
     c_ref = float(np.sum(w * costs.decision[:, ref]) / np.sum(w))
     if not c_ref > 0:
@@ -183,6 +167,14 @@ def ratio_axis(risk_levels: RiskLevels, costs: Costs, outcome: str, per: str | N
         )
     return RatioAxis(keys[j], j, labels[j], ref, level_labels[ref], c_ref, costs.unit,
                      float(costs.outcome[j]) / c_ref)
+
+
+def _position(name: str, keys: Sequence[str], labels: Sequence[str], what: str, kind: str) -> int:
+    """Position of ``name`` among keys (or, failing that, labels); a clear error otherwise."""
+    for names in (keys, labels):
+        if name in names:
+            return list(names).index(name)
+    raise InputError(f"{what} {name!r} is not {kind}; expected one of: {', '.join(keys)}.")
 
 
 def cost_lines(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioAxis]) -> tuple[np.ndarray, np.ndarray]:
@@ -415,10 +407,6 @@ class PiecewiseLinear:
 
     def __call__(self, r: float | np.ndarray) -> np.ndarray:
         return np.interp(r, self.x, self.y)
-
-    @property
-    def max(self) -> float:
-        return float(self.y.max())
 
 
 def _break_events(env: Envelope) -> tuple[np.ndarray, np.ndarray]:
@@ -1316,6 +1304,8 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         raise InputError(f"the display grid needs at least 2 points per axis; got {grid_points}.")
     if not 0 < share <= 1:
         raise InputError(f"the share of cases must be in (0, 1]; got {share!r}.")
+    if missing not in MISSING_TREATMENTS:
+        raise InputError(f"missing records must be treated as one of {', '.join(MISSING_TREATMENTS)}; got {missing!r}.")
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     step("estimated risk levels")
