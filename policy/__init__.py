@@ -8,6 +8,8 @@ an individual.
 
 from .cautions import CAUTIONS
 from .cells import CellLayout, CellTable, load_cell_table
+from .constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
+from .constraints import ConstraintSpec
 from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
@@ -33,10 +35,15 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "ConstrainedProblem",
+    "ConstrainedRule",
+    "ConstraintSpec",
     "Costs",
     "Evaluation",
     "InfeasibleError",
     "InputError",
+    "LPSettings",
+    "LPSolution",
     "LenientMap",
     "OneRatioSweep",
     "PolicyError",
@@ -63,6 +70,7 @@ __all__ = [
     "ratio_axis",
     "risk_level_distribution",
     "sensitivity_bounds",
+    "solve_constrained",
     "sweep_one",
     "sweep_scenario",
 ]
