@@ -25,7 +25,8 @@ from matplotlib.ticker import PercentFormatter
 
 from .sweep import LenientMap, OneRatioSweep, assumption_lines
 
-__all__ = ["STYLE", "level_colours", "share_figure", "regret_figure", "map_figure", "figure_files", "save_figure", "FORMATS"]
+__all__ = ["STYLE", "level_colours", "share_figure", "regret_figure", "price_figure", "map_figure", "figure_files",
+           "save_figure", "FORMATS"]
 
 FORMATS = ("png", "svg")
 
@@ -164,7 +165,7 @@ def _steps(edges: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return x, y
 
 
-def share_figure(sweep: OneRatioSweep, bands: dict | None = None) -> Figure:
+def share_figure(sweep: OneRatioSweep, bands: dict | None = None, constrained=None) -> Figure:
     """Share of cases at each optimal level along the ratio, with robust lenient shares.
 
     Parameters
@@ -173,10 +174,15 @@ def share_figure(sweep: OneRatioSweep, bands: dict | None = None) -> Figure:
     bands : dict, optional
         ``{"x": (n,), "low": (n,), "high": (n,), "label": str}``: an interval band around the
         lenient share (from the bootstrap), drawn when given.
+    constrained : ConstrainedSweep, optional
+        Adds the lenient share of the constrained optimum at its grid points (declared bounds).
     """
     robust = sweep.robust
     lines = assumption_lines("robust_sweep" if len(robust) > 1 else "sweep", robust)
-    n_rows = max(len(sweep.level_labels) + (bands is not None), len(robust) - 1)
+    if constrained is not None:
+        lines.insert(1, f"Markers: {sweep.level_labels[0]} under the constrained optimum ("
+                        + "; ".join(spec.describe() for spec in constrained.specs) + "), re-solved at each marker.")
+    n_rows = max(len(sweep.level_labels) + (bands is not None) + (constrained is not None), len(robust) - 1)
     fig, (ax,), legend = _frame(7.2, 3.8, lines, n_rows + 1)
     with mpl.rc_context(STYLE):
         colours = level_colours(len(sweep.level_labels))
@@ -188,6 +194,11 @@ def share_figure(sweep: OneRatioSweep, bands: dict | None = None) -> Figure:
         if bands is not None:
             ax.fill_between(bands["x"], bands["low"], bands["high"], step="post", color=colours[0], alpha=0.18,
                             linewidth=0, label=bands.get("label", "interval"), zorder=2)
+        if constrained is not None:
+            row = _declared_row(constrained)
+            ax.plot(constrained.ratios, constrained.shares[row, :, 0], linestyle="none", marker="o", markersize=3.2,
+                    markerfacecolor="white", markeredgecolor=colours[0], markeredgewidth=1.0, zorder=4,
+                    label=f"{sweep.level_labels[0]}, constrained optimum")
         for k, (info, f) in enumerate(zip(robust[1:], sweep.lenient_shares[1:]), start=1):
             e, v = f.pieces(sweep.lo, sweep.hi)
             x, y = _steps(e, v[:, 0] / sweep.total)
@@ -199,10 +210,10 @@ def share_figure(sweep: OneRatioSweep, bands: dict | None = None) -> Figure:
         ax.set_ylabel("share of cases")
         ax.set_title(f"Optimal decision as the cost of one {sweep.axis.outcome_label} varies")
         handles, labels = ax.get_legend_handles_labels()
-        n_main = len(sweep.level_labels) + (bands is not None)
+        n_main = len(sweep.level_labels) + (bands is not None) + (constrained is not None)
         _legend(legend, handles[:n_main], labels[:n_main], ncol=1, title="Optimal decision level")
         if len(handles) > n_main:
-            _legend(legend, handles[n_main:], labels[n_main:], ncol=1, x=0.42,
+            _legend(legend, handles[n_main:], labels[n_main:], ncol=1, x=0.5,
                     title=f"{sweep.level_labels[0]} optimal whatever the confounding, under")
     return fig
 
@@ -226,6 +237,53 @@ def regret_figure(sweep: OneRatioSweep) -> Figure:
         ax.set_title(f"Cost of keeping a fixed rule as the cost of one {sweep.axis.outcome_label} varies")
         if sweep.regret:
             _legend(legend, *ax.get_legend_handles_labels())
+    return fig
+
+
+def _declared_row(constrained) -> int:
+    """Row of a constrained sweep with the declared bounds (the row whose varied bound is the
+    declared one, else the middle row)."""
+    if constrained.varied is None:
+        return 0
+    spec = next(s for s in constrained.specs if s.name == constrained.varied)
+    hit = np.flatnonzero(np.isclose(constrained.bounds, spec.bound))
+    return int(hit[0]) if len(hit) else len(constrained.bounds) // 2
+
+
+def price_figure(constrained) -> Figure:
+    """The price of the constraints along the ratio: in all (left; one line per value of a varied
+    bound) and of each constraint, as the saving if it alone were removed (right)."""
+    c = constrained
+    lines = assumption_lines("sweep", [])
+    lines.insert(1, "Price: expected cost per 1,000 cases of the constrained optimum above the unconstrained one "
+                    "(same rule cells), re-solved at each marker. Right: what removing each constraint alone would "
+                    "save, the others kept." + (f" Right panel at {c.varied} = {c.bounds[_declared_row(c)]:g}." if c.varied else ""))
+    n_rows = max(len(c.bounds) if c.varied else 1, len(c.specs))
+    fig, (left, right), legend = _frame(10.0, 3.8, lines, n_rows + 1, ncols=2)
+    unit = f" ({c.unit})" if c.unit else ""
+    with mpl.rc_context(STYLE):
+        shades = mpl.colormaps["cividis"](np.linspace(0.1, 0.85, len(c.bounds))) if c.varied else [OKABE_ITO["black"]]
+        for b, colour in enumerate(shades):
+            label = f"{c.varied} = {c.bounds[b]:g}" if c.varied else "all constraints together"
+            left.plot(c.ratios, 1000.0 * c.price[b], color=colour, marker="o", markersize=2.6,
+                      linestyle=DASHES[b % len(DASHES)], label=label)
+        row = _declared_row(c)
+        palette = [OKABE_ITO[n] for n in ("blue", "orange", "reddish purple", "sky blue", "vermillion", "bluish green")]
+        for k, spec in enumerate(c.specs):
+            right.plot(c.ratios, 1000.0 * c.removed[row, :, k], color=palette[k % len(palette)], marker="o",
+                       markersize=2.6, linestyle=DASHES[k % len(DASHES)], label=f"{spec.name} ({spec.kind})")
+        for ax in (left, right):
+            ax.axhline(0.0, color="#4d4d4d", linewidth=0.8)
+            _ratio_axis(ax, c.axis, c.scale, float(c.ratios[0]), float(c.ratios[-1]))
+            _mark_scenario(ax, c.axis.scenario_ratio, float(c.ratios[0]), float(c.ratios[-1]))
+            ax.set_ylabel(f"per 1,000 cases{unit}")
+            ax.yaxis.set_major_formatter(mpl.ticker.FuncFormatter(lambda v, _: f"{v:,.0f}"))
+        left.set_title("Price of the constraints")
+        right.set_title("Saving if one constraint were removed")
+        h1, l1 = left.get_legend_handles_labels()
+        h2, l2 = right.get_legend_handles_labels()
+        _legend(legend, h1, l1, ncol=1, title="Price" + (f", by {c.varied}" if c.varied else ""))
+        _legend(legend, h2, l2, ncol=1, x=0.5, title="Constraint removed")
     return fig
 
 

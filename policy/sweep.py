@@ -727,6 +727,9 @@ class OneRatioSweep:
         Cases at each optimal level (k = L), not yet divided by the total.
     regret : dict of str to PiecewiseLinear
         Each compared rule's regret per case against the optimum, exact on [lo, hi].
+    optimal : StepFunction
+        (intercept, slope) of the optimal total cost on each piece (k = 2); see
+        :meth:`optimal_cost_at`.
     robust : list of AssumptionInfo
         Point estimate first, then each Gamma, then the monotone bounds.
     lenient : list of (low, high)
@@ -747,6 +750,7 @@ class OneRatioSweep:
     envelope: Envelope
     shares: StepFunction
     regret: dict[str, PiecewiseLinear]
+    optimal: StepFunction | None = None
     robust: list[AssumptionInfo] = field(default_factory=list)
     lenient: list[tuple[np.ndarray, np.ndarray]] = field(default_factory=list)
     lenient_shares: list[StepFunction] = field(default_factory=list)
@@ -754,6 +758,11 @@ class OneRatioSweep:
     @property
     def total(self) -> float:
         return float(self.weights.sum())
+
+    def optimal_cost_at(self, r: float | np.ndarray) -> np.ndarray:
+        """Expected cost per case of the unconstrained optimum at ratio(s) ``r`` (exact)."""
+        coef = self.optimal(r)
+        return (coef[..., 0] + np.asarray(r) * coef[..., 1]) / self.total
 
     def share_at(self, r: float | np.ndarray) -> np.ndarray:
         """Share of cases at each optimal level at ratio(s) ``r``; shape ``np.shape(r) + (L,)``."""
@@ -982,7 +991,7 @@ def sweep_one(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, lo: float,
         intervals.append((low, high))
         lshares.append(interval_shares(low, high, weights))
     return OneRatioSweep(axis, float(lo), float(hi), scale, groups, weights, risk_levels.level_values,
-                         risk_levels.level_labels, env, shares, regret, infos, intervals, lshares)
+                         risk_levels.level_labels, env, shares, regret, total, infos, intervals, lshares)
 
 
 @dataclass(frozen=True)
@@ -1190,9 +1199,12 @@ class SweepResult:
     map: LenientMap | None
     assumptions: list[RiskBounds]
     settings: dict[str, Any]
+    #: the constrained optimum along the ratio (policy.sweep_constrained.ConstrainedSweep), when constraints apply
+    constrained: Any = None
 
     def __str__(self) -> str:
-        return str(self.sweep if self.sweep is not None else self.map)
+        text = str(self.sweep if self.sweep is not None else self.map)
+        return text + ("\n" + str(self.constrained) if self.constrained is not None else "")
 
     def describe(self) -> dict[str, Any]:
         """Metadata written to sweep.json."""
@@ -1218,8 +1230,23 @@ class SweepResult:
             "robust": [{"key": b.key, "label": b.label, "gamma": b.gamma if np.isfinite(b.gamma) else None,
                         "note": b.note} for b in self.assumptions],
             "summary": summary.to_dict(orient="records"),
+            "constrained": self._describe_constrained(),
             "assumptions": assumptions,
             "cautions": list(CAUTIONS),
+        }
+
+    def _describe_constrained(self) -> dict[str, Any] | None:
+        c = self.constrained
+        if c is None:
+            return None
+        summary = c.summary()
+        return {
+            "constraints": [spec.describe() for spec in c.specs],
+            "grid_points": int(len(c.ratios)),
+            "varied": c.varied,
+            "bounds": [float(b) for b in c.bounds] if c.varied else None,
+            "solver": c.solver,
+            "summary": summary.astype(object).where(summary.notna(), None).to_dict(orient="records"),
         }
 
     def output_files(self, figures: Sequence[str] = ("png", "svg"), table_points: int = 51) -> dict[str, Any]:
@@ -1244,8 +1271,13 @@ class SweepResult:
             files["sweep_regret.csv"] = s.regret_table()
             files["sweep_lenient.csv"] = s.robust_table()
             files["sweep_lenient_shares.csv"] = s.robust_share_table()
-            figs = {"sweep_shares": lambda: plots.share_figure(s),
+            c = self.constrained
+            figs = {"sweep_shares": lambda: plots.share_figure(s, constrained=c),
                     "sweep_regret": lambda: plots.regret_figure(s)}
+            if c is not None:
+                files["sweep_constrained.csv"] = c.to_frame()
+                files["sweep_constraint_prices.csv"] = c.price_table()
+                figs["sweep_prices"] = lambda: plots.price_figure(c)
         else:
             m = self.map
             files["map_grid.csv"] = m.grid_table(table_points)
@@ -1261,8 +1293,11 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                    scale: str = "linear", per: str | None = None, gammas: Sequence[float] | None = None,
                    bounds: bool | None = None, missing: str = "worst_case", rules: Sequence[Rule] | None = None,
                    grid_points: int = 200, share: float = 0.5, outcome_costs: Mapping[str, float] | None = None,
-                   decision_costs: Mapping[str, float] | None = None,
-                   on_step: Callable[[str], None] | None = None) -> SweepResult:
+                   decision_costs: Mapping[str, float] | None = None, constraints: Sequence[Any] = (),
+                   scenario_constraints: bool = True, lp_settings: Any = None, lp_points: int = 50,
+                   vary: str | int | None = None, vary_values: Sequence[float] | None = None, removal: bool = True,
+                   on_step: Callable[[str], None] | None = None,
+                   on_point: Callable[[int, int], None] | None = None) -> SweepResult:
     """Sweep one cost ratio (exact curves) or two (exact lenient map) for a scenario.
 
     Parameters
@@ -1292,9 +1327,28 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         ratio Y" (summaries, and the robust regions of the map figure).
     outcome_costs, decision_costs : mapping, optional
         What-if overrides of the scenario's costs, as in ``solve``.
+    constraints : sequence of dict or ConstraintSpec, optional
+        Constraints added to the scenario's ``[[constraints]]``; with any constraint (and one
+        ratio) the constrained optimum is re-solved along the ratio
+        (:func:`policy.sweep_constrained.constrained_sweep`).
+    scenario_constraints : bool
+        Use the scenario's own ``[[constraints]]``.
+    lp_settings : LPSettings, optional
+        How to solve the linear program (default: the scenario's ``[linear_program]``).
+    lp_points : int
+        Ratios of the constrained re-solves (evenly spaced on the scale).
+    vary, vary_values : optional
+        A constraint (name or 1-based position) whose tolerance or cap takes each value in turn.
+    removal : bool
+        Price each constraint by re-solving without it (else: dual values only).
     on_step : callable, optional
         Called with a description after each stage (drives a progress bar).
+    on_point : callable, optional
+        Called with (points done, points in all) during the constrained re-solves.
     """
+    from .constraints import scenario_specs
+    from .sweep_constrained import constrained_sweep, ratio_grid
+
     step = on_step or (lambda what: None)
     scenario = as_scenario(scenario)
     ratios = list(ratios)
@@ -1306,6 +1360,11 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         raise InputError(f"the share of cases must be in (0, 1]; got {share!r}.")
     if missing not in MISSING_TREATMENTS:
         raise InputError(f"missing records must be treated as one of {', '.join(MISSING_TREATMENTS)}; got {missing!r}.")
+    specs = scenario_specs(scenario, constraints, scenario_constraints)
+    if len(ratios) == 2 and (constraints or vary is not None):
+        raise InputError("constrained optima are re-solved along one ratio; give one --ratio with constraints.")
+    if vary is not None and not specs:
+        raise InputError("there is no constraint whose bound could vary; declare or add one.")
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     step("estimated risk levels")
@@ -1331,7 +1390,16 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
             rules = [base_rule, lenient_all]
         s = sweep_one(rl, costs, axes[0], *box[0], rules=rules, assumptions=assumptions, scale=scale)
         step("exact sweep")
-        return SweepResult(scenario, rl, costs, s, None, assumptions, settings)
+        constrained = None
+        if specs:
+            lp = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
+            constrained = constrained_sweep(rl, costs, axes[0], ratio_grid(*box[0], lp_points, scale), specs, settings=lp,
+                                            vary=vary, values=vary_values, removal=removal, scale=scale,
+                                            unconstrained=s, on_point=on_point)
+            step("constrained re-solves")
+        return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained)
+    if specs:
+        settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"
     m = lenient_map(rl, costs, axes, box, assumptions=assumptions, scale=scale)
     step("exact lenient map")
     return SweepResult(scenario, rl, costs, None, m, assumptions, settings)

@@ -39,13 +39,14 @@ def _svg_text(path):
 def test_figures_for_every_scenario(path, tmp_path):
     scenario = load_scenario(path)
     keys = list(scenario.outcome_keys)
-    one = sweep_scenario(scenario, keys[:1])
+    one = sweep_scenario(scenario, keys[:1], lp_points=8)
     written = write_outputs(tmp_path / "one", one.output_files())
     two = sweep_scenario(scenario, keys[:2])
     written += write_outputs(tmp_path / "two", two.output_files(table_points=5))
     figures = [p for p in written if p.suffix in (".png", ".svg")]
-    assert sorted(p.name for p in figures) == sorted(["sweep_shares.png", "sweep_shares.svg", "sweep_regret.png",
-                                                      "sweep_regret.svg", "map_lenient.png", "map_lenient.svg"])
+    stems = ["sweep_shares", "sweep_regret", "map_lenient"] + (["sweep_prices"] if one.constrained is not None else [])
+    assert sorted(p.name for p in figures) == sorted(f"{stem}.{fmt}" for stem in stems for fmt in ("png", "svg"))
+    assert (one.constrained is not None) == bool(scenario.sections.get("constraints"))
     for p in figures:
         assert p.stat().st_size > 10_000
         if p.suffix == ".png":
