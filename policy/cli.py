@@ -51,6 +51,31 @@ def command(fn):
 
 
 OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
+CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
+DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
+ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
+GroupBlindOption = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute.")
+PrincipalFairnessOption = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable).")
+MaxShareOption = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable).")
+MaxRateOption = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable).")
+IgnoreConstraintsOption = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]].")
+LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
+
+
+def _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver):
+    """Constraints added on the command line (as tables) and the LP settings in force."""
+    from dataclasses import replace
+
+    from .constrained import lp_settings_from_table
+    from .constraints import parse_constraint_text, shorthand_tables
+
+    added = [parse_constraint_text(text) for text in constraint or []]
+    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
+    settings = sc.sections.get("linear_program")
+    if solver is not None:
+        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
+        settings = replace(settings, solver=chosen.solver)
+    return added, settings
 
 
 def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
@@ -225,15 +250,15 @@ def _print_constrained(constrained) -> None:
 def solve(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     out: Path = OutOption,
-    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
-    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
-    constraint: Optional[List[str]] = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |)."),
-    group_blind: bool = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute."),
-    principal_fairness: Optional[List[str]] = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable)."),
-    max_share: Optional[List[str]] = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable)."),
-    max_rate: Optional[List[str]] = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable)."),
-    ignore_constraints: bool = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]]."),
-    solver: Optional[str] = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL."),
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    constraint: Optional[List[str]] = ConstraintOption,
+    group_blind: bool = GroupBlindOption,
+    principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
+    max_share: Optional[List[str]] = MaxShareOption,
+    max_rate: Optional[List[str]] = MaxRateOption,
+    ignore_constraints: bool = IgnoreConstraintsOption,
+    solver: Optional[str] = LPSolverOption,
 ):
     """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
@@ -241,20 +266,11 @@ def solve(
     optimal rule, its price and the constraint table. Exit code 3 and no files when the
     constraints cannot all hold.
     """
-    from dataclasses import replace
-
-    from .constrained import lp_settings_from_table
-    from .constraints import parse_constraint_text, shorthand_tables
     from .outputs import write_outputs
     from .pipeline import analyze, as_scenario
 
     sc = as_scenario(scenario)
-    added = [parse_constraint_text(text) for text in constraint or []]
-    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
-    settings = sc.sections.get("linear_program")
-    if solver is not None:
-        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
-        settings = replace(settings, solver=chosen.solver)
+    added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     paths = write_outputs(out, analysis.output_files())
@@ -278,6 +294,20 @@ def _ranges(values: Optional[List[str]]) -> Optional[list]:
     return out
 
 
+def _vary(text: Optional[str]) -> tuple:
+    if text is None:
+        return None, None
+    name, sep, values = text.rpartition("=")
+    try:
+        numbers = [float(v) for v in values.split(",") if v.strip()]
+    except ValueError:
+        numbers = []
+    if not sep or not name.strip() or not numbers:
+        raise InputError(f"--vary {text!r} must look like NAME=V1,V2,..., e.g. '#3 capacity=0.1,0.15,0.2' or 3=0.1,0.2.")
+    name = name.strip()
+    return (int(name) if name.isdigit() else name), numbers
+
+
 @command
 def sweep(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -294,33 +324,52 @@ def sweep(
     table_points: int = typer.Option(51, "--table-points", help="Grid points per axis written to map_grid.csv."),
     figure: Optional[List[str]] = typer.Option(None, "--figure", help="Figure format png or svg (repeatable; default both)."),
     no_figures: bool = typer.Option(False, "--no-figures", help="Write the tables only."),
-    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
-    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    constraint: Optional[List[str]] = ConstraintOption,
+    group_blind: bool = GroupBlindOption,
+    principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
+    max_share: Optional[List[str]] = MaxShareOption,
+    max_rate: Optional[List[str]] = MaxRateOption,
+    ignore_constraints: bool = IgnoreConstraintsOption,
+    solver: Optional[str] = LPSolverOption,
+    lp_points: int = typer.Option(50, "--lp-points", help="Ratios at which the constrained optimum is re-solved (one ratio, with constraints)."),
+    vary: Optional[str] = typer.Option(None, "--vary", help="Sweep a constraint's tolerance or cap too: NAME=V1,V2,... (NAME or its 1-based position)."),
+    duals_only: bool = typer.Option(False, "--duals-only", help="Price each constraint by its dual value only (no re-solve without it)."),
 ):
     """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     from .outputs import write_outputs
+    from .pipeline import as_scenario
     from .sweep import assumption_lines, sweep_scenario
 
+    sc = as_scenario(scenario)
+    added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
+    varied, values = _vary(vary)
     if table_points < 2:
         raise InputError(f"--table-points must be at least 2; got {table_points}.")
     formats = [] if no_figures else list(figure or ["png", "svg"])
     progress = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
                         TimeElapsedColumn(), console=err_console, transient=True)
     with progress:
-        task = progress.add_task("sweep", total=3)
+        task = progress.add_task("sweep", total=4)
 
         def step(what: str) -> None:
             progress.update(task, description=what, advance=1)
 
+        def point(done: int, total: int) -> None:
+            progress.update(task, description=f"constrained re-solves {done}/{total}")
+
         result = sweep_scenario(
-            scenario, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+            sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
             bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"), on_step=step)
+            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+            constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
+            vary=varied, vary_values=values, removal=not duals_only, on_step=step, on_point=point)
         files = result.output_files(formats, table_points)
         drawn = [name for name, content in files.items() if callable(content)]
-        progress.update(task, total=3 + len(drawn), description="drawing figures")
+        progress.update(task, total=4 + len(drawn), completed=4, description="drawing figures")
 
         def advancing(name, write):
             def run(path):
