@@ -1204,7 +1204,11 @@ class SweepResult:
 
     def __str__(self) -> str:
         text = str(self.sweep if self.sweep is not None else self.map)
-        return text + ("\n" + str(self.constrained) if self.constrained is not None else "")
+        if self.constrained is not None:
+            text += "\n" + str(self.constrained)
+        if "constraints" in self.settings:
+            text += "\nNote: " + self.settings["constraints"] + "."
+        return text
 
     def describe(self) -> dict[str, Any]:
         """Metadata written to sweep.json."""
