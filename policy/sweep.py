@@ -80,6 +80,9 @@ __all__ = [
     "sweep_scenario",
     "assumption_lines",
     "default_range",
+    "level_thresholds",
+    "lenient_replicates",
+    "LenientReplicates",
 ]
 
 #: relative tolerance under which two crossings of lines count as one point
@@ -1183,6 +1186,88 @@ def lenient_map(risk_levels: RiskLevels, costs: Costs, axes: Sequence[RatioAxis]
     margins = np.stack([_margins(risk_levels, costs, axes, index, len(groups), b, A, B) for b in bs])
     return LenientMap(tuple(axes), ((float(x0), float(x1)), (float(y0), float(y1))), scale, groups, weights,
                       risk_levels.level_values, risk_levels.level_labels, [_info(b) for b in bs], margins, A, B)
+
+
+# ----------------------------------------------------------------------------------------------
+# Replicates (bootstrap): the same exact answers for many re-estimated risk levels at once
+# ----------------------------------------------------------------------------------------------
+def level_thresholds(env: Envelope, n_levels: int) -> np.ndarray:
+    """For each row and level d < L - 1, the ratio above which the optimal level is harsher than d.
+
+    Returns
+    -------
+    ndarray of shape (n, L - 1)
+        t_d = the first breakpoint after which the level exceeds d (+inf if it never does, -inf
+        if it already does at r = -inf). For an outcome-cost sweep, where levels only grow,
+        level(r) > d exactly for r > t_d, so t_0 is where leniency ends.
+    """
+    n = env.n
+    out = np.full((n, n_levels - 1), np.inf)
+    out[env.levels[:, :1] > np.arange(n_levels - 1)[None, :]] = -np.inf
+    for s in range(env.breaks.shape[1] - 1, -1, -1):
+        real = s < env.count
+        after = env.levels[:, s + 1]
+        before = np.maximum.accumulate(env.levels[:, : s + 1], axis=1)[:, -1]
+        for d in range(n_levels - 1):
+            crosses = real & (before <= d) & (after > d)
+            out[crosses, d] = env.breaks[crosses, s]
+    return out
+
+
+def lenient_replicates(p: np.ndarray, weights: np.ndarray, costs: Costs, axis: RatioAxis, index: np.ndarray,
+                       n_groups: int, ratios: np.ndarray) -> dict[str, np.ndarray]:
+    """Share of cases for which leniency is optimal on a grid, and each rule cell's level
+    thresholds, for a batch of risk-level replicates at once.
+
+    Parameters
+    ----------
+    p : ndarray of shape (b, n_cells, J, L)
+        Outcome probabilities of each replicate.
+    weights : ndarray of shape (b, n_cells) or (n_cells,)
+        Cases per cell in each replicate.
+    costs : Costs
+        The scenario's costs (the swept outcome's cost is replaced along the ratio).
+    axis : RatioAxis
+    index : ndarray of shape (n_cells,)
+        Rule cell of each cell; ``n_groups`` rule cells.
+    ratios : ndarray of shape (P,)
+        Grid on which the lenient share is evaluated (exactly, at each point).
+
+    Returns
+    -------
+    dict
+        ``share_lenient`` (b, P) and ``thresholds`` (b, n_groups, L - 1) (see
+        :func:`level_thresholds`): the same numbers :func:`sweep_one` gives for each replicate,
+        from one lower envelope over all replicates' rule cells.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    b, n, J, L = p.shape
+    w = np.broadcast_to(np.asarray(weights, dtype=np.float64), (b, n))
+    fixed = costs.outcome.astype(np.float64).copy()
+    fixed[axis.outcome_index] = 0.0
+    base = costs.decision[None] + np.matmul(fixed, p)                 # (b, n, L)
+    slope = axis.reference_cost * p[:, :, axis.outcome_index, :]       # (b, n, L)
+    S = aggregation_matrix(index, n_groups, np.ones(n))
+    A = (S @ (w[..., None] * base).transpose(1, 0, 2).reshape(n, b * L)).reshape(n_groups, b, L)
+    B = (S @ (w[..., None] * slope).transpose(1, 0, 2).reshape(n, b * L)).reshape(n_groups, b, L)
+    env = lower_envelope(A.transpose(1, 0, 2).reshape(b * n_groups, L), B.transpose(1, 0, 2).reshape(b * n_groups, L))
+    W = (S @ w.T).T                                                    # (b, n_groups)
+    thresholds = level_thresholds(env, L).reshape(b, n_groups, L - 1)
+    lenient = env.level_at(np.asarray(ratios, dtype=np.float64)).reshape(len(ratios), b, n_groups) == 0
+    share = np.einsum("pbg,bg->bp", lenient, W) / W.sum(axis=1)[:, None]
+    return {"share_lenient": share, "thresholds": thresholds}
+
+
+class LenientReplicates:
+    """A picklable statistic for a bootstrap engine: ``(p, batch) -> lenient_replicates(...)``
+    with the replicate's cell weights ``batch.weights``."""
+
+    def __init__(self, costs: Costs, axis: RatioAxis, index: np.ndarray, n_groups: int, ratios: np.ndarray):
+        self.costs, self.axis, self.index, self.n_groups = costs, axis, index, n_groups
+        self.ratios = np.asarray(ratios, dtype=np.float64)
+
+    def __call__(self, p: np.ndarray, batch) -> dict[str, np.ndarray]:
+        return lenient_replicates(p, batch.weights, self.costs, self.axis, self.index, self.n_groups, self.ratios)
 
 
 # ----------------------------------------------------------------------------------------------

@@ -471,3 +471,32 @@ def test_cli_sweep_errors_write_nothing(tmp_path, capsys, args, message):
     code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o"] + args, capsys)
     assert code == 2 and message in err
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
+
+
+# -- replicates (what a bootstrap of the sweep computes) ------------------------------------------
+def test_replicate_statistics_equal_one_sweep_per_replicate(demo):
+    # Each replicate's lenient share and level thresholds equal a separate exact sweep on that
+    # replicate's risk levels and weights; the thresholds read as "harsher than d iff r > t_d",
+    # checked against numpy's argmin on a grid.
+    from dataclasses import replace
+
+    from policy.sweep import lenient_replicates, level_thresholds
+
+    _, _, rl, costs = demo
+    axis = ratio_axis(rl, costs, "new_violent")
+    index, groups = rl.layout.rule_index()
+    rng = np.random.default_rng(21)
+    b = 5
+    p = np.minimum.accumulate(np.clip(rl.p[None] * rng.uniform(0.7, 1.3, (b,) + rl.p.shape), 0, 1), axis=-1)
+    w = rl.weights[None] * rng.poisson(1.0, (b, rl.n_cells))
+    grid = np.linspace(0.0, 120.0, 61)
+    out = lenient_replicates(p, w, costs, axis, index, len(groups), grid)
+    assert out["share_lenient"].shape == (b, 61) and out["thresholds"].shape == (b, len(groups), rl.n_levels - 1)
+    for k in range(b):
+        r = replace(rl, p=p[k], weights=w[k].astype(float))
+        s = sweep_one(r, costs, axis, 0.0, 120.0)
+        np.testing.assert_allclose(out["share_lenient"][k], s.share_at(grid)[:, 0], atol=1e-12)
+        np.testing.assert_array_equal(out["thresholds"][k], level_thresholds(s.envelope, rl.n_levels))
+        level = optimal_rule(r, costs_at(costs, axis, 37.3)).level
+        for d in range(rl.n_levels - 1):
+            np.testing.assert_array_equal(level > d, 37.3 > out["thresholds"][k][:, d])
