@@ -123,7 +123,7 @@ def _frame(width: float, height: float, note_lines: Sequence[str], legend_rows: 
     return fig, axes, legend
 
 
-def _legend(legend_ax, handles, labels, ncol: int = 2, title: str | None = None, x: float = 0.0) -> None:
+def _legend(legend_ax, handles, labels, ncol: int = 2, title: str | None = None, x: float = 0.0):
     """A legend in the legend row, anchored at fraction ``x`` of its width (several may share a row)."""
     old = legend_ax.get_legend()
     leg = legend_ax.legend(handles, labels, loc="upper left", bbox_to_anchor=(x, 1.0), ncol=ncol, title=title,
