@@ -15,6 +15,8 @@ from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .uncertainty import BootstrapResult, bootstrap
+from .compare import Comparison, compare
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
@@ -35,6 +37,8 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "BootstrapResult",
+    "Comparison",
     "ConstrainedProblem",
     "ConstrainedRule",
     "ConstraintSpec",
@@ -55,7 +59,9 @@ __all__ = [
     "SolverError",
     "SweepResult",
     "analyze",
+    "bootstrap",
     "check",
+    "compare",
     "costs_from_scenario",
     "estimate",
     "estimate_risk_levels",
