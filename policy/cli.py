@@ -59,6 +59,13 @@ PrincipalFairnessOption = typer.Option(None, "--principal-fairness", help="Add p
 MaxShareOption = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable).")
 MaxRateOption = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable).")
 IgnoreConstraintsOption = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]].")
+ReplicatesOption = typer.Option(None, "--replicates", help="Bootstrap replicates (default: [uncertainty] replicates, 1000; 0: no intervals).")
+SeedOption = typer.Option(None, "--seed", help="Root seed of the bootstrap (default: [scenario] seed).")
+ResamplingOption = typer.Option(None, "--resampling", help="'poisson' or 'multinomial' (default: [uncertainty] resampling).")
+OutcomesOption = typer.Option(None, "--outcomes", help="'model' or 'cases' (default: [uncertainty] outcomes).")
+IntervalOption = typer.Option(None, "--interval", help="Coverage of the intervals (default: [uncertainty] interval, 0.95).")
+WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: every core); the output does not depend on it.")
+ProgressOption = typer.Option(True, "--progress/--no-progress", help="Show progress bars.")
 LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
@@ -336,6 +343,13 @@ def sweep(
     lp_points: int = typer.Option(50, "--lp-points", help="Ratios at which the constrained optimum is re-solved (one ratio, with constraints)."),
     vary: Optional[str] = typer.Option(None, "--vary", help="Sweep a constraint's tolerance or cap too: NAME=V1,V2,... (NAME or its 1-based position)."),
     duals_only: bool = typer.Option(False, "--duals-only", help="Price each constraint by its dual value only (no re-solve without it)."),
+    replicates: Optional[int] = ReplicatesOption,
+    seed: Optional[int] = SeedOption,
+    resampling: Optional[str] = ResamplingOption,
+    outcomes: Optional[str] = OutcomesOption,
+    interval: Optional[float] = IntervalOption,
+    workers: Optional[int] = WorkersOption,
+    progress: bool = ProgressOption,
 ):
     """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
@@ -350,31 +364,24 @@ def sweep(
     if table_points < 2:
         raise InputError(f"--table-points must be at least 2; got {table_points}.")
     formats = [] if no_figures else list(figure or ["png", "svg"])
-    progress = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
-                        TimeElapsedColumn(), console=err_console, transient=True)
-    with progress:
-        task = progress.add_task("sweep", total=4)
-
-        def step(what: str) -> None:
-            progress.update(task, description=what, advance=1)
-
-        def point(done: int, total: int) -> None:
-            progress.update(task, description=f"constrained re-solves {done}/{total}")
-
-        result = sweep_scenario(
-            sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
-            bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
-            constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
-            vary=varied, vary_values=values, removal=not duals_only, on_step=step, on_point=point)
-        files = result.output_files(formats, table_points)
-        drawn = [name for name, content in files.items() if callable(content)]
-        progress.update(task, total=4 + len(drawn), completed=4, description="drawing figures")
+    result = sweep_scenario(
+        sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+        bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
+        outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+        constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
+        vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
+        interval=interval, outcomes=outcomes, workers=workers, progress=progress)
+    files = result.output_files(formats, table_points)
+    drawn = [name for name, content in files.items() if callable(content)]
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
+                   TimeElapsedColumn(), console=err_console, transient=True, disable=not progress)
+    with bar:
+        task = bar.add_task("sweep: drawing figures", total=len(drawn))
 
         def advancing(name, write):
             def run(path):
                 write(path)
-                progress.update(task, advance=1, description=f"drew {name}")
+                bar.update(task, advance=1, description=f"sweep: drew {name}")
             return run
 
         paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()})
@@ -421,13 +428,13 @@ def _comparison_table(comparison) -> Table:
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     out: Path = OutOption,
-    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates (default: [uncertainty] replicates, 1000)."),
-    seed: Optional[int] = typer.Option(None, help="Root seed of the bootstrap (default: [scenario] seed)."),
-    resampling: Optional[str] = typer.Option(None, help="'poisson' or 'multinomial' (default: [uncertainty] resampling)."),
-    outcomes: Optional[str] = typer.Option(None, help="'model' or 'cases' (default: [uncertainty] outcomes)."),
-    interval: Optional[float] = typer.Option(None, help="Coverage of the intervals (default: [uncertainty] interval, 0.95)."),
-    workers: Optional[int] = typer.Option(None, help="Worker processes (default: every core); the output does not depend on it."),
-    progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+    replicates: Optional[int] = ReplicatesOption,
+    seed: Optional[int] = SeedOption,
+    resampling: Optional[str] = ResamplingOption,
+    outcomes: Optional[str] = OutcomesOption,
+    interval: Optional[float] = IntervalOption,
+    workers: Optional[int] = WorkersOption,
+    progress: bool = ProgressOption,
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from .compare import compare as run_compare

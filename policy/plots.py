@@ -172,13 +172,15 @@ def share_figure(sweep: OneRatioSweep, bands: dict | None = None, constrained=No
     ----------
     sweep : OneRatioSweep
     bands : dict, optional
-        ``{"x": (n,), "low": (n,), "high": (n,), "label": str}``: an interval band around the
-        lenient share (from the bootstrap), drawn when given.
+        ``{"x": (n,), "low": (n,), "high": (n,), "label": str, "note": str}``: an interval band
+        around the lenient share (from the bootstrap), drawn when given; the note joins the footnote.
     constrained : ConstrainedSweep, optional
         Adds the lenient share of the constrained optimum at its grid points (declared bounds).
     """
     robust = sweep.robust
     lines = assumption_lines("robust_sweep" if len(robust) > 1 else "sweep", robust)
+    if bands is not None and bands.get("note"):
+        lines.insert(1, bands["note"])
     if constrained is not None:
         lines.insert(1, f"Markers: {sweep.level_labels[0]} under the constrained optimum ("
                         + "; ".join(spec.describe() for spec in constrained.specs) + "), re-solved at each marker.")

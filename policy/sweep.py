@@ -59,7 +59,7 @@ from .errors import InputError
 from .pipeline import as_scenario, estimate
 from .rules import Rule
 from .solve import aggregation_matrix, argmin_lenient, optimal_rule
-from .strata import RiskLevels
+from .strata import RiskLevelEstimator, RiskLevels
 
 __all__ = [
     "RatioAxis",
@@ -83,6 +83,8 @@ __all__ = [
     "level_thresholds",
     "lenient_replicates",
     "LenientReplicates",
+    "SweepBands",
+    "sweep_bands",
 ]
 
 #: relative tolerance under which two crossings of lines count as one point
@@ -1259,15 +1261,95 @@ def lenient_replicates(p: np.ndarray, weights: np.ndarray, costs: Costs, axis: R
 
 
 class LenientReplicates:
-    """A picklable statistic for a bootstrap engine: ``(p, batch) -> lenient_replicates(...)``
-    with the replicate's cell weights ``batch.weights``."""
+    """A picklable statistic for the bootstrap (:class:`policy.uncertainty.OnRiskLevels`):
+    ``(p, batch) -> lenient_replicates(...)`` with the replicate's cell weights, the thresholds
+    clipped to the range [lo, hi] (lo: harsher already at lo; hi: not harsher before hi)."""
 
-    def __init__(self, costs: Costs, axis: RatioAxis, index: np.ndarray, n_groups: int, ratios: np.ndarray):
+    def __init__(self, costs: Costs, axis: RatioAxis, index: np.ndarray, n_groups: int, ratios: np.ndarray,
+                 lo: float, hi: float):
         self.costs, self.axis, self.index, self.n_groups = costs, axis, index, n_groups
         self.ratios = np.asarray(ratios, dtype=np.float64)
+        self.lo, self.hi = float(lo), float(hi)
 
     def __call__(self, p: np.ndarray, batch) -> dict[str, np.ndarray]:
-        return lenient_replicates(p, batch.weights, self.costs, self.axis, self.index, self.n_groups, self.ratios)
+        out = lenient_replicates(p, batch.weights, self.costs, self.axis, self.index, self.n_groups, self.ratios)
+        out["thresholds"] = np.clip(out["thresholds"], self.lo, self.hi)
+        return out
+
+
+@dataclass(frozen=True)
+class SweepBands:
+    """Bootstrap percentile intervals of a one-ratio sweep.
+
+    Attributes
+    ----------
+    ratios : ndarray of shape (P,)
+        Display grid of the band.
+    share, lower, upper : ndarray of shape (P,)
+        Share of cases for which leniency is optimal (point estimate, exact) and its interval.
+    thresholds, thresholds_lower, thresholds_upper : ndarray of shape (n_groups, L - 1)
+        Each rule cell's level thresholds (:func:`level_thresholds`) clipped to the range, and
+        their intervals.
+    meta : dict
+        Replicates, seed, resampling, outcome draws, interval (:meth:`BootstrapResult.meta`).
+    label : str
+        E.g. "95% bootstrap percentile interval".
+    """
+
+    ratios: np.ndarray
+    share: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    thresholds: np.ndarray
+    thresholds_lower: np.ndarray
+    thresholds_upper: np.ndarray
+    meta: dict
+    label: str
+
+    def band_table(self, axis: RatioAxis) -> pd.DataFrame:
+        """``ratio``, ``cost``, ``share_lenient``, ``lower``, ``upper``."""
+        return pd.DataFrame({"ratio": self.ratios, "cost": self.ratios * axis.reference_cost,
+                             "share_lenient": self.share, "lower": self.lower, "upper": self.upper})
+
+    def threshold_table(self, sweep: "OneRatioSweep") -> pd.DataFrame:
+        """One row per rule cell and level d < L - 1: the rule columns, ``cases``,
+        ``harsher_than`` (label of level d), ``ratio`` (above it the optimal level is harsher than
+        d; clipped to the range), ``lower``, ``upper``, and the same in the cost unit."""
+        g, d = np.indices(self.thresholds.shape).reshape(2, -1)
+        out = _plain_groups(sweep.rule_cells).iloc[g].reset_index(drop=True)
+        out["cases"] = sweep.weights[g]
+        out["harsher_than"] = np.asarray(sweep.level_labels, dtype=object)[d]
+        for name, values in (("ratio", self.thresholds), ("lower", self.thresholds_lower), ("upper", self.thresholds_upper)):
+            out[name] = values.reshape(-1)
+        c = sweep.axis.reference_cost
+        out["cost"], out["cost_lower"], out["cost_upper"] = out["ratio"] * c, out["lower"] * c, out["upper"] * c
+        return out
+
+
+def sweep_bands(cells, risk_levels: RiskLevels, costs: Costs, sweep: "OneRatioSweep", estimator, replicates: int,
+                seed: int | None, method: str = "poisson", level: float = 0.95, outcomes: str = "model",
+                points: int = 200, workers: int | None = None, runner=None, progress: bool = False) -> SweepBands:
+    """Bootstrap bands on the lenient share and intervals on each rule cell's thresholds.
+
+    Each replicate resamples the cell counts (:func:`policy.uncertainty.bootstrap`),
+    re-estimates the risk levels with ``estimator``, and recomputes the exact sweep of all its
+    rule cells at once (:func:`lenient_replicates`); the intervals are percentile intervals.
+    """
+    from .uncertainty import OnRiskLevels, bootstrap
+
+    space = np.geomspace if sweep.scale == "log" else np.linspace
+    grid = space(sweep.lo, sweep.hi, points)
+    index, groups = risk_levels.layout.rule_index(list(sweep.rule_cells.columns))
+    statistic = OnRiskLevels(LenientReplicates(costs, sweep.axis, index, len(groups), grid, sweep.lo, sweep.hi),
+                             estimator, estimator.design(cells.layout, len(cells.levels)))
+    result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
+                       progress=progress, description="sweep: bootstrap replicates",
+                       outcome_model=risk_levels.p if outcomes == "model" else None)
+    lower, upper = result.interval("share_lenient")
+    t_lower, t_upper = result.interval("thresholds")
+    thresholds = np.clip(level_thresholds(sweep.envelope, len(sweep.level_values)), sweep.lo, sweep.hi)
+    return SweepBands(grid, sweep.lenient_share_at(grid), lower, upper, thresholds, t_lower, t_upper,
+                      result.meta(), result.interval_label)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -1286,11 +1368,18 @@ class SweepResult:
     settings: dict[str, Any]
     #: the constrained optimum along the ratio (policy.sweep_constrained.ConstrainedSweep), when constraints apply
     constrained: Any = None
+    #: bootstrap intervals of the one-ratio sweep (SweepBands), when replicates were asked for
+    bands: SweepBands | None = None
 
     def __str__(self) -> str:
         text = str(self.sweep if self.sweep is not None else self.map)
         if self.constrained is not None:
             text += "\n" + str(self.constrained)
+        if self.bands is not None:
+            b = self.bands
+            i = int(np.argmin(np.abs(b.ratios - self.sweep.axis.scenario_ratio)))
+            text += (f"\nLenient share near the scenario's ratio ({b.ratios[i]:.4g}): {b.share[i]:.1%} "
+                     f"({b.lower[i]:.1%} to {b.upper[i]:.1%}, {b.label}, {b.meta['replicates']} replicates, seed {b.meta['seed']}).")
         if "constraints" in self.settings:
             text += "\nNote: " + self.settings["constraints"] + "."
         return text
@@ -1320,6 +1409,7 @@ class SweepResult:
                         "note": b.note} for b in self.assumptions],
             "summary": summary.to_dict(orient="records"),
             "constrained": self._describe_constrained(),
+            "uncertainty": self.bands.meta if self.bands is not None else None,
             "assumptions": assumptions,
             "cautions": list(CAUTIONS),
         }
@@ -1360,8 +1450,19 @@ class SweepResult:
             files["sweep_regret.csv"] = s.regret_table()
             files["sweep_lenient.csv"] = s.robust_table()
             files["sweep_lenient_shares.csv"] = s.robust_share_table()
-            c = self.constrained
-            figs = {"sweep_shares": lambda: plots.share_figure(s, constrained=c),
+            c, bands = self.constrained, self.bands
+            band = None
+            if bands is not None:
+                files["sweep_bands.csv"] = bands.band_table(s.axis)
+                files["sweep_threshold_intervals.csv"] = bands.threshold_table(s)
+                m = bands.meta
+                band = {"x": bands.ratios, "low": bands.lower, "high": bands.upper,
+                        "label": f"{s.level_labels[0]}: {bands.label.split(' bootstrap')[0]} interval",
+                        "note": (f"Band: {bands.label} of the share of cases at {s.level_labels[0]}, from "
+                                 f"{m['replicates']} bootstrap replicates ({m['resampling']} resampling of cases, "
+                                 f"outcomes from the {'estimated risk levels' if m['outcomes'] == 'model' else 'cases'}, "
+                                 f"seed {m['seed']}); each replicate re-estimates the risk levels.")}
+            figs = {"sweep_shares": lambda: plots.share_figure(s, band, constrained=c),
                     "sweep_regret": lambda: plots.regret_figure(s)}
             if c is not None:
                 files["sweep_constrained.csv"] = c.to_frame()
@@ -1385,6 +1486,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                    decision_costs: Mapping[str, float] | None = None, constraints: Sequence[Any] = (),
                    scenario_constraints: bool = True, lp_settings: Any = None, lp_points: int = 50,
                    vary: str | int | None = None, vary_values: Sequence[float] | None = None, removal: bool = True,
+                   replicates: int | None = None, seed: int | None = None, resampling: str | None = None,
+                   interval: float | None = None, outcomes: str | None = None, workers: int | None = None,
+                   runner: Any = None, progress: bool = False,
                    on_step: Callable[[str], None] | None = None,
                    on_point: Callable[[int, int], None] | None = None) -> SweepResult:
     """Sweep one cost ratio (exact curves) or two (exact lenient map) for a scenario.
@@ -1430,6 +1534,13 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         A constraint (name or 1-based position) whose tolerance or cap takes each value in turn.
     removal : bool
         Price each constraint by re-solving without it (else: dual values only).
+    replicates, seed, resampling, interval, outcomes : optional
+        Bootstrap bands (one ratio, data with counts): override the scenario's ``[uncertainty]``
+        settings and ``[scenario] seed``; 0 replicates: no bands.
+    workers, runner : optional
+        How the replicates run (:func:`policy.uncertainty.bootstrap`); the output does not depend on them.
+    progress : bool
+        Show progress bars (rich, on standard error) for the bootstrap and the constrained re-solves.
     on_step : callable, optional
         Called with a description after each stage (drives a progress bar).
     on_point : callable, optional
@@ -1479,14 +1590,41 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
             rules = [base_rule, lenient_all]
         s = sweep_one(rl, costs, axes[0], *box[0], rules=rules, assumptions=assumptions, scale=scale)
         step("exact sweep")
+        bands = None
+        if cells is not None:
+            from .uncertainty import UncertaintySettings, validate_settings
+
+            base = scenario.sections.get("uncertainty") or UncertaintySettings()
+            u = validate_settings(base.replicates if replicates is None else replicates,
+                                  base.interval if interval is None else interval,
+                                  base.resampling if resampling is None else resampling, "sweep:",
+                                  base.outcomes if outcomes is None else outcomes)
+            if u.replicates > 0:
+                bands = sweep_bands(cells, rl, costs, s, RiskLevelEstimator.from_scenario(scenario), u.replicates,
+                                    scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,
+                                    grid_points, workers, runner, progress)
+                step("bootstrap bands")
+        elif replicates:
+            raise InputError(f"{scenario.file}: bootstrap bands need the cases behind the estimates (a case or counts "
+                             "table, or the simulator); a risk-level table holds no counts to resample.")
         constrained = None
         if specs:
+            from .uncertainty import _progress
+
             lp = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
-            constrained = constrained_sweep(rl, costs, axes[0], ratio_grid(*box[0], lp_points, scale), specs, settings=lp,
-                                            vary=vary, values=vary_values, removal=removal, scale=scale,
-                                            unconstrained=s, on_point=on_point)
+            grid = ratio_grid(*box[0], lp_points, scale)
+            n_points = lp_points * (len(vary_values) if vary is not None and vary_values else 1)
+            with _progress(progress, "sweep: constrained re-solves", n_points) as advance:
+                def point(done: int, total: int) -> None:
+                    if advance is not None:
+                        advance(1)
+                    if on_point is not None:
+                        on_point(done, total)
+
+                constrained = constrained_sweep(rl, costs, axes[0], grid, specs, settings=lp, vary=vary, values=vary_values,
+                                                removal=removal, scale=scale, unconstrained=s, on_point=point)
             step("constrained re-solves")
-        return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained)
+        return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained, bands)
     if specs:
         settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"
     m = lenient_map(rl, costs, axes, box, assumptions=assumptions, scale=scale)

@@ -39,7 +39,8 @@ def _svg_text(path):
 def test_figures_for_every_scenario(path, tmp_path):
     scenario = load_scenario(path)
     keys = list(scenario.outcome_keys)
-    one = sweep_scenario(scenario, keys[:1], lp_points=8)
+    counts = scenario.data.kind != "risk_level_table"
+    one = sweep_scenario(scenario, keys[:1], lp_points=8, replicates=10 if counts else None, workers=1)
     written = write_outputs(tmp_path / "one", one.output_files())
     two = sweep_scenario(scenario, keys[:2])
     written += write_outputs(tmp_path / "two", two.output_files(table_points=5))
@@ -47,6 +48,8 @@ def test_figures_for_every_scenario(path, tmp_path):
     stems = ["sweep_shares", "sweep_regret", "map_lenient"] + (["sweep_prices"] if one.constrained is not None else [])
     assert sorted(p.name for p in figures) == sorted(f"{stem}.{fmt}" for stem in stems for fmt in ("png", "svg"))
     assert (one.constrained is not None) == bool(scenario.sections.get("constraints"))
+    # bands wherever there are counts to resample, and the figure says how they were made
+    assert (one.bands is not None) == counts
     for p in figures:
         assert p.stat().st_size > 10_000
         if p.suffix == ".png":
@@ -60,10 +63,11 @@ def test_figures_for_every_scenario(path, tmp_path):
             if p.stem == "sweep_shares":
                 for label in scenario.level_labels:
                     assert label in text
+                assert ("bootstrap replicates" in text) == counts
 
 
 def test_share_figure_draws_bands_and_is_reproducible(tmp_path, demo_scenario):
-    res = sweep_scenario(demo_scenario, ["new_offense"], gammas=[1.25])
+    res = sweep_scenario(demo_scenario, ["new_offense"], gammas=[1.25], replicates=0)
     s = res.sweep
     x = np.linspace(s.lo, s.hi, 30)
     mid = s.lenient_share_at(x)

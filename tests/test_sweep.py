@@ -441,19 +441,23 @@ def test_sweep_scenario_on_a_risk_level_table_has_no_robust_regions():
 
 def test_cli_sweep_writes_tables_and_figures(tmp_path, capsys):
     code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "one", "--ratio", "new_violent",
-                              "--range", "0:120", "--gamma", "1.25", "--figure", "svg"], capsys)
+                              "--range", "0:120", "--gamma", "1.25", "--figure", "svg", "--replicates", "20",
+                              "--workers", "1", "--seed", "5"], capsys)
     assert code == 0, err
     files = sorted(p.name for p in (tmp_path / "one").iterdir())
     assert files == sorted(["sweep.json", "sweep_breakpoints.csv", "sweep_lenient.csv", "sweep_lenient_shares.csv",
                             "sweep_regret.csv", "sweep_segments.csv", "sweep_shares.csv", "sweep_shares.svg",
-                            "sweep_regret.svg"])
+                            "sweep_regret.svg", "sweep_bands.csv", "sweep_threshold_intervals.csv"])
+    bands = pd.read_csv(tmp_path / "one" / "sweep_bands.csv")
+    assert (bands["lower"] <= bands["upper"] + 1e-12).all() and bands["ratio"].between(0, 120).all()
+    assert json.loads((tmp_path / "one" / "sweep.json").read_text())["uncertainty"]["replicates"] == 20
     meta = json.loads((tmp_path / "one" / "sweep.json").read_text())
     assert meta["ranges"] == [[0.0, 120.0]] and meta["gammas"] == [1.25]
     assert meta["ratios"][0]["outcome"] == "new_violent" and meta["cautions"]
     assert "Cautions" in out and "Gamma = 1.25" in out
     code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "two", "--ratio", "new_violent",
                               "--ratio", "missed_court", "--range", "1:120", "--range", "0.05:2", "--scale", "log",
-                              "--table-points", "7", "--no-figures"], capsys)
+                              "--table-points", "7", "--no-figures", "--replicates", "0"], capsys)
     assert code == 0, err
     grid = pd.read_csv(tmp_path / "two" / "map_grid.csv")
     assert len(grid) == 49 * grid["assumption"].nunique()
@@ -468,7 +472,7 @@ def test_cli_sweep_writes_tables_and_figures(tmp_path, capsys):
     (["--ratio", "new_offense", "--figure", "gif"], "figure format"),
 ])
 def test_cli_sweep_errors_write_nothing(tmp_path, capsys, args, message):
-    code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o"] + args, capsys)
+    code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o", "--replicates", "0"] + args, capsys)
     assert code == 2 and message in err
     assert not (tmp_path / "o").exists() or not any((tmp_path / "o").iterdir())
 
@@ -500,3 +504,27 @@ def test_replicate_statistics_equal_one_sweep_per_replicate(demo):
         level = optimal_rule(r, costs_at(costs, axis, 37.3)).level
         for d in range(rl.n_levels - 1):
             np.testing.assert_array_equal(level > d, 37.3 > out["thresholds"][k][:, d])
+
+
+def test_bootstrap_bands_are_reproducible_and_centred_on_the_exact_sweep(demo_scenario):
+    # Same seed, same bands; the bands come from re-estimated replicates (policy.uncertainty), and
+    # their point is the exact sweep of the estimates.
+    from policy.sweep import LenientReplicates
+
+    kw = dict(gammas=[], bounds=False, replicates=40, seed=11, workers=1, grid_points=41)
+    a = sweep_scenario(demo_scenario, ["new_offense"], **kw)
+    b = sweep_scenario(demo_scenario, ["new_offense"], **kw)
+    for name in ("lower", "upper", "thresholds_lower", "thresholds_upper"):
+        np.testing.assert_array_equal(getattr(a.bands, name), getattr(b.bands, name))
+    s, bands = a.sweep, a.bands
+    index, groups = a.risk_levels.layout.rule_index()
+    point = LenientReplicates(a.costs, s.axis, index, len(groups), bands.ratios, s.lo, s.hi)(
+        a.risk_levels.p[None], type("Batch", (), {"weights": a.risk_levels.weights[None]})())
+    np.testing.assert_allclose(point["share_lenient"][0], bands.share, atol=1e-12)
+    np.testing.assert_array_equal(point["thresholds"][0], bands.thresholds)
+    assert (bands.lower <= bands.upper + 1e-12).all()
+    assert ((bands.thresholds_lower >= s.lo) & (bands.thresholds_upper <= s.hi)).all()
+    c = sweep_scenario(demo_scenario, ["new_offense"], **{**kw, "seed": 12})
+    assert not np.array_equal(a.bands.lower, c.bands.lower) or not np.array_equal(a.bands.upper, c.bands.upper)
+    with pytest.raises(InputError, match="counts"):
+        sweep_scenario(SCENARIOS / "risk_level_table.toml", ["new_offense"], replicates=10)

@@ -110,7 +110,7 @@ def test_bad_requests():
 def test_scenario_sweep_with_the_demo_constraints(tmp_path, capsys):
     code, out, err = run_cli(["sweep", SCENARIOS / "demo_constrained.toml", "--out", tmp_path, "--ratio", "new_offense",
                               "--lp-points", "6", "--vary", "at most 15% held=0.1,0.2", "--figure", "svg",
-                              "--gamma", "1.25"], capsys)
+                              "--gamma", "1.25", "--replicates", "0"], capsys)
     assert code == 0, err
     frame = pd.read_csv(tmp_path / "sweep_constrained.csv")
     prices = pd.read_csv(tmp_path / "sweep_constraint_prices.csv")
@@ -131,14 +131,14 @@ def test_scenario_sweep_with_the_demo_constraints(tmp_path, capsys):
     (["--ratio", "new_offense", "--vary", "at most"], "NAME=V1,V2"),
 ])
 def test_cli_constrained_sweep_errors(tmp_path, capsys, args, message):
-    code, out, err = run_cli(["sweep", SCENARIOS / "demo_constrained.toml", "--out", tmp_path / "o", "--lp-points", "3"]
-                             + args, capsys)
+    code, out, err = run_cli(["sweep", SCENARIOS / "demo_constrained.toml", "--out", tmp_path / "o", "--lp-points", "3",
+                              "--replicates", "0"] + args, capsys)
     assert code == 2 and message in err
     assert not (tmp_path / "o").exists()
 
 
 def test_no_constraints_means_no_constrained_outputs():
     res = sweep_scenario(SCENARIOS / "demo_constrained.toml", ["new_offense"], scenario_constraints=False,
-                         gammas=[], bounds=False)
+                         gammas=[], bounds=False, replicates=0)
     assert res.constrained is None
     assert not any(name.startswith("sweep_constrain") for name in res.output_files([]))
