@@ -364,6 +364,9 @@ def sweep(
     if table_points < 2:
         raise InputError(f"--table-points must be at least 2; got {table_points}.")
     formats = [] if no_figures else list(figure or ["png", "svg"])
+    unknown = [f for f in formats if f not in ("png", "svg")]
+    if unknown:
+        raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
     result = sweep_scenario(
         sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
         bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,

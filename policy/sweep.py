@@ -1568,6 +1568,18 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     step("estimated risk levels")
+    u = None  # bootstrap settings, checked before any long computation
+    if cells is not None and len(ratios) == 1:
+        from .uncertainty import UncertaintySettings, validate_settings
+
+        base = scenario.sections.get("uncertainty") or UncertaintySettings()
+        u = validate_settings(base.replicates if replicates is None else replicates,
+                              base.interval if interval is None else interval,
+                              base.resampling if resampling is None else resampling, "sweep:",
+                              base.outcomes if outcomes is None else outcomes)
+    elif cells is None and replicates:
+        raise InputError(f"{scenario.file}: bootstrap bands need the cases behind the estimates (a case or counts "
+                         "table, or the simulator); a risk-level table holds no counts to resample.")
     axes = [ratio_axis(rl, costs, r, per) for r in ratios]
     ranges = list(ranges) if ranges is not None else [None] * len(axes)
     if len(ranges) != len(axes):
@@ -1590,23 +1602,6 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
             rules = [base_rule, lenient_all]
         s = sweep_one(rl, costs, axes[0], *box[0], rules=rules, assumptions=assumptions, scale=scale)
         step("exact sweep")
-        bands = None
-        if cells is not None:
-            from .uncertainty import UncertaintySettings, validate_settings
-
-            base = scenario.sections.get("uncertainty") or UncertaintySettings()
-            u = validate_settings(base.replicates if replicates is None else replicates,
-                                  base.interval if interval is None else interval,
-                                  base.resampling if resampling is None else resampling, "sweep:",
-                                  base.outcomes if outcomes is None else outcomes)
-            if u.replicates > 0:
-                bands = sweep_bands(cells, rl, costs, s, RiskLevelEstimator.from_scenario(scenario), u.replicates,
-                                    scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,
-                                    grid_points, workers, runner, progress)
-                step("bootstrap bands")
-        elif replicates:
-            raise InputError(f"{scenario.file}: bootstrap bands need the cases behind the estimates (a case or counts "
-                             "table, or the simulator); a risk-level table holds no counts to resample.")
         constrained = None
         if specs:
             from .uncertainty import _progress
@@ -1624,6 +1619,12 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                 constrained = constrained_sweep(rl, costs, axes[0], grid, specs, settings=lp, vary=vary, values=vary_values,
                                                 removal=removal, scale=scale, unconstrained=s, on_point=point)
             step("constrained re-solves")
+        bands = None
+        if u is not None and u.replicates > 0:
+            bands = sweep_bands(cells, rl, costs, s, RiskLevelEstimator.from_scenario(scenario), u.replicates,
+                                scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,
+                                grid_points, workers, runner, progress)
+            step("bootstrap bands")
         return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained, bands)
     if specs:
         settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"

@@ -470,6 +470,7 @@ def test_cli_sweep_writes_tables_and_figures(tmp_path, capsys):
     (["--ratio", "new_offense", "--range", "0:1", "--scale", "log"], "log scale"),
     (["--ratio", "new_offense", "--gamma", "0.5"], "Gamma"),
     (["--ratio", "new_offense", "--figure", "gif"], "figure format"),
+    (["--ratio", "new_offense", "--resampling", "jackknife"], "resampling"),
 ])
 def test_cli_sweep_errors_write_nothing(tmp_path, capsys, args, message):
     code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o", "--replicates", "0"] + args, capsys)
