@@ -51,6 +51,8 @@ __all__ = ["BLOCK_ROWS", "stream_cell_table", "id_keys"]
 BLOCK_ROWS = CHUNK_ROWS
 #: at most this many distinct id lengths are hashed group by group; beyond, pandas hashes them
 _MAX_ID_LENGTHS = 64
+#: rows per batch read from Parquet (blocks are assembled from them)
+READ_BATCH_ROWS = 1 << 16
 
 
 # ----------------------------------------------------------------------------------------------
@@ -122,26 +124,34 @@ class _Source:
         held = 0
         done = 0
         try:
-            batches = self.file.iter_batches(batch_size=self.block_rows, columns=columns, use_threads=True)
+            # small batches: a block is cut at an exact row count, and the rest of a batch it cuts
+            # keeps that whole batch in memory
+            batches = self.file.iter_batches(batch_size=min(self.block_rows, READ_BATCH_ROWS), columns=columns, use_threads=True)
             for batch in batches:
                 pending.append(batch)
                 held += batch.num_rows
                 while held >= self.block_rows:
                     table = pa.Table.from_batches(pending)
-                    head, rest = table.slice(0, self.block_rows), table.slice(self.block_rows)
+                    rest = table.slice(self.block_rows)
                     pending, held = rest.to_batches(), rest.num_rows
+                    frame = self._frame(table.slice(0, self.block_rows))
+                    del table, rest  # only the pandas block stays alive while it is counted
                     done += self.block_rows
-                    yield self._frame(head), done
+                    yield frame, done
             if held or not done:
                 table = pa.Table.from_batches(pending) if pending else self.file.schema_arrow.empty_table().select(columns)
-                yield self._frame(table), done + table.num_rows
+                pending = []
+                frame = self._frame(table)
+                done += table.num_rows
+                del table
+                yield frame, done
         except InputError:
             raise
         except (OSError, ValueError, pa.ArrowException) as exc:
             raise InputError(f"{self.path.name}: not a readable Parquet file ({exc}).") from None
 
     def _frame(self, table) -> pd.DataFrame:
-        frame = table.to_pandas()
+        frame = table.to_pandas(split_blocks=True)
         frame.attrs["file"] = self.path.name
         frame.attrs["format"] = "parquet"
         return frame
