@@ -86,7 +86,7 @@ class _Source:
             # text columns arrive as categoricals, except ``plain`` ones (case ids: all distinct)
             self.dictionary = [c for c in columns if c not in plain and (pa.types.is_string(schema.field(c).type)
                                or pa.types.is_large_string(schema.field(c).type))]
-            self.file = pq.ParquetFile(path, read_dictionary=self.dictionary)
+            self.file = pq.ParquetFile(path, read_dictionary=self.dictionary, pre_buffer=False)
             self.total = self.file.metadata.num_rows
             self.unit = "rows"
         elif self.kind == "csv":

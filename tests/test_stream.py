@@ -202,4 +202,5 @@ def test_twenty_million_rows_in_bounded_memory(tmp_path, demo_scenario):
     # reference: pandas value_counts of the decisions of the million rows repeated 20 times (common practice)
     expected = base["decision"].value_counts().reindex(list(demo_scenario.level_values)).to_numpy() * 20
     assert got["per_level"] == expected.tolist()
+    print(got)
     assert got["peak_mb"] < MEMORY_BOUND_MB, got
