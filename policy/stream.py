@@ -52,7 +52,7 @@ BLOCK_ROWS = CHUNK_ROWS
 #: at most this many distinct id lengths are hashed group by group; beyond, pandas hashes them
 _MAX_ID_LENGTHS = 64
 #: rows per batch read from Parquet (blocks are assembled from them)
-READ_BATCH_ROWS = 1 << 16
+READ_BATCH_ROWS = 1 << 18
 
 
 # ----------------------------------------------------------------------------------------------
@@ -151,7 +151,8 @@ class _Source:
             raise InputError(f"{self.path.name}: not a readable Parquet file ({exc}).") from None
 
     def _frame(self, table) -> pd.DataFrame:
-        frame = table.to_pandas(split_blocks=True)
+        # contiguous columns first: converting 16 chunks of dictionaries costs 3x more (measured)
+        frame = table.combine_chunks().to_pandas(split_blocks=True)
         frame.attrs["file"] = self.path.name
         frame.attrs["format"] = "parquet"
         return frame
@@ -179,23 +180,17 @@ class _Source:
                 raise InputError(f"{self.path.name}: not a well-formed CSV file ({exc}).") from None
 
 
-def _prefetched(items: Iterator[Any], prepare: Callable[[Any], Any] = lambda item: item) -> Iterator[Any]:
-    """Iterate ``prepare(item)`` over ``items``, the next one read and prepared in a background
-    thread (reading, decoding and hashing a block release the GIL, so they overlap with
-    counting the previous one)."""
+def _prefetched(items: Iterator[Any]) -> Iterator[Any]:
+    """Iterate ``items`` with the next one read in a background thread (reading and decoding a
+    block release the GIL, so they overlap with counting the previous one)."""
     sentinel = object()
-
-    def step():
-        item = next(items, sentinel)
-        return item if item is sentinel else prepare(item)
-
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="policy-read") as pool:
-        future = pool.submit(step)
+        future = pool.submit(next, items, sentinel)
         while True:
             item = future.result()
             if item is sentinel:
                 return
-            future = pool.submit(step)
+            future = pool.submit(next, items, sentinel)
             yield item
 
 
@@ -485,11 +480,8 @@ def stream_cell_table(path: str | Path, scenario: Scenario, what: str | None = N
     ids = _IdCheck(id_column, source.total if source.kind == "parquet" else None) if id_column else None
     with _progress_bar(progress, source, file) as advance:
         start = 0
-        def with_keys(item):
-            frame, position = item
-            return frame, position, id_keys(frame[id_column]) if id_column else None
-
-        for frame, position, keys in _prefetched(source.blocks(), with_keys):
+        for frame, position in _prefetched(source.blocks()):
+            keys = id_keys(frame[id_column]) if id_column else None
             n = len(frame)
             try:
                 with rows_from(start):
