@@ -1,7 +1,8 @@
 """The command line: parse, call one library function, write its files, print a summary.
 
 No numerics live here. Exit codes: 0 success, 2 bad input, 3 constraints that cannot all hold,
-4 solver trouble, 1 anything unexpected.
+4 solver trouble, 5 tasks that could not be run to the end where they were sent (--run-on),
+1 anything unexpected.
 """
 
 from __future__ import annotations
