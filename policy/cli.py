@@ -193,6 +193,25 @@ def solve(
     show_written(paths)
 
 
+@command
+def report(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Start from another outcome cost: KEY=NUMBER (repeatable)."),
+    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
+):
+    """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
+    from .outputs import write_outputs
+    from .report import build_report
+
+    built = build_report(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"))
+    paths = write_outputs(out, built.output_files())
+    console.print(str(built))
+    show_cautions()
+    show_written(paths)
+    console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
+
+
 def main(argv: Optional[List[str]] = None) -> int:
     """Run the command line; return the exit code."""
     try:

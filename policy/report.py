@@ -1,0 +1,598 @@
+"""The committee report: one self-contained HTML file assembled from the stages' result objects.
+
+The report computes nothing itself. Each section is built from a result object (the analysis,
+and the results of later stages when they are given) into a :class:`Section`: a template under
+``policy/templates/`` and the already-formatted figures it shows. The page embeds, as a JSON
+data island, the per-cell outcome probabilities, weights and decision costs, so that its live
+cost controls can re-run in plain JavaScript the same argmin as :func:`policy.solve.optimal_rule`
+(ties to the more lenient level within :data:`policy.solve.TIE_TOLERANCE`) and the same sums as
+:func:`policy.evaluate.evaluate`.
+
+Everything a scenario supplies (titles, labels, category values, cost sources) reaches the page
+through jinja2's autoescaping or through the data island, whose JSON has ``<``, ``>``, ``&``,
+U+2028 and U+2029 written as ``\\u`` escapes, and the script writes it with ``textContent`` only.
+The file requests nothing from any network: no external script, font, style sheet or image.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from jinja2 import Environment, PackageLoader, StrictUndefined
+from markupsafe import Markup
+
+from .cautions import CAUTIONS, assumptions_for
+from .pipeline import Analysis, analyze, as_scenario
+from .rules import Rule
+from .scenario import Scenario
+from .solve import TIE_TOLERANCE
+
+__all__ = [
+    "Report",
+    "ReportResults",
+    "Section",
+    "TableView",
+    "build_report",
+    "render_report",
+    "report_sections",
+    "live_data",
+    "json_for_script",
+    "SECTION_BUILDERS",
+]
+
+#: Okabe-Ito colours (Okabe and Ito 2008, "Color Universal Design"), lenient to harsh
+LEVEL_COLOURS = {2: ("#009E73", "#D55E00"), 3: ("#009E73", "#0072B2", "#D55E00")}
+LEVEL_COLOURS_MANY = ("#009E73", "#56B4E9", "#0072B2", "#E69F00", "#D55E00", "#CC79A7", "#F0E442", "#000000")
+#: digits after the point of each kind of figure, on the page and in the JavaScript alike
+DIGITS = {"share": 1, "rate": 2, "cost": 0}
+
+
+# ----------------------------------------------------------------------------------------------
+# Formatting (presentation only)
+# ----------------------------------------------------------------------------------------------
+def fmt_pct(value: float, digits: int = 1) -> str:
+    """A fraction as a percentage, e.g. 0.1234 -> '12.3%'; missing as an en dash."""
+    if value is None or not math.isfinite(float(value)):
+        return "\u2013"
+    return f"{100.0 * float(value):.{digits}f}%"
+
+
+def fmt_num(value: float, digits: int = 0) -> str:
+    """A number with thousands separators, e.g. 12345.6 -> '12,346'; missing as an en dash."""
+    if value is None or not math.isfinite(float(value)):
+        return "\u2013"
+    text = f"{float(value):,.{digits}f}"
+    return "0" if text in ("-0", "-0.0") and digits == 0 else text
+
+
+def input_value(value: float) -> str:
+    """A number as an HTML number input's value: the shortest round-trip text, '1000' not '1000.0'."""
+    text = repr(float(value))
+    return text[:-2] if text.endswith(".0") else text
+
+
+def level_colours(n_levels: int) -> list[str]:
+    """Colours of decision levels 0..n-1, lenient to harsh (Okabe-Ito)."""
+    if n_levels in LEVEL_COLOURS:
+        return list(LEVEL_COLOURS[n_levels])
+    return [LEVEL_COLOURS_MANY[i % len(LEVEL_COLOURS_MANY)] for i in range(n_levels)]
+
+
+def risk_level_colours(n: int) -> list[str]:
+    """Colours of risk levels 0..n-1 (safe to not preventable) from matplotlib's ``cividis``,
+    a sequential map readable with colour-vision deficiency (Nunez, Anderton and Renslow 2018)."""
+    from matplotlib import colormaps
+    from matplotlib.colors import to_hex
+
+    cmap = colormaps["cividis"]
+    return [to_hex(cmap(1.0 - i / max(n - 1, 1) * 0.9)) for i in range(n)]
+
+
+def json_for_script(obj: Any) -> Markup:
+    """JSON text that is safe inside ``<script type="application/json">``.
+
+    ``<``, ``>`` and ``&`` become ``\\u003c``, ``\\u003e``, ``\\u0026`` (so no ``</script>`` or
+    ``<!--`` can appear), and U+2028/U+2029 become ``\\u2028``/``\\u2029``. ``JSON.parse``
+    reads the escapes back as the original characters. Non-finite numbers are an error.
+    """
+    text = json.dumps(obj, separators=(",", ":"), allow_nan=False, ensure_ascii=False)
+    for char, escape in (("&", "\\u0026"), ("<", "\\u003c"), (">", "\\u003e"),
+                         ("\u2028", "\\u2028"), ("\u2029", "\\u2029")):
+        text = text.replace(char, escape)
+    return Markup(text)
+
+
+@dataclass(frozen=True)
+class TableView:
+    """A table as the page shows it: caption, header and already formatted cells.
+
+    ``numeric`` marks right-aligned columns; ``row_header`` the leading columns that name a row
+    (rendered as ``<th scope="row">``).
+    """
+
+    caption: str
+    columns: tuple[str, ...]
+    rows: tuple[tuple[str, ...], ...]
+    numeric: tuple[bool, ...] = ()
+    row_header: int = 1
+    note: str = ""
+
+    @classmethod
+    def from_frame(cls, frame: pd.DataFrame, caption: str, formats: Mapping[str, Callable[[Any], str]] | None = None,
+                   row_header: int = 1, note: str = "", rename: Mapping[str, str] | None = None) -> "TableView":
+        """Format a DataFrame: each column by ``formats[column]`` (default ``str``)."""
+        formats = dict(formats or {})
+        cols = list(frame.columns)
+        rows = tuple(
+            tuple(formats.get(c, _plain)(v) for c, v in zip(cols, values))
+            for values in frame.itertuples(index=False, name=None)
+        )
+        numeric = tuple(c in formats for c in cols)
+        names = tuple((rename or {}).get(c, str(c)) for c in cols)
+        return cls(caption, names, rows, numeric, row_header, note)
+
+
+def _plain(value: Any) -> str:
+    if isinstance(value, float) and not math.isfinite(value):
+        return "\u2013"
+    return str(value)
+
+
+@dataclass(frozen=True)
+class Bar:
+    """One stacked bar: a label and (name, share, colour) segments; the numbers are in a table beside."""
+
+    label: str
+    segments: tuple[tuple[str, float, str], ...]
+
+
+# ----------------------------------------------------------------------------------------------
+# Sections
+# ----------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Section:
+    """One part of the report.
+
+    Attributes
+    ----------
+    key : str
+        The section's anchor (``id``) on the page.
+    title : str
+    template : str
+        Template under ``policy/templates/`` that renders ``context``.
+    context : mapping
+        What the template shows, formatted from result objects.
+    assumptions : tuple of str
+        The assumptions the section's figures rest on (:mod:`policy.cautions`), shown beside them.
+    files : mapping
+        Tidy tables written beside ``report.html`` (name -> DataFrame or JSON object).
+    """
+
+    key: str
+    title: str
+    template: str
+    context: Mapping[str, Any] = field(default_factory=dict)
+    assumptions: tuple[str, ...] = ()
+    files: Mapping[str, Any] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class ReportResults:
+    """The result objects a report is assembled from.
+
+    Only ``analysis`` is required; each later stage's result adds its sections when given.
+    """
+
+    analysis: Analysis
+
+    @property
+    def scenario(self) -> Scenario:
+        return self.analysis.scenario
+
+    def compared_rules(self) -> list[tuple[Rule, str]]:
+        """Rules whose regret the live controls recompute, each with a note on what it is."""
+        a = self.analysis
+        return [(a.rule, "the cost-minimizing rule at the scenario's own costs, held fixed while the costs move")]
+
+
+def scenario_section(results: ReportResults) -> Section:
+    """The question and the scenario: decision levels, outcome kinds, costs with units and sources."""
+    sc, costs = results.scenario, results.analysis.costs
+    unit = costs.unit or "(no unit given)"
+    levels = []
+    for d, level in enumerate(sc.levels):
+        if level.cost is not None:
+            cost = fmt_num(level.cost, 0)
+        else:
+            mean = float(np.average(costs.decision[:, d], weights=results.analysis.risk_levels.weights))
+            cost = f"per case from column {level.cost_column} (mean {fmt_num(mean, 0)})"
+        levels.append((str(d), level.label, level.value, cost, level.cost_source or "(no source given)"))
+    outcomes = [(o.label, o.key, fmt_num(o.cost, 0), o.cost_source or "(no source given)") for o in sc.outcomes]
+    return Section(
+        key="scenario",
+        title="The question and the scenario",
+        template="sections/scenario.html.j2",
+        context={
+            "description": sc.description.strip(),
+            "file": sc.file,
+            "unit": unit,
+            "cost_note": sc.cost_note,
+            "levels": TableView(f"Decision levels, most lenient first (costs in {unit} per case)",
+                                ("level", "label", "value in the data", f"cost ({unit})", "source of the cost"),
+                                tuple(levels), (True, False, False, True, False)),
+            "outcomes": TableView(f"Outcome kinds (costs in {unit} per adverse outcome)",
+                                  ("outcome", "key", f"cost ({unit})", "source of the cost"),
+                                  tuple(outcomes), (False, False, True, False)),
+            "rule_columns": list(results.analysis.rule.rule_cells.columns),
+            "protected": list(sc.protected),
+            "covariates": list(sc.covariates),
+            "seed": sc.seed,
+        },
+        assumptions=(assumptions_for("rule")[-1],),
+    )
+
+
+def data_section(results: ReportResults) -> Section:
+    """The data: cases, cells, arms, sparse cells."""
+    a = results.analysis
+    sparse_below = a.scenario.estimator.sparse_below
+    rows: list[tuple[str, str]] = [("source", a.risk_levels.source)]
+    if a.cells is not None:
+        s = a.cells.summary(sparse_below)
+        rows += [
+            ("cases", fmt_num(s["cases"])),
+            ("cells (combinations of the cell covariates)", fmt_num(s["cells"])),
+            ("median cases per cell", fmt_num(s["median_cases_per_cell"], 1)),
+            (f"sparse cells (fewer than {sparse_below} cases)",
+             f"{fmt_num(s['sparse_cells'])} cells holding {fmt_num(s['cases_in_sparse_cells'])} cases"),
+        ]
+        if a.cells.has_arm:
+            rows.append(("cases per arm (aid shown = 1, not shown = 0)",
+                         "; ".join(f"{arm}: {fmt_num(n)}" for arm, n in s["cases_per_arm"].items())))
+        else:
+            rows.append(("arms", "no arm column: the aid's effect cannot be estimated"))
+        label = dict(zip(a.scenario.level_values, a.scenario.level_labels))
+        rows.append(("cases per decision level",
+                     "; ".join(f"{label.get(k, k)}: {fmt_num(n)}" for k, n in s["cases_per_level"].items())))
+        outcome_label = dict(zip(a.scenario.outcome_keys, a.scenario.outcome_labels))
+        rows.append(("cell-levels never observed (estimate borrowed from the pooled rate)",
+                     "; ".join(f"{outcome_label[k]}: {fmt_num(n)}" for k, n in s["cell_levels_never_observed"].items())))
+        rows.append(("share of cases with the outcome observed",
+                     "; ".join(f"{outcome_label[k]}: {fmt_pct(v)}" for k, v in s["outcome_observed_share"].items())))
+    else:
+        w = a.risk_levels.weights
+        rows += [
+            ("cases (weight)", fmt_num(float(w.sum()))),
+            ("cells", fmt_num(a.risk_levels.n_cells)),
+            (f"sparse cells (fewer than {sparse_below} cases)", fmt_num(int((w < sparse_below).sum()))),
+            ("arms", "risk levels estimated elsewhere: no decisions observed here"),
+        ]
+    return Section(
+        key="data",
+        title="The data",
+        template="sections/data.html.j2",
+        context={"findings": TableView("What the data hold", ("finding", "value"), tuple(rows), (False, False))},
+    )
+
+
+def risk_level_section(results: ReportResults) -> Section:
+    """Risk levels: share of cases at each, overall and by protected group."""
+    rl = results.analysis.risk_levels
+    shares = rl.shares()
+    names = rl.risk_level_names
+    colours = risk_level_colours(len(names))
+    label = dict(zip(rl.outcome_keys, rl.outcome_labels))
+    wide = shares.pivot_table(index=["outcome", "attribute", "group"], columns="risk_level", values="share", sort=False)
+    wide = wide.reset_index()
+    order = {k: i for i, k in enumerate(rl.outcome_keys)}
+    wide = wide.sort_values("outcome", key=lambda s: s.map(order), kind="stable")
+    cases = shares.drop_duplicates(["attribute", "group"]).set_index(["attribute", "group"])["cases"]
+    tables, bars = [], []
+    for key in rl.outcome_keys:
+        part = wide[wide["outcome"] == key]
+        frame = pd.DataFrame({
+            "group": [("all cases" if a == "all" else f"{a}: {g}") for a, g in zip(part["attribute"], part["group"])],
+            "cases": [float(cases[(a, g)]) for a, g in zip(part["attribute"], part["group"])],
+        })
+        for r, name in enumerate(names):
+            frame[name] = part[r].to_numpy()
+        fmts = {"cases": fmt_num, **{n: fmt_pct for n in names}}
+        tables.append(TableView.from_frame(frame, f"{label[key]}: share of cases at each risk level", fmts))
+        bars.append((label[key], [Bar(g, tuple((n, float(v), c) for n, v, c in zip(names, row, colours)))
+                                  for g, row in zip(frame["group"], frame[names].to_numpy())]))
+    return Section(
+        key="risk-levels",
+        title="Risk levels",
+        template="sections/risk_levels.html.j2",
+        context={"tables": tables, "bars": bars, "legend": list(zip(names, colours)), "source": rl.source},
+        assumptions=tuple(assumptions_for("risk_levels")),
+    )
+
+
+def live_rule_section(results: ReportResults) -> Section:
+    """The cost-minimizing rule with live cost controls, its consequences and each compared rule's regret."""
+    a = results.analysis
+    ev, rule, costs = a.evaluation, a.rule, a.costs
+    frame = rule.to_frame()
+    columns = list(rule.rule_cells.columns)
+    rule_rows = [
+        ([str(v) for v in frame.loc[i, columns]], fmt_num(frame.loc[i, "cases"]) if "cases" in frame else "\u2013",
+         str(frame.loc[i, "level"]) + (" (split)" if frame.loc[i, "split"] else ""))
+        for i in range(len(frame))
+    ]
+    compared = []
+    from .evaluate import evaluate
+
+    for r, note in results.compared_rules():
+        e = evaluate(r, a.risk_levels, costs, reference=rule)
+        compared.append({"name": r.name, "note": note, "cost": fmt_num(e.cost_per_1000),
+                         "regret": fmt_num(1000.0 * e.regret_per_case), "agreement": fmt_pct(e.agreement)})
+    return Section(
+        key="rule",
+        title="The cost-minimizing rule: move the costs",
+        template="sections/rule.html.j2",
+        context={
+            "unit": costs.unit,
+            "controls": controls(results),
+            "rule_columns": columns,
+            "rule_rows": rule_rows,
+            "level_labels": list(ev.level_labels),
+            "level_colours": level_colours(len(ev.level_labels)),
+            "shares": [fmt_pct(s, DIGITS["share"]) for s in ev.level_shares],
+            "share_values": [float(s) for s in ev.level_shares],
+            "rates": [(lab, fmt_pct(r, DIGITS["rate"])) for lab, r in zip(ev.outcome_labels, ev.outcome_rates)],
+            "cost_per_1000": fmt_num(ev.cost_per_1000, DIGITS["cost"]),
+            "compared": compared,
+        },
+        assumptions=tuple(assumptions_for("rule")),
+        files=a.output_files(),
+    )
+
+
+def groups_section(results: ReportResults) -> Section:
+    """Decision shares and outcome rates by group, and where risk levels land, at the scenario's costs."""
+    ev = results.analysis.evaluation
+    by_group = ev.by_group()
+    by_group.insert(0, "who", [("all cases" if a == "all" else f"{a}: {g}") for a, g in zip(by_group["attribute"], by_group["group"])])
+    by_group = by_group.drop(columns=["attribute", "group"])
+    fmts = {c: (fmt_pct if c.startswith(("share:", "rate:")) else fmt_num) for c in by_group.columns if c != "who"}
+    label = dict(zip(ev.outcome_keys, ev.outcome_labels))
+    misplaced = ev.misplaced()
+    misplaced["outcome"] = misplaced["outcome"].map(label)
+    within = ev.within_risk_levels()
+    overall = within[within["attribute"] == "all"].copy()
+    wide = overall.pivot_table(index=["outcome", "risk_level", "risk_level_name"], columns="level", values="share", sort=False)
+    wide = wide.reset_index()
+    wide["outcome"] = wide["outcome"].map(label)
+    wide = wide.drop(columns=["risk_level"]).rename(columns={"risk_level_name": "risk level"})
+    wide.columns.name = None
+    gaps = ev.fairness_gaps().dropna(subset=["gap"]).sort_values("gap", ascending=False).head(10)
+    gaps = gaps.assign(outcome=gaps["outcome"].map(lambda k: label.get(k, "(all)")))
+    gaps = gaps[["kind", "attribute", "outcome", "risk_level_name", "threshold", "gap", "highest_group", "lowest_group"]]
+    gaps["kind"] = gaps["kind"].str.replace("_", " ")
+    return Section(
+        key="groups",
+        title="Who gets what, at the scenario's costs",
+        template="sections/groups.html.j2",
+        context={
+            "by_group": TableView.from_frame(by_group, "Decision shares and expected outcome rates by group", fmts),
+            "within": TableView.from_frame(wide, "Decision given within each risk level (all cases)",
+                                           {c: fmt_pct for c in ev.level_labels}, row_header=2),
+            "misplaced": TableView.from_frame(
+                misplaced, "Cases the rule treats harsher or more leniently than their risk level calls for",
+                {"safe_given_harsher": fmt_pct, "preventable_given_too_lenient": fmt_pct},
+                rename={"safe_given_harsher": "safe cases given a harsher level",
+                        "preventable_given_too_lenient": "preventable cases given a level too lenient to prevent it"}),
+            "gaps": TableView.from_frame(
+                gaps, "The ten largest gaps between groups (P(decision at or above threshold), within risk level "
+                      "for principal fairness)", {"gap": lambda v: fmt_pct(v, 1)},
+                rename={"risk_level_name": "risk level", "highest_group": "highest", "lowest_group": "lowest"}),
+        },
+        assumptions=tuple(assumptions_for("evaluation")),
+    )
+
+
+#: the section builders, in page order; each takes ReportResults and returns a Section or None
+SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
+    scenario_section,
+    data_section,
+    risk_level_section,
+    live_rule_section,
+    groups_section,
+]
+
+
+def report_sections(results: ReportResults) -> list[Section]:
+    """Every section the results support, in page order."""
+    return [s for s in (build(results) for build in SECTION_BUILDERS) if s is not None]
+
+
+# ----------------------------------------------------------------------------------------------
+# The live controls and their data
+# ----------------------------------------------------------------------------------------------
+def _slider_max(value: float, fallback: float) -> float:
+    """A round upper end for a cost slider: about four times the value (or the fallback)."""
+    top = 4.0 * (value if value > 0 else fallback if fallback > 0 else 1000.0)
+    mag = 10.0 ** math.floor(math.log10(top))
+    for step in (1.0, 2.0, 2.5, 5.0, 10.0):
+        if step * mag >= top:
+            return step * mag
+    return 10.0 * mag
+
+
+def controls(results: ReportResults) -> list[dict[str, Any]]:
+    """One control per outcome cost and per decision level's cost, with its range and meaning.
+
+    A level whose cost is one number is set directly; a level whose cost comes per cell from a
+    cost column is scaled by a factor (its cells keep their relative costs).
+    """
+    a = results.analysis
+    sc, costs, w = a.scenario, a.costs, a.risk_levels.weights
+    biggest = float(max(costs.outcome.max(initial=0.0), costs.decision.max(initial=0.0)))
+    out: list[dict[str, Any]] = []
+    for j, o in enumerate(sc.outcomes):
+        value = float(costs.outcome[j])
+        top = _slider_max(value, biggest)
+        out.append({"id": f"cost-outcome-{j}", "kind": "outcome", "index": j, "mode": "value",
+                    "label": f"cost of one {o.label}", "value": value, "min": 0.0, "max": top, "step": top / 400,
+                    "source": o.cost_source, "unit": costs.unit})
+    for d, level in enumerate(sc.levels):
+        column = costs.decision[:, d]
+        if len(column) == 0 or float(column.min()) == float(column.max()):
+            value = float(column[0]) if len(column) else float(level.cost or 0.0)
+            top = _slider_max(value, biggest / 4)
+            out.append({"id": f"cost-level-{d}", "kind": "decision", "index": d, "mode": "value",
+                        "label": f"cost of {level.label} (per case)", "value": value, "min": 0.0, "max": top,
+                        "step": top / 400, "source": level.cost_source, "unit": costs.unit})
+        else:
+            mean = float(np.average(costs.decision[:, d], weights=w))
+            out.append({"id": f"cost-level-{d}", "kind": "decision", "index": d, "mode": "scale",
+                        "label": f"cost of {level.label}: factor on each cell's cost from column {level.cost_column}",
+                        "value": 1.0, "min": 0.0, "max": 4.0, "step": 0.01, "mean": mean, "mean_text": fmt_num(mean),
+                        "source": level.cost_source, "unit": costs.unit})
+    return out
+
+
+def live_data(results: ReportResults) -> dict[str, Any]:
+    """What the page's script needs to recompute the rule: per-cell arrays and the compared rules.
+
+    Keys: ``p`` (n_cells x J x L, flattened row-major), ``weights``, ``decision_base`` (n_cells x L,
+    the scenario's decision costs per cell), ``outcome_costs``, ``controls``, ``rule_index`` (the
+    rule cell of each cell), ``rule_cells`` (their values, as text), ``scenario_levels`` (the
+    rule at the scenario's costs), ``compared`` (name, ``delta`` per rule cell, ``index`` per cell),
+    ``tie_tolerance``, ``digits`` and labels.
+    """
+    a = results.analysis
+    rl, costs, rule = a.risk_levels, a.costs, a.rule
+    compared = [{"name": r.name, "delta": r.delta.tolist(), "index": r.index.tolist()} for r, _ in results.compared_rules()]
+    return {
+        "n_cells": int(rl.n_cells),
+        "n_outcomes": len(rl.outcome_keys),
+        "n_levels": int(rl.n_levels),
+        "level_labels": list(rl.level_labels),
+        "outcome_labels": list(rl.outcome_labels),
+        "unit": costs.unit,
+        "weights": rl.weights.astype(float).tolist(),
+        "p": rl.p.reshape(-1).tolist(),
+        "decision_base": costs.decision.reshape(-1).tolist(),
+        "outcome_costs": costs.outcome.tolist(),
+        "controls": [{k: c[k] for k in ("id", "kind", "index", "mode", "value", "min", "max", "step")}
+                     for c in controls(results)],
+        "rule_index": rule.index.tolist(),
+        "rule_cells": [[str(v) for v in row] for row in rule.rule_cells.itertuples(index=False, name=None)],
+        "scenario_levels": rule.level.tolist(),
+        "compared": compared,
+        "tie_tolerance": TIE_TOLERANCE,
+        "digits": DIGITS,
+    }
+
+
+# ----------------------------------------------------------------------------------------------
+# Rendering
+# ----------------------------------------------------------------------------------------------
+def _environment() -> Environment:
+    env = Environment(loader=PackageLoader("policy", "templates"), autoescape=True, undefined=StrictUndefined,
+                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+    env.filters["pct"] = fmt_pct
+    env.filters["num"] = fmt_num
+    env.globals["zip"] = zip
+    env.filters["input_value"] = input_value
+    return env
+
+
+def _asset(env: Environment, name: str, closing: str) -> Markup:
+    """A style sheet or script of the package, inlined verbatim; it must not close its element."""
+    text = env.loader.get_source(env, name)[0]
+    if closing in text.lower():
+        raise RuntimeError(f"policy/templates/{name} contains {closing!r}, which would end its element early.")
+    return Markup(text)
+
+
+@dataclass(frozen=True)
+class Report:
+    """The committee report: the HTML page and the tidy tables written beside it.
+
+    Attributes
+    ----------
+    scenario : Scenario
+    html : str
+        The whole self-contained page.
+    sections : list of Section
+    files : dict
+        Tidy tables by file name (the stages' own output files).
+    """
+
+    scenario: Scenario
+    html: str
+    sections: tuple[Section, ...]
+    files: Mapping[str, Any]
+
+    def output_files(self) -> dict[str, Any]:
+        """``report.html`` and the tables beside it, for :func:`policy.outputs.write_outputs`."""
+        return {"report.html": self.html, **self.files}
+
+    def __str__(self) -> str:
+        return (f"Report on {self.scenario.title}: {len(self.sections)} sections "
+                f"({', '.join(s.title for s in self.sections)}), {len(self.html):,} characters of HTML, "
+                f"{len(self.files)} tables beside it.")
+
+    def _repr_html_(self) -> str:
+        from html import escape
+
+        return f'<iframe srcdoc="{escape(self.html, quote=True)}" style="width:100%;height:40em;border:1px solid #999"></iframe>'
+
+
+def render_report(results: ReportResults | Analysis) -> Report:
+    """Assemble the report from result objects; compute nothing.
+
+    Parameters
+    ----------
+    results : ReportResults or Analysis
+        The analysis, and the results of later stages where available.
+    """
+    if isinstance(results, Analysis):
+        results = ReportResults(results)
+    env = _environment()
+    sections = report_sections(results)
+    sc = results.scenario
+    figure_assumptions = [(s.title, s.key, list(s.assumptions)) for s in sections if s.assumptions]
+    files: dict[str, Any] = {}
+    for s in sections:
+        files.update(s.files)
+    page = env.get_template("report.html.j2").render(
+        title=sc.title,
+        cautions=list(CAUTIONS),
+        sections=sections,
+        figure_assumptions=figure_assumptions,
+        files=sorted(files),
+        data=json_for_script({"live": live_data(results)}),
+        style=_asset(env, "report.css", "</style"),
+        script=_asset(env, "report.js", "</script"),
+    )
+    return Report(sc, page, tuple(sections), files)
+
+
+def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
+                 decision_costs: Mapping[str, float] | None = None) -> Report:
+    """Run the stages for a scenario and assemble their results into the committee report.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+    outcome_costs, decision_costs : mapping, optional
+        What-if overrides of the scenario's costs, as for :func:`policy.pipeline.analyze`;
+        the page's controls start from these costs.
+
+    Returns
+    -------
+    Report
+    """
+    scenario = as_scenario(scenario)
+    analysis = analyze(scenario, outcome_costs, decision_costs)
+    return render_report(ReportResults(analysis))
