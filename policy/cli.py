@@ -67,7 +67,7 @@ def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
 
 
 def show_cautions() -> None:
-    console.print(Panel("\n".join(f"- {c}" for c in CAUTIONS), title="Cautions", border_style="yellow"))
+    console.print(Panel("\n".join(f"- {c}" for c in CAUTIONS), title="Cautions", border_style="yellow"), soft_wrap=False)
 
 
 def show_assumptions(figure: str) -> None:
@@ -108,7 +108,7 @@ def _evaluation_table(evaluation, unit: str) -> Table:
 
 
 def _risk_table(rl) -> Table:
-    summary = rl.summary()
+    summary = rl.summary(by_group=False)
     table = Table(title="Risk levels (share of cases)")
     table.add_column("outcome")
     for col in summary.columns:

@@ -462,19 +462,25 @@ class RiskLevels:
                         rows.append((key, attr, group, r, name, share[g] / wsum[g] if wsum[g] else np.nan, wsum[g]))
         return pd.DataFrame(rows, columns=["outcome", "attribute", "group", "risk_level", "risk_level_name", "share", "cases"])
 
-    def summary(self) -> pd.DataFrame:
-        """Overall shares: one row per outcome kind, one column per risk level."""
+    def summary(self, by_group: bool = True) -> pd.DataFrame:
+        """Shares of cases at each risk level: one row per (attribute, group, outcome kind),
+        one column per risk level. The rows with attribute ``all`` are the overall shares;
+        ``by_group=False`` keeps only those, indexed by outcome label."""
         shares = self.shares()
-        overall = shares[shares["attribute"] == "all"]
-        table = overall.pivot(index="outcome", columns="risk_level_name", values="share")
-        table = table.reindex(index=list(self.outcome_keys), columns=self.risk_level_names)
-        table.index = [self.outcome_labels[self.outcome_keys.index(k)] for k in table.index]
+        labels = dict(zip(self.outcome_keys, self.outcome_labels))
+        shares["outcome"] = shares["outcome"].map(labels)
+        table = shares.pivot_table(index=["attribute", "group", "outcome"], columns="risk_level_name",
+                                   values="share", sort=False)
+        table = table[self.risk_level_names]
         table.columns.name = None
+        if not by_group:
+            table = table.loc["all"].droplevel("group")
+            table.index.name = None
         return table
 
     def __str__(self) -> str:
         lines = [f"Risk levels from {self.source} ({self.n_cells:,} cells, {self.weights.sum():,.0f} cases):"]
-        lines.append(self.summary().to_string(float_format=lambda v: f"{v:6.1%}"))
+        lines.append(self.summary(by_group=False).to_string(float_format=lambda v: f"{v:6.1%}"))
         borrowed = self.borrowed.any(axis=1).sum(axis=0)
         lines.append("Cells where a level was never observed (estimate borrowed from the pooled rate): "
                      + ", ".join(f"{lab}: {int(n):,}" for lab, n in zip(self.level_labels, borrowed)))

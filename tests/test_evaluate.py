@@ -90,5 +90,9 @@ def test_presentations(demo_scenario):
     frame = a.evaluation.by_group()
     assert set(frame["attribute"]) == {"all", "sex", "race_group"}
     assert a.rule.to_frame()["level"].isin(a.risk_levels.level_labels).all()
-    assert list(a.risk_levels.summary().columns) == a.risk_levels.risk_level_names
+    summary = a.risk_levels.summary()
+    assert list(summary.columns) == a.risk_levels.risk_level_names
+    assert set(summary.index.get_level_values("attribute")) == {"all", "sex", "race_group"}
+    np.testing.assert_allclose(summary.sum(axis=1), 1.0)
+    assert list(a.risk_levels.summary(by_group=False).index) == list(a.risk_levels.outcome_labels)
     assert "Risk levels from" in str(a.risk_levels)
