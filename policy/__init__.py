@@ -12,6 +12,7 @@ from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .report import Report, build_report
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
@@ -36,12 +37,14 @@ __all__ = [
     "InfeasibleError",
     "InputError",
     "PolicyError",
+    "Report",
     "RiskLevelEstimator",
     "RiskLevels",
     "Rule",
     "Scenario",
     "SolverError",
     "analyze",
+    "build_report",
     "check",
     "costs_from_scenario",
     "estimate",
