@@ -28,12 +28,14 @@ from jinja2 import Environment, PackageLoader, StrictUndefined
 from markupsafe import Markup
 
 from .cautions import CAUTIONS, assumptions_for
+from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, analyze, as_scenario
 from .rules import Rule
 from .scenario import Scenario
 from .solve import TIE_TOLERANCE
 
 __all__ = [
+    "ComparedRule",
     "Report",
     "ReportResults",
     "Section",
@@ -183,22 +185,49 @@ class Section:
 
 
 @dataclass(frozen=True)
+class ComparedRule:
+    """A rule whose regret the live controls recompute.
+
+    Attributes
+    ----------
+    rule : Rule
+    evaluation : Evaluation
+        Its evaluation at the report's starting costs, with regret against the cost-minimizing rule.
+    note : str
+        What the rule is, in a phrase.
+    """
+
+    rule: Rule
+    evaluation: Evaluation
+    note: str
+
+
+@dataclass(frozen=True)
 class ReportResults:
     """The result objects a report is assembled from.
 
     Only ``analysis`` is required; each later stage's result adds its sections when given.
+
+    Attributes
+    ----------
+    analysis : Analysis
+    compared : tuple of ComparedRule
+        Rules scored against the cost-minimizing one, live on the page.
     """
 
     analysis: Analysis
+    compared: tuple[ComparedRule, ...] = ()
 
     @property
     def scenario(self) -> Scenario:
         return self.analysis.scenario
 
-    def compared_rules(self) -> list[tuple[Rule, str]]:
-        """Rules whose regret the live controls recompute, each with a note on what it is."""
-        a = self.analysis
-        return [(a.rule, "the cost-minimizing rule at the scenario's own costs, held fixed while the costs move")]
+
+def held_rule(analysis: Analysis) -> ComparedRule:
+    """The cost-minimizing rule at the scenario's costs, as a rule compared while the costs move."""
+    rule = analysis.rule
+    return ComparedRule(rule, evaluate(rule, analysis.risk_levels, analysis.costs, reference=rule),
+                        "the cost-minimizing rule at the scenario's own costs, held fixed while the costs move")
 
 
 def scenario_section(results: ReportResults) -> Section:
@@ -207,8 +236,8 @@ def scenario_section(results: ReportResults) -> Section:
     unit = costs.unit or "(no unit given)"
     levels = []
     for d, level in enumerate(sc.levels):
-        if level.cost is not None:
-            cost = fmt_num(level.cost, 0)
+        if _constant(costs.decision[:, d]):
+            cost = fmt_num(costs.decision[0, d] if len(costs.decision) else level.cost, 0)
         else:
             mean = float(np.average(costs.decision[:, d], weights=results.analysis.risk_levels.weights))
             cost = f"per case from column {level.cost_column} (mean {fmt_num(mean, 0)})"
@@ -326,13 +355,9 @@ def live_rule_section(results: ReportResults) -> Section:
          str(frame.loc[i, "level"]) + (" (split)" if frame.loc[i, "split"] else ""))
         for i in range(len(frame))
     ]
-    compared = []
-    from .evaluate import evaluate
-
-    for r, note in results.compared_rules():
-        e = evaluate(r, a.risk_levels, costs, reference=rule)
-        compared.append({"name": r.name, "note": note, "cost": fmt_num(e.cost_per_1000),
-                         "regret": fmt_num(1000.0 * e.regret_per_case), "agreement": fmt_pct(e.agreement)})
+    compared = [{"name": c.rule.name, "note": c.note, "cost": fmt_num(c.evaluation.cost_per_1000),
+                 "regret": fmt_num(1000.0 * c.evaluation.regret_per_case), "agreement": fmt_pct(c.evaluation.agreement)}
+                for c in results.compared]
     return Section(
         key="rule",
         title="The cost-minimizing rule: move the costs",
@@ -416,6 +441,11 @@ def report_sections(results: ReportResults) -> list[Section]:
 # ----------------------------------------------------------------------------------------------
 # The live controls and their data
 # ----------------------------------------------------------------------------------------------
+def _constant(column: np.ndarray) -> bool:
+    """Whether a decision level costs the same in every cell (then it is set as one number)."""
+    return len(column) == 0 or float(column.min()) == float(column.max())
+
+
 def _slider_max(value: float, fallback: float) -> float:
     """A round upper end for a cost slider: about four times the value (or the fallback)."""
     top = 4.0 * (value if value > 0 else fallback if fallback > 0 else 1000.0)
@@ -444,7 +474,7 @@ def controls(results: ReportResults) -> list[dict[str, Any]]:
                     "source": o.cost_source, "unit": costs.unit})
     for d, level in enumerate(sc.levels):
         column = costs.decision[:, d]
-        if len(column) == 0 or float(column.min()) == float(column.max()):
+        if _constant(column):
             value = float(column[0]) if len(column) else float(level.cost or 0.0)
             top = _slider_max(value, biggest / 4)
             out.append({"id": f"cost-level-{d}", "kind": "decision", "index": d, "mode": "value",
@@ -470,7 +500,8 @@ def live_data(results: ReportResults) -> dict[str, Any]:
     """
     a = results.analysis
     rl, costs, rule = a.risk_levels, a.costs, a.rule
-    compared = [{"name": r.name, "delta": r.delta.tolist(), "index": r.index.tolist()} for r, _ in results.compared_rules()]
+    compared = [{"name": c.rule.name, "delta": c.rule.delta.tolist(), "index": c.rule.index.tolist()}
+                for c in results.compared]
     return {
         "n_cells": int(rl.n_cells),
         "n_outcomes": len(rl.outcome_keys),
@@ -557,7 +588,7 @@ def render_report(results: ReportResults | Analysis) -> Report:
         The analysis, and the results of later stages where available.
     """
     if isinstance(results, Analysis):
-        results = ReportResults(results)
+        results = ReportResults(results, (held_rule(results),))
     env = _environment()
     sections = report_sections(results)
     sc = results.scenario
@@ -595,4 +626,4 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     """
     scenario = as_scenario(scenario)
     analysis = analyze(scenario, outcome_costs, decision_costs)
-    return render_report(ReportResults(analysis))
+    return render_report(ReportResults(analysis, (held_rule(analysis),)))
