@@ -289,3 +289,25 @@ def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
     assert page.title().startswith("Quarrow <script>")
     assert_offline(opened, path)
     page.close()
+
+
+def test_ties_go_to_the_lenient_level_as_in_the_engine(browser, demo_report):
+    path, analysis = demo_report
+    opened = open_report(browser, path)
+    page = opened.page
+    # every cost zero: every level ties in every rule cell, and both engines pick the most lenient
+    controls = page.locator('#cost-controls input[type="number"]')
+    for i in range(controls.count()):
+        controls.nth(i).fill("0")
+    L = analysis.risk_levels.n_levels
+    rule, ev, compared = engine(analysis, {k: 0.0 for k in analysis.scenario.outcome_keys},
+                                {v: 0.0 for v in analysis.scenario.level_values}, scale={L - 1: 0.0})
+    assert (rule.level == 0).all()
+    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    # only the decision costs: supervision free, recognizance and bond as in the scenario
+    page.locator("#reset-costs").click()
+    page.locator("#cost-level-1-number").fill("0")
+    rule, ev, compared = engine(analysis, None, {analysis.scenario.level_values[1]: 0.0})
+    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    assert_offline(opened, path)
+    page.close()
