@@ -8,6 +8,8 @@ an individual.
 
 from .cautions import CAUTIONS
 from .cells import CellLayout, CellTable, load_cell_table
+from .constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
+from .constraints import ConstraintSpec
 from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .evaluate import Evaluation, evaluate
@@ -32,10 +34,15 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "ConstrainedProblem",
+    "ConstrainedRule",
+    "ConstraintSpec",
     "Costs",
     "Evaluation",
     "InfeasibleError",
     "InputError",
+    "LPSettings",
+    "LPSolution",
     "PolicyError",
     "Report",
     "RiskLevelEstimator",
@@ -56,4 +63,5 @@ __all__ = [
     "load_scenario",
     "optimal_rule",
     "risk_level_distribution",
+    "solve_constrained",
 ]

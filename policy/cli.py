@@ -21,6 +21,7 @@ from .errors import InputError, PolicyError
 
 app = typer.Typer(
     add_completion=False,
+    rich_markup_mode=None,
     no_args_is_help=True,
     help=(
         "Release-rule analysis for pretrial decisions: risk levels, cost-minimizing rules, "
@@ -172,8 +173,52 @@ def _print_analysis(analysis) -> None:
     console.print(_risk_table(analysis.risk_levels))
     console.print(_rule_table(analysis))
     console.print(_evaluation_table(analysis.evaluation, analysis.costs.unit))
+    if getattr(analysis, "constrained", None) is not None:
+        _print_constrained(analysis.constrained)
     show_assumptions("rule")
     show_cautions()
+
+
+def _constraint_table(constrained) -> Table:
+    frame = constrained.to_frame()
+    table = Table(title=f"Constraints (price {constrained.price_per_1000:,.0f} {constrained.unit} per 1,000 cases "
+                        "above the unconstrained optimum)")
+    for col in ("constraint", "bound", "reached", "binds", "saving if loosened one point, per 1,000", "saving if removed per 1,000"):
+        table.add_column(col, justify="left" if col == "constraint" else "right")
+    for _, row in frame.iterrows():
+        bound = "-" if row["kind"] == "group_blind" else f"{row['bound_key']} {row['bound']:g}"
+        table.add_row(f"{row['constraint']} ({row['kind']})", bound,
+                      "" if row["value"] != row["value"] else f"{row['value']:.4g}",
+                      "yes" if row["binding"] else "no",
+                      "" if row["saving_per_point_per_1000"] != row["saving_per_point_per_1000"] or row["kind"] == "group_blind"
+                      else f"{row['saving_per_point_per_1000']:,.0f}",
+                      f"{row['saving_if_removed_per_1000']:,.0f}")
+    return table
+
+
+def _print_constrained(constrained) -> None:
+    rule = constrained.rule
+    frame = rule.to_frame()
+    table = Table(title=f"{rule.name} (by {', '.join(rule.rule_cells.columns) or 'nothing'})")
+    for col in rule.rule_cells.columns:
+        table.add_column(col)
+    table.add_column("decision")
+    table.add_column("cases", justify="right")
+    for _, row in frame.iterrows():
+        if row["split"]:
+            level = " / ".join(f"{lab} {row[f'share_{v}']:.0%}" for v, lab in zip(rule.level_values, rule.level_labels)
+                               if row[f"share_{v}"] > 1e-6)
+        else:
+            level = row["level"]
+        table.add_row(*[str(row[c]) for c in rule.rule_cells.columns], level, f"{row.get('cases', float('nan')):,.0f}")
+    console.print(table)
+    console.print(_constraint_table(constrained))
+    console.print(_evaluation_table(constrained.evaluation, constrained.unit))
+    if len(rule.split_cells):
+        console.print(f"{len(rule.split_cells)} rule cells are split between levels: the optimum randomizes there "
+                      "(shares above); a court would apply the levels to those shares of the cell's cases.")
+    for note in constrained.notes:
+        console.print(f"note: {note}")
 
 
 @command
@@ -182,12 +227,36 @@ def solve(
     out: Path = OutOption,
     cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
+    constraint: Optional[List[str]] = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |)."),
+    group_blind: bool = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute."),
+    principal_fairness: Optional[List[str]] = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable)."),
+    max_share: Optional[List[str]] = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable)."),
+    max_rate: Optional[List[str]] = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable)."),
+    ignore_constraints: bool = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]]."),
+    solver: Optional[str] = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL."),
 ):
-    """Find the expected-cost-minimizing release rule and write it with its evaluation."""
-    from .outputs import write_outputs
-    from .pipeline import analyze
+    """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
-    analysis = analyze(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"))
+    With constraints (the scenario's [[constraints]] or the options below), also the constrained
+    optimal rule, its price and the constraint table. Exit code 3 and no files when the
+    constraints cannot all hold.
+    """
+    from dataclasses import replace
+
+    from .constrained import lp_settings_from_table
+    from .constraints import parse_constraint_text, shorthand_tables
+    from .outputs import write_outputs
+    from .pipeline import analyze, as_scenario
+
+    sc = as_scenario(scenario)
+    added = [parse_constraint_text(text) for text in constraint or []]
+    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
+    settings = sc.sections.get("linear_program")
+    if solver is not None:
+        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
+        settings = replace(settings, solver=chosen.solver)
+    analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
+                       scenario_constraints=not ignore_constraints, lp_settings=settings)
     paths = write_outputs(out, analysis.output_files())
     _print_analysis(analysis)
     show_written(paths)

@@ -11,7 +11,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any, Mapping, Sequence
 
 import pandas as pd
 
@@ -99,6 +99,8 @@ class Analysis:
     rule: Rule
     evaluation: Evaluation
     extra_files: Mapping[str, Any] = field(default_factory=dict)
+    #: the constrained optimal rule (policy.constrained.ConstrainedRule) when constraints were declared
+    constrained: Any = None
 
     def output_files(self) -> dict[str, Any]:
         """Every output file of ``solve`` by name (documented in docs/outputs.md)."""
@@ -127,12 +129,15 @@ class Analysis:
             "assumptions": assumptions_for("rule"),
             "cautions": list(CAUTIONS),
         }
+        if self.constrained is not None:
+            files.update(self.constrained.output_files())
         files.update(self.extra_files)
         return files
 
 
 def analyze(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
-            decision_costs: Mapping[str, float] | None = None) -> Analysis:
+            decision_costs: Mapping[str, float] | None = None, constraints: Sequence[Any] = (),
+            scenario_constraints: bool = True, lp_settings: Any = None) -> Analysis:
     """Estimate risk levels, build the costs, find the unconstrained optimal rule and score it.
 
     Parameters
@@ -140,12 +145,30 @@ def analyze(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] 
     scenario : Scenario or path
     outcome_costs, decision_costs : mapping, optional
         What-if overrides of the scenario's costs (by outcome key / decision value or label).
+    constraints : sequence of dict or ConstraintSpec, optional
+        Constraints added to the scenario's ``[[constraints]]`` (dicts use the same keys).
+    scenario_constraints : bool
+        Use the scenario's own ``[[constraints]]`` (default true).
+    lp_settings : LPSettings, optional
+        How to solve the linear program (default: the scenario's ``[linear_program]``).
+
+    When any constraint applies, :attr:`Analysis.constrained` holds the constrained optimal
+    rule (:class:`policy.constrained.ConstrainedRule`); an :class:`~policy.errors.InfeasibleError`
+    says which constraints conflict.
     """
+    from .constrained import ConstrainedProblem
+    from .constraints import scenario_specs
+
     scenario = as_scenario(scenario)
+    specs = scenario_specs(scenario, constraints, scenario_constraints)
     cells, rl = estimate(scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     rule = optimal_rule(rl, costs)
-    return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs))
+    constrained = None
+    if specs:
+        settings = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
+        constrained = ConstrainedProblem(rl, costs, specs, settings=settings).solve()
+    return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs), constrained=constrained)
 
 
 def write_demo_inputs(folder: str | Path, cases: int | None = None) -> tuple[Path, pd.DataFrame]:
