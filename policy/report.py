@@ -213,10 +213,14 @@ class ReportResults:
     analysis : Analysis
     compared : tuple of ComparedRule
         Rules scored against the cost-minimizing one, live on the page.
+    constrained_sweeps : tuple of ConstrainedSweep
+        The constrained rule re-solved along each outcome cost (:mod:`policy.constrained_sweep`),
+        shown at the point nearest the costs chosen on the page.
     """
 
     analysis: Analysis
     compared: tuple[ComparedRule, ...] = ()
+    constrained_sweeps: tuple[Any, ...] = ()
 
     @property
     def scenario(self) -> Scenario:
@@ -423,12 +427,87 @@ def groups_section(results: ReportResults) -> Section:
     )
 
 
+def _split_text(row: pd.Series, level_values: Sequence[str], level_labels: Sequence[str]) -> str:
+    """A rule cell's decision: the level, or the split between levels of a randomized rule."""
+    if not row["split"]:
+        return str(row["level"])
+    parts = [f"{lab} {fmt_pct(row[f'share_{v}'], 0)}" for v, lab in zip(level_values, level_labels) if row[f"share_{v}"] > 5e-4]
+    return "split: " + ", ".join(parts)
+
+
+def constrained_section(results: ReportResults) -> Section | None:
+    """The constrained rule: its price, what each constraint costs, the rule, and the rule near the chosen costs."""
+    con = results.analysis.constrained
+    if con is None:
+        return None
+    unit = con.unit
+    ev, unc = con.evaluation, con.unconstrained_evaluation
+    table = con.to_frame()
+    rows = []
+    for _, r in table.iterrows():
+        bound = "" if r["kind"] == "group_blind" else f"{r['bound_key']} {r['bound']:g} ({r['unit']})"
+        rows.append((str(r["constraint"]), str(r["kind"]).replace("_", " "), str(r["arguments"]), bound,
+                     "binds" if r["binding"] else "does not bind",
+                     "\u2013" if not np.isfinite(r["value"]) else f"{r['value']:.4g}",
+                     fmt_num(r["saving_per_point_per_1000"]), fmt_num(r["saving_if_removed_per_1000"])))
+    constraints = TableView(
+        f"The constraints and what each costs (per 1,000 cases, {unit})",
+        ("constraint", "kind", "applies to", "bound", "at the optimum", "value reached",
+         "saving if loosened a step", "saving if removed alone"),
+        tuple(rows), (False, False, False, False, False, True, True, True),
+        note="A step is one point (0.01) of a tolerance or share, or 1% of the cases for a cap in cases; both "
+             "savings are measured by solving again. Which rows bind is in constraints.csv beside this report.")
+    frame = con.rule.to_frame()
+    columns = list(con.rule.rule_cells.columns)
+    rule_rows = tuple(tuple(str(v) for v in frame.loc[i, columns])
+                      + (fmt_num(frame.loc[i, "cases"]), _split_text(frame.loc[i], con.rule.level_values, con.rule.level_labels))
+                      for i in range(len(frame)))
+    rule = TableView(f"{con.rule.name}, by rule cell", tuple(columns) + ("cases", "decision"), rule_rows,
+                     tuple([False] * len(columns) + [True, False]), row_header=max(len(columns), 1))
+    figures = [("expected cost per 1,000 cases", fmt_num(ev.cost_per_1000), fmt_num(unc.cost_per_1000))]
+    figures += [(f"share: {lab}", fmt_pct(a, DIGITS["share"]), fmt_pct(b, DIGITS["share"]))
+                for lab, a, b in zip(ev.level_labels, ev.level_shares, unc.level_shares)]
+    figures += [(f"expected rate: {lab}", fmt_pct(a, DIGITS["rate"]), fmt_pct(b, DIGITS["rate"]))
+                for lab, a, b in zip(ev.outcome_labels, ev.outcome_rates, unc.outcome_rates)]
+    versus = TableView("The constrained rule against the unconstrained optimum on the same rule columns",
+                       ("figure", con.rule.name, con.unconstrained.name), tuple(figures), (False, True, True))
+    sweeps = results.constrained_sweeps
+    files = {}
+    if sweeps:
+        files["constrained_sweep.csv"] = pd.concat([sw.to_frame() for sw in sweeps], ignore_index=True)
+    return Section(
+        key="constrained",
+        title="The constrained rule and its price",
+        template="sections/constrained.html.j2",
+        context={
+            "unit": unit,
+            "price": fmt_num(con.price_per_1000),
+            "cost": fmt_num(ev.cost_per_1000),
+            "unconstrained_cost": fmt_num(unc.cost_per_1000),
+            "constraints": constraints,
+            "rule": rule,
+            "versus": versus,
+            "notes": list(con.notes),
+            "live": bool(sweeps),
+            "level_labels": list(ev.level_labels),
+            "outcome_labels": list(ev.outcome_labels),
+            "shares": [fmt_pct(v, DIGITS["share"]) for v in ev.level_shares],
+            "rates": [fmt_pct(v, DIGITS["rate"]) for v in ev.outcome_rates],
+            "points": len(sweeps[0].values) if sweeps else 0,
+            "reference_label": sweeps[0].reference_label if sweeps else "",
+        },
+        assumptions=tuple(assumptions_for("rule")),
+        files=files,
+    )
+
+
 #: the section builders, in page order; each takes ReportResults and returns a Section or None
 SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     scenario_section,
     data_section,
     risk_level_section,
     live_rule_section,
+    constrained_section,
     groups_section,
 ]
 
@@ -521,6 +600,12 @@ def live_data(results: ReportResults) -> dict[str, Any]:
         "compared": compared,
         "tie_tolerance": TIE_TOLERANCE,
         "digits": DIGITS,
+        "constrained": [
+            {"outcome_index": sw.outcome_index, "values": sw.values.tolist(), "reference_cost": sw.reference_cost,
+             "reference_label": sw.reference_label, "cost": sw.cost_per_case.tolist(), "price": sw.price_per_case.tolist(),
+             "shares": sw.level_shares.tolist(), "rates": sw.outcome_rates.tolist()}
+            for sw in results.constrained_sweeps
+        ],
     }
 
 
@@ -557,12 +642,15 @@ class Report:
     sections : list of Section
     files : dict
         Tidy tables by file name (the stages' own output files).
+    results : ReportResults
+        The result objects the page was assembled from.
     """
 
     scenario: Scenario
     html: str
     sections: tuple[Section, ...]
     files: Mapping[str, Any]
+    results: ReportResults | None = None
 
     def output_files(self) -> dict[str, Any]:
         """``report.html`` and the tables beside it, for :func:`policy.outputs.write_outputs`."""
@@ -606,7 +694,7 @@ def render_report(results: ReportResults | Analysis) -> Report:
         style=_asset(env, "report.css", "</style"),
         script=_asset(env, "report.js", "</script"),
     )
-    return Report(sc, page, tuple(sections), files)
+    return Report(sc, page, tuple(sections), files, results)
 
 
 def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
@@ -626,4 +714,38 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     """
     scenario = as_scenario(scenario)
     analysis = analyze(scenario, outcome_costs, decision_costs)
-    return render_report(ReportResults(analysis, (held_rule(analysis),)))
+    compared = [held_rule(analysis)]
+    points: list = []
+    if analysis.constrained is not None:
+        compared.append(held_constrained_rule(analysis))
+        points = constrained_sweeps(analysis)
+    return render_report(ReportResults(analysis, tuple(compared), tuple(points)))
+
+
+def held_constrained_rule(analysis: Analysis) -> ComparedRule:
+    """The constrained optimal rule at the scenario's costs, compared while the costs move."""
+    con = analysis.constrained
+    return ComparedRule(con.rule, evaluate(con.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule),
+                        "the constrained optimal rule at the scenario's own costs, held fixed while the costs move")
+
+
+#: points of each outcome cost at which the constrained rule is solved in advance for the page
+CONSTRAINED_POINTS = 41
+
+
+def constrained_sweeps(analysis: Analysis, points: int = CONSTRAINED_POINTS) -> list:
+    """The constrained rule solved along each outcome cost's slider range (other costs as in the scenario),
+    the scenario's own cost among the points."""
+    from .constrained import ConstrainedProblem
+    from .constrained_sweep import sweep_constrained
+
+    sc, costs = analysis.scenario, analysis.costs
+    con = analysis.constrained
+    problem = ConstrainedProblem(analysis.risk_levels, costs, con.specs, settings=sc.sections.get("linear_program"))
+    biggest = float(max(costs.outcome.max(initial=0.0), costs.decision.max(initial=0.0)))
+    out = []
+    for j in range(len(costs.outcome)):
+        top = _slider_max(float(costs.outcome[j]), biggest)
+        values = np.unique(np.append(np.linspace(0.0, top, points), costs.outcome[j]))
+        out.append(sweep_constrained(problem, j, values, con.rule.name))
+    return out

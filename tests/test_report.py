@@ -13,8 +13,8 @@ import pandas as pd
 import pytest
 
 from policy.demo import simulate_cases
-from policy.report import build_report, json_for_script, live_data, ReportResults
 from policy.pipeline import analyze
+from policy.report import build_report, json_for_script, render_report
 
 from .conftest import ROOT, SMALL_SCENARIO, run_cli, write_scenario
 
@@ -118,7 +118,7 @@ def test_report_builds_for_every_scenario(scenario, tmp_path, capsys):
 @pytest.mark.parametrize("scenario", SCENARIO_FILES, ids=[p.stem for p in SCENARIO_FILES])
 def test_the_data_island_holds_the_engines_arrays(scenario):
     analysis = analyze(scenario)
-    report = build_report(scenario)
+    report = render_report(analysis)
     live = island(report.html)["live"]
     rl, costs = analysis.risk_levels, analysis.costs
     n, J, L = rl.p.shape
@@ -144,7 +144,10 @@ def test_page_is_self_contained(tmp_path):
         assert not attrs.get("href", "#").strip() or attrs.get("href", "#").startswith("#"), (tag, attrs)
         for value in attrs.values():
             assert "://" not in (value or ""), (tag, attrs)
-    assert len(page.styles) == 1
+    assert ":root" in page.styles[0]  # the report's own style sheet comes first
+    # every id on the page is unique
+    ids = [attrs["id"] for _, attrs in page.tags if "id" in attrs]
+    assert len(ids) == len(set(ids))
     for css in page.styles:
         assert "url(" not in css and "@import" not in css and "@font-face" not in css
     # two scripts: the data island and the inline program; the program loads nothing
@@ -168,7 +171,8 @@ def test_json_for_script_escapes_what_could_end_the_element():
 
 def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
     scenario = hostile_scenario(tmp_path)
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"], capsys)
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"],
+                           capsys)
     assert code == 0, err
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     page = parse(html)
@@ -194,7 +198,8 @@ def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
 
 def test_report_starts_from_overridden_costs(tmp_path, capsys, small_case_table):
     scenario, _ = small_case_table
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path, "--cost", "new_offense=20000",
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path,
+                            "--cost", "new_offense=20000",
                             "--decision-cost", "supervision=100"], capsys)
     assert code == 0, err
     live = island((tmp_path / "report.html").read_text(encoding="utf-8"))["live"]
@@ -208,7 +213,7 @@ def test_report_starts_from_overridden_costs(tmp_path, capsys, small_case_table)
 
 
 def test_controls_say_how_a_per_cell_cost_moves():
-    report = build_report(ROOT / "scenarios" / "demo.toml")
+    report = render_report(analyze(ROOT / "scenarios" / "demo.toml"))
     live = island(report.html)["live"]
     bond = [c for c in live["controls"] if c["kind"] == "decision" and c["mode"] == "scale"]
     assert len(bond) == 1 and bond[0]["value"] == 1.0

@@ -19,8 +19,9 @@ import numpy as np
 import pytest
 
 from policy import costs_from_scenario, evaluate, optimal_rule
+from policy.outputs import write_outputs
 from policy.pipeline import analyze
-from policy.report import DIGITS
+from policy.report import DIGITS, build_report
 
 from .conftest import ROOT, run_cli
 from .test_report import HOSTILE, hostile_scenario
@@ -107,6 +108,17 @@ def number(text: str) -> float:
     return float(text.replace(",", "").replace("%", "").strip())
 
 
+def compared_rows(page) -> dict:
+    """Each compared rule's row: name -> (expected cost, regret, agreement) as shown."""
+    rows = page.locator("#compared-table tbody tr")
+    out = {}
+    for i in range(rows.count()):
+        row = rows.nth(i)
+        out[row.locator("th").inner_text().strip()] = tuple(
+            row.locator(f'[data-live="{k}"]').inner_text().strip() for k in ("compared-cost", "regret", "agreement"))
+    return out
+
+
 def shown(page) -> dict:
     """What the page shows, as a reader would read it."""
     texts = lambda sel: [t.strip() for t in page.locator(sel).all_inner_texts()]
@@ -122,22 +134,23 @@ def shown(page) -> dict:
         "rates": texts('#rates-table [data-live="rate"]'),
         "cost": texts('.headline [data-live="cost"]')[0],
         "lenient": texts('.headline [data-live="share"]')[0],
-        "regret": texts('[data-live="regret"]'),
-        "compared_cost": texts('[data-live="compared-cost"]'),
-        "agreement": texts('[data-live="agreement"]'),
+        "compared": compared_rows(page),
         "rule": rule,
         "status": page.locator("#live-status").inner_text(),
     }
 
 
-def engine(analysis, outcome_costs=None, decision_costs=None, scale=None):
-    """The Python engine's answer for the given costs: rule, its evaluation, the compared rule's."""
+def engine(results, outcome_costs=None, decision_costs=None, scale=None):
+    """The Python engine's answer for the given costs: the rule, its evaluation, and each compared
+    rule's evaluation against it (policy.costs, policy.solve, policy.evaluate)."""
+    analysis = results.analysis
     rl = analysis.risk_levels
     costs = costs_from_scenario(analysis.scenario, rl, outcome_costs, decision_costs)
     if scale:
         costs = costs.with_decision_scale([scale.get(d, 1.0) for d in range(rl.n_levels)])
     rule = optimal_rule(rl, costs)
-    return rule, evaluate(rule, rl, costs), evaluate(analysis.rule, rl, costs, reference=rule)
+    compared = {c.rule.name: evaluate(c.rule, rl, costs, reference=rule) for c in results.compared}
+    return rule, evaluate(rule, rl, costs), compared
 
 
 def close(text: str, value: float, digits: int, scale: float = 1.0) -> bool:
@@ -145,16 +158,20 @@ def close(text: str, value: float, digits: int, scale: float = 1.0) -> bool:
     return abs(number(text) - value * scale) <= 0.5 * 10.0 ** -digits + 1e-9 * max(1.0, abs(value * scale))
 
 
-def assert_matches_engine(view: dict, analysis, rule, ev, compared) -> None:
+def assert_matches_engine(view: dict, results, rule, ev, compared) -> None:
+    analysis = results.analysis
     for text, share in zip(view["shares"], ev.level_shares, strict=True):
         assert close(text, share, DIGITS["share"], 100), (text, share)
     assert view["lenient"] == view["shares"][0]
     for text, rate in zip(view["rates"], ev.outcome_rates, strict=True):
         assert close(text, rate, DIGITS["rate"], 100), (text, rate)
     assert close(view["cost"], ev.cost_per_case, DIGITS["cost"], 1000), (view["cost"], ev.cost_per_1000)
-    assert close(view["regret"][0], compared.regret_per_case, DIGITS["cost"], 1000)
-    assert close(view["compared_cost"][0], compared.cost_per_case, DIGITS["cost"], 1000)
-    assert close(view["agreement"][0], compared.agreement, DIGITS["share"], 100)
+    assert set(view["compared"]) == set(compared)
+    for name, e in compared.items():
+        cost, regret, agreement = view["compared"][name]
+        assert close(cost, e.cost_per_case, DIGITS["cost"], 1000), (name, cost, e.cost_per_1000)
+        assert close(regret, e.regret_per_case, DIGITS["cost"], 1000), (name, regret, 1000 * e.regret_per_case)
+        assert close(agreement, e.agreement, DIGITS["share"], 100), (name, agreement, e.agreement)
     frame, base = rule.to_frame(), analysis.rule.to_frame()
     columns = list(rule.rule_cells.columns)
     assert len(view["rule"]) == len(frame)
@@ -171,25 +188,26 @@ def set_number(page, control: str, value: str) -> None:
 
 
 # ----------------------------------------------------------------------------------------------
+def built_report(folder: Path, scenario: Path):
+    report = build_report(scenario)
+    write_outputs(folder, report.output_files())
+    return folder / "report.html", report.results
+
+
 @pytest.fixture(scope="module")
 def demo_report(tmp_path_factory):
-    import _pytest.capture  # noqa: F401  (run_cli needs a capture fixture; use the CLI's main directly)
-    from policy.cli import main
-
-    folder = tmp_path_factory.mktemp("demo-report")
-    assert main(["report", str(ROOT / "scenarios" / "demo.toml"), "--out", str(folder)]) == 0
-    return folder / "report.html", analyze(ROOT / "scenarios" / "demo.toml")
+    return built_report(tmp_path_factory.mktemp("demo-report"), ROOT / "scenarios" / "demo.toml")
 
 
 def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, tmp_path):
-    path, analysis = demo_report
+    path, results = demo_report
+    analysis = results.analysis
     opened = open_report(browser, path)
     page = opened.page
 
     # on opening, the script's figures equal the engine's at the scenario's own costs
     view = shown(page)
-    assert_matches_engine(view, analysis, analysis.rule, analysis.evaluation,
-                          evaluate(analysis.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule))
+    assert_matches_engine(view, results, *engine(results))
     assert "scenario's own costs" in view["status"]
     # the cautions are on the first screen, before any table of numbers
     caution = page.locator("#cautions")
@@ -207,9 +225,9 @@ def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, 
     value = float(slider.input_value())
     assert value > analysis.costs.outcome[j]
     assert float(page.locator(f"#cost-outcome-{j}-number").input_value()) == value
-    rule, ev, compared = engine(analysis, {"new_offense": value})
+    rule, ev, compared = engine(results, {"new_offense": value})
     after = shown(page)
-    assert_matches_engine(after, analysis, rule, ev, compared)
+    assert_matches_engine(after, results, rule, ev, compared)
     # the committee sees the rule and the lenient share change
     assert any(changed for _, changed in after["rule"].values())
     assert after["lenient"] != view["lenient"]
@@ -218,14 +236,14 @@ def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, 
     # type costs: a fixed decision cost and the factor on the bond's per-cell cost
     set_number(page, "cost-level-1", "400")
     set_number(page, "cost-level-2", "1.5")
-    rule, ev, compared = engine(analysis, {"new_offense": value}, {"supervision": 400}, scale={2: 1.5})
-    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    rule, ev, compared = engine(results, {"new_offense": value}, {"supervision": 400}, scale={2: 1.5})
+    assert_matches_engine(shown(page), results, rule, ev, compared)
     mean = float(np.average(analysis.costs.decision[:, 2], weights=analysis.risk_levels.weights))
     assert close(page.locator("#cost-level-2-mean").inner_text(), 1.5 * mean, 0)
     # a bad entry is marked and changes nothing
     set_number(page, "cost-outcome-0", "-5")
     assert page.locator("#cost-outcome-0-number").get_attribute("aria-invalid") == "true"
-    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    assert_matches_engine(shown(page), results, rule, ev, compared)
 
     page.screenshot(path=str(tmp_path / "report-after-moving-costs.png"), full_page=True)
     assert (tmp_path / "report-after-moving-costs.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
@@ -239,14 +257,14 @@ def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, 
 
     # back to the scenario's costs
     page.locator("#reset-costs").click()
-    assert_matches_engine(shown(page), analysis, analysis.rule, analysis.evaluation,
-                          evaluate(analysis.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule))
+    assert_matches_engine(shown(page), results, *engine(results))
     assert_offline(opened, path)
     page.close()
 
 
 def test_every_control_has_a_label_and_takes_the_keyboard(browser, demo_report):
-    path, analysis = demo_report
+    path, results = demo_report
+    analysis = results.analysis
     opened = open_report(browser, path)
     page = opened.page
     inputs = page.locator("#cost-controls input")
@@ -270,7 +288,8 @@ def test_every_control_has_a_label_and_takes_the_keyboard(browser, demo_report):
 
 def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
     scenario = hostile_scenario(tmp_path)
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"], capsys)
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"],
+                           capsys)
     assert code == 0, err
     path = tmp_path / "out" / "report.html"
     opened = open_report(browser, path)
@@ -292,7 +311,8 @@ def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
 
 
 def test_ties_go_to_the_lenient_level_as_in_the_engine(browser, demo_report):
-    path, analysis = demo_report
+    path, results = demo_report
+    analysis = results.analysis
     opened = open_report(browser, path)
     page = opened.page
     # every cost zero: every level ties in every rule cell, and both engines pick the most lenient
@@ -300,14 +320,74 @@ def test_ties_go_to_the_lenient_level_as_in_the_engine(browser, demo_report):
     for i in range(controls.count()):
         controls.nth(i).fill("0")
     L = analysis.risk_levels.n_levels
-    rule, ev, compared = engine(analysis, {k: 0.0 for k in analysis.scenario.outcome_keys},
+    rule, ev, compared = engine(results, {k: 0.0 for k in analysis.scenario.outcome_keys},
                                 {v: 0.0 for v in analysis.scenario.level_values}, scale={L - 1: 0.0})
     assert (rule.level == 0).all()
-    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    assert_matches_engine(shown(page), results, rule, ev, compared)
     # only the decision costs: supervision free, recognizance and bond as in the scenario
     page.locator("#reset-costs").click()
     page.locator("#cost-level-1-number").fill("0")
-    rule, ev, compared = engine(analysis, None, {analysis.scenario.level_values[1]: 0.0})
-    assert_matches_engine(shown(page), analysis, rule, ev, compared)
+    rule, ev, compared = engine(results, None, {analysis.scenario.level_values[1]: 0.0})
+    assert_matches_engine(shown(page), results, rule, ev, compared)
+    assert_offline(opened, path)
+    page.close()
+
+
+@pytest.fixture(scope="module")
+def constrained_report(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("constrained-report")
+    path, results = built_report(folder, ROOT / "scenarios" / "demo_constrained.toml")
+    return folder, results
+
+
+def constrained_shown(page) -> dict:
+    texts = lambda kind: [t.strip() for t in page.locator(f'#constrained-live [data-live="{kind}"]').all_inner_texts()]
+    return {"cost": texts("c-cost")[0], "price": texts("c-price")[0], "shares": texts("c-share"), "rates": texts("c-rate"),
+            "note": page.locator("#constrained-note").inner_text()}
+
+
+def assert_constrained_matches(view: dict, con) -> None:
+    assert close(view["cost"], con.cost_per_case, DIGITS["cost"], 1000), (view["cost"], con.cost_per_case)
+    assert close(view["price"], con.price_per_case, DIGITS["cost"], 1000), (view["price"], con.price_per_case)
+    for text, v in zip(view["shares"], con.evaluation.level_shares, strict=True):
+        assert close(text, v, DIGITS["share"], 100), (text, v)
+    for text, v in zip(view["rates"], con.evaluation.outcome_rates, strict=True):
+        assert close(text, v, DIGITS["rate"], 100), (text, v)
+
+
+def test_constrained_figures_come_from_the_nearest_precomputed_point(browser, constrained_report):
+    import pandas as pd
+
+    folder, results = constrained_report
+    analysis = results.analysis
+    path = folder / "report.html"
+    opened = open_report(browser, path)
+    page = opened.page
+    # at the scenario's costs: the constrained rule solved at exactly those costs
+    view = constrained_shown(page)
+    assert "exactly these costs" in view["note"]
+    assert_constrained_matches(view, analysis.constrained)
+
+    j = analysis.scenario.outcome_index("new_offense")
+    page.locator(f"#cost-outcome-{j}-range").focus()
+    for _ in range(3):
+        page.keyboard.press("PageUp")
+    value = float(page.locator(f"#cost-outcome-{j}-range").input_value())
+    # the nearest point on the ratio axis, c_j / mean cost of the harshest level
+    grid = pd.read_csv(folder / "constrained_sweep.csv")
+    grid = grid[grid["outcome"] == "new_offense"]
+    c_ref = float(np.average(analysis.costs.decision[:, -1], weights=analysis.risk_levels.weights))
+    nearest = float(grid["cost"].to_numpy()[np.argmin(np.abs(grid["cost"].to_numpy() / c_ref - value / c_ref))])
+    # the point's figures equal a constrained solve at that point's costs, done afresh
+    fresh = analyze(analysis.scenario, {"new_offense": nearest}).constrained
+    view = constrained_shown(page)
+    assert_constrained_matches(view, fresh)
+    assert "nearest" in view["note"] and f"{nearest:,.0f}" in view["note"]
+    # the constrained rule held at the scenario's costs is one of the compared rules, live
+    assert analysis.constrained.rule.name in shown(page)["compared"]
+    assert_matches_engine(shown(page), results, *engine(results, {"new_offense": value}))
+    # another cost moved too: the page says the constrained figures do not follow it
+    page.locator("#cost-level-1-number").fill("500")
+    assert "not reflected" in constrained_shown(page)["note"]
     assert_offline(opened, path)
     page.close()

@@ -157,12 +157,9 @@
     });
     live.controls.forEach(function (c) {
       var mean = document.getElementById(c.id + "-mean");
-      if (mean) {
-        var m = 0;
-        for (var x = 0; x < n; x++) { m += w[x] * decisionCost(x, c.index); }
-        mean.textContent = fmtNum(m / totalWeight, 0);
-      }
+      if (mean) { mean.textContent = fmtNum(meanDecisionCost(c.index), 0); }
     });
+    showConstrained();
     var status = document.getElementById("live-status");
     var printed = document.getElementById("printed-costs");
     if (atScenarioCosts()) {
@@ -176,9 +173,68 @@
     }
   }
 
+  // ---- the constrained rule: the precomputed point nearest the chosen ratio ----------------
+  var lastOutcome = null;
+
+  function meanDecisionCost(d) {
+    var m = 0;
+    for (var x = 0; x < n; x++) { m += w[x] * decisionCost(x, d); }
+    return m / totalWeight;
+  }
+
+  function showConstrained() {
+    var sweeps = live.constrained;
+    var note = document.getElementById("constrained-note");
+    if (!sweeps || !sweeps.length || !note) { return; }
+    var moved = [], decisionMoved = false;
+    live.controls.forEach(function (c) {
+      var value = c.kind === "outcome" ? outcomeCost[c.index] : decisionSetting[c.index].value;
+      if (value !== c.value) {
+        if (c.kind === "outcome") { moved.push(c.index); } else { decisionMoved = true; }
+      }
+    });
+    var j = moved.indexOf(lastOutcome) >= 0 ? lastOutcome : (moved.length ? moved[0] : sweeps[0].outcome_index);
+    var sweep = sweeps.filter(function (s) { return s.outcome_index === j; })[0];
+    // the chosen ratio: the outcome's cost over the mean cost of the harshest level, as chosen
+    var ref = meanDecisionCost(L - 1);
+    var useRatio = sweep.reference_cost > 0 && ref > 0;
+    var target = useRatio ? outcomeCost[j] / ref : outcomeCost[j];
+    var best = 0, gap = Infinity;
+    sweep.values.forEach(function (v, i) {
+      var at = useRatio ? v / sweep.reference_cost : v;
+      var g = Math.abs(at - target);
+      if (g < gap) { gap = g; best = i; }
+    });
+    each("c-cost", function (el) { el.textContent = fmtNum(1000 * sweep.cost[best], digits.cost); });
+    each("c-price", function (el) { el.textContent = fmtNum(1000 * sweep.price[best], digits.cost); });
+    each("c-share", function (el, i) { el.textContent = fmtPct(sweep.shares[best][i], digits.share); });
+    each("c-rate", function (el, i) { el.textContent = fmtPct(sweep.rates[best][i], digits.rate); });
+    var label = live.outcome_labels[j];
+    if (!moved.length && !decisionMoved) {
+      note.textContent = "At the scenario's own costs: the constrained rule solved at exactly these costs.";
+      return;
+    }
+    var text = "Precomputed point nearest the ratio chosen: cost of one " + label + " "
+      + fmtNum(sweep.values[best], 0) + " " + live.unit;
+    if (useRatio) {
+      text += " (ratio " + fmtNum(sweep.values[best] / sweep.reference_cost, 2) + " to the mean cost of "
+        + sweep.reference_label + "; chosen here: " + fmtNum(target, 2) + ")";
+    }
+    text += ", every other cost at the scenario's value.";
+    if (moved.length > 1 || decisionMoved) {
+      text += " The other costs changed here are not reflected in these constrained figures.";
+    }
+    note.textContent = text;
+  }
+
   // ---- wiring the controls ----------------------------------------------------------------
   function setValue(c, value) {
-    if (c.kind === "outcome") { outcomeCost[c.index] = value; } else { decisionSetting[c.index].value = value; }
+    if (c.kind === "outcome") {
+      outcomeCost[c.index] = value;
+      lastOutcome = c.index;
+    } else {
+      decisionSetting[c.index].value = value;
+    }
   }
 
   live.controls.forEach(function (c) {
