@@ -220,3 +220,29 @@ def test_controls_say_how_a_per_cell_cost_moves():
     assert "factor on each cell's cost from column bond_cost" in "".join(parse(report.html).text)
     for c in live["controls"]:
         assert c["min"] <= c["value"] <= c["max"] and c["step"] > 0
+
+
+def test_constrained_sweep_points_are_constrained_solves():
+    from policy.constrained import ConstrainedProblem
+    from policy.constrained_sweep import sweep_constrained
+
+    scenario = ROOT / "scenarios" / "demo_constrained.toml"
+    analysis = analyze(scenario)
+    con = analysis.constrained
+    problem = ConstrainedProblem(analysis.risk_levels, analysis.costs, con.specs,
+                                 settings=analysis.scenario.sections.get("linear_program"))
+    j = analysis.scenario.outcome_index("new_offense")
+    values = [0.0, 3000.0, float(analysis.costs.outcome[j]), 20000.0]
+    sweep = sweep_constrained(problem, j, values)
+    # the problem is left at the scenario's costs
+    np.testing.assert_array_equal(problem.outcome_costs, analysis.costs.outcome)
+    for i, v in enumerate(values):
+        fresh = analyze(scenario, {"new_offense": v}).constrained  # built and solved from scratch
+        assert sweep.cost_per_case[i] == pytest.approx(fresh.cost_per_case, rel=1e-9)
+        assert sweep.price_per_case[i] == pytest.approx(fresh.price_per_case, rel=1e-7, abs=1e-9)
+        np.testing.assert_allclose(sweep.level_shares[i], fresh.evaluation.level_shares, atol=1e-9)
+    frame = sweep.to_frame()
+    assert list(frame["cost"]) == values
+    np.testing.assert_allclose(frame["ratio"] * sweep.reference_cost, values)
+    c_ref = np.average(analysis.costs.decision[:, -1], weights=analysis.risk_levels.weights)
+    assert sweep.reference_cost == pytest.approx(c_ref)
