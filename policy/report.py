@@ -27,7 +27,7 @@ import pandas as pd
 from jinja2 import Environment, PackageLoader, StrictUndefined
 from markupsafe import Markup
 
-from .cautions import CAUTIONS, assumptions_for
+from .cautions import ASSUMPTIONS, CAUTIONS, assumptions_for
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, analyze, as_scenario
 from .rules import Rule
@@ -70,7 +70,8 @@ def fmt_num(value: float, digits: int = 0) -> str:
     if value is None or not math.isfinite(float(value)):
         return "\u2013"
     text = f"{float(value):,.{digits}f}"
-    return "0" if text in ("-0", "-0.0") and digits == 0 else text
+    # a negative number that rounds to zero shows as zero, as on the page's script
+    return text[1:] if text.startswith("-") and not any(ch in "123456789" for ch in text) else text
 
 
 def input_value(value: float) -> str:
@@ -240,13 +241,22 @@ def scenario_section(results: ReportResults) -> Section:
     unit = costs.unit or "(no unit given)"
     levels = []
     for d, level in enumerate(sc.levels):
+        source = level.cost_source or "(no source given)"
         if _constant(costs.decision[:, d]):
-            cost = fmt_num(costs.decision[0, d] if len(costs.decision) else level.cost, 0)
+            value = float(costs.decision[0, d]) if len(costs.decision) else float(level.cost or 0.0)
+            cost = fmt_num(value, 0)
+            if level.cost is None or value != level.cost:
+                source = f"set for this report, not the scenario's; the scenario's: {source}"
         else:
             mean = float(np.average(costs.decision[:, d], weights=results.analysis.risk_levels.weights))
             cost = f"per case from column {level.cost_column} (mean {fmt_num(mean, 0)})"
-        levels.append((str(d), level.label, level.value, cost, level.cost_source or "(no source given)"))
-    outcomes = [(o.label, o.key, fmt_num(o.cost, 0), o.cost_source or "(no source given)") for o in sc.outcomes]
+        levels.append((str(d), level.label, level.value, cost, source))
+    outcomes = []
+    for o, value in zip(sc.outcomes, costs.outcome):
+        source = o.cost_source or "(no source given)"
+        if value != o.cost:
+            source = f"set for this report (the scenario's: {fmt_num(o.cost, 0)}, {source})"
+        outcomes.append((o.label, o.key, fmt_num(value, 0), source))
     return Section(
         key="scenario",
         title="The question and the scenario",
@@ -267,7 +277,7 @@ def scenario_section(results: ReportResults) -> Section:
             "covariates": list(sc.covariates),
             "seed": sc.seed,
         },
-        assumptions=(assumptions_for("rule")[-1],),
+        assumptions=(ASSUMPTIONS["costs"],),
     )
 
 
@@ -399,7 +409,7 @@ def groups_section(results: ReportResults) -> Section:
     wide = overall.pivot_table(index=["outcome", "risk_level", "risk_level_name"], columns="level", values="share", sort=False)
     wide = wide.reset_index()
     wide["outcome"] = wide["outcome"].map(label)
-    wide = wide.drop(columns=["risk_level"]).rename(columns={"risk_level_name": "risk level"})
+    wide = wide.rename(columns={"risk_level_name": "risk level"})[["outcome", "risk level", *ev.level_labels]]
     wide.columns.name = None
     gaps = ev.fairness_gaps().dropna(subset=["gap"]).sort_values("gap", ascending=False).head(10)
     gaps = gaps.assign(outcome=gaps["outcome"].map(lambda k: label.get(k, "(all)")))
