@@ -199,11 +199,19 @@ def demo_report(tmp_path_factory):
     return built_report(tmp_path_factory.mktemp("demo-report"), ROOT / "scenarios" / "demo.toml")
 
 
-def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, tmp_path):
+@pytest.fixture
+def demo_page(browser, demo_report):
+    """The demo report open in a fresh page; afterwards, no request may have left the file."""
     path, results = demo_report
-    analysis = results.analysis
     opened = open_report(browser, path)
-    page = opened.page
+    yield opened.page, results
+    assert_offline(opened, path)
+    opened.page.close()
+
+
+def test_demo_report_offline_live_and_equal_to_the_engine(demo_page, tmp_path):
+    page, results = demo_page
+    analysis = results.analysis
 
     # on opening, the script's figures equal the engine's at the scenario's own costs
     view = shown(page)
@@ -258,15 +266,11 @@ def test_demo_report_offline_live_and_equal_to_the_engine(browser, demo_report, 
     # back to the scenario's costs
     page.locator("#reset-costs").click()
     assert_matches_engine(shown(page), results, *engine(results))
-    assert_offline(opened, path)
-    page.close()
 
 
-def test_every_control_has_a_label_and_takes_the_keyboard(browser, demo_report):
-    path, results = demo_report
+def test_every_control_has_a_label_and_takes_the_keyboard(demo_page):
+    page, results = demo_page
     analysis = results.analysis
-    opened = open_report(browser, path)
-    page = opened.page
     inputs = page.locator("#cost-controls input")
     assert inputs.count() == 2 * (len(analysis.scenario.outcomes) + len(analysis.scenario.levels))
     for i in range(inputs.count()):
@@ -282,8 +286,6 @@ def test_every_control_has_a_label_and_takes_the_keyboard(browser, demo_report):
         if page.evaluate("document.activeElement.type") == "range":
             break
     assert page.evaluate("document.activeElement.type") == "range"
-    assert_offline(opened, path)
-    page.close()
 
 
 def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
@@ -310,11 +312,9 @@ def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
     page.close()
 
 
-def test_ties_go_to_the_lenient_level_as_in_the_engine(browser, demo_report):
-    path, results = demo_report
+def test_ties_go_to_the_lenient_level_as_in_the_engine(demo_page):
+    page, results = demo_page
     analysis = results.analysis
-    opened = open_report(browser, path)
-    page = opened.page
     # every cost zero: every level ties in every rule cell, and both engines pick the most lenient
     controls = page.locator('#cost-controls input[type="number"]')
     for i in range(controls.count()):
@@ -329,8 +329,6 @@ def test_ties_go_to_the_lenient_level_as_in_the_engine(browser, demo_report):
     page.locator("#cost-level-1-number").fill("0")
     rule, ev, compared = engine(results, None, {analysis.scenario.level_values[1]: 0.0})
     assert_matches_engine(shown(page), results, rule, ev, compared)
-    assert_offline(opened, path)
-    page.close()
 
 
 @pytest.fixture(scope="module")
