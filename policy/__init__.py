@@ -15,6 +15,8 @@ from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
 from .report import Report, build_report
+from .uncertainty import BootstrapResult, bootstrap
+from .compare import Comparison, compare
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
@@ -34,6 +36,8 @@ __all__ = [
     "CellLayout",
     "CellTable",
     "CheckReport",
+    "BootstrapResult",
+    "Comparison",
     "ConstrainedProblem",
     "ConstrainedRule",
     "ConstraintSpec",
@@ -52,7 +56,9 @@ __all__ = [
     "SolverError",
     "analyze",
     "build_report",
+    "bootstrap",
     "check",
+    "compare",
     "costs_from_scenario",
     "estimate",
     "estimate_risk_levels",

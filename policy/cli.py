@@ -281,6 +281,76 @@ def report(
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
 
 
+def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
+    if lo != lo or hi != hi:  # NaN: no interval
+        return format(value, fmt)
+    return f"{format(value, fmt)} ({format(lo, fmt)} to {format(hi, fmt)})"
+
+
+def _comparison_table(comparison) -> Table:
+    frame = comparison.comparison_frame()
+    keys = comparison.risk_levels.outcome_keys
+    table = Table(title=f"Rules compared ({comparison.result.interval_label} in brackets)")
+    table.add_column("rule")
+    table.add_column(f"expected cost per 1,000 cases ({comparison.costs.unit})", justify="right")
+    table.add_column("regret per 1,000 cases", justify="right")
+    table.add_column("same level as the optimum", justify="right")
+    table.add_column(f"safe ({keys[0]}) given a harsher level", justify="right")
+    table.add_column(f"preventable ({keys[0]}) given too lenient a level", justify="right")
+    for _, row in frame.iterrows():
+        table.add_row(
+            row["rule"],
+            _interval_text(row["cost_per_1000_cases"], row["cost_per_1000_cases_lower"], row["cost_per_1000_cases_upper"], ",.0f"),
+            _interval_text(row["regret_per_1000_cases"], row["regret_per_1000_cases_lower"], row["regret_per_1000_cases_upper"], ",.0f"),
+            _interval_text(row["agreement"], row["agreement_lower"], row["agreement_upper"], ".1%"),
+            _interval_text(row[f"safe_given_harsher_{keys[0]}"], row[f"safe_given_harsher_{keys[0]}_lower"],
+                           row[f"safe_given_harsher_{keys[0]}_upper"], ".1%"),
+            _interval_text(row[f"preventable_given_too_lenient_{keys[0]}"], row[f"preventable_given_too_lenient_{keys[0]}_lower"],
+                           row[f"preventable_given_too_lenient_{keys[0]}_upper"], ".1%"),
+        )
+    return table
+
+
+@command
+def compare(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates (default: [uncertainty] replicates, 1000)."),
+    seed: Optional[int] = typer.Option(None, help="Root seed of the bootstrap (default: [scenario] seed)."),
+    resampling: Optional[str] = typer.Option(None, help="'poisson' or 'multinomial' (default: [uncertainty] resampling)."),
+    outcomes: Optional[str] = typer.Option(None, help="'model' or 'cases' (default: [uncertainty] outcomes)."),
+    interval: Optional[float] = typer.Option(None, help="Coverage of the intervals (default: [uncertainty] interval, 0.95)."),
+    workers: Optional[int] = typer.Option(None, help="Worker processes (default: every core); the output does not depend on it."),
+    progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+):
+    """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
+    from .compare import compare as run_compare
+    from .outputs import write_outputs
+
+    comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                             outcomes=outcomes, workers=workers, progress=progress)
+    paths = write_outputs(out, comparison.output_files())
+    r = comparison.result
+    console.print(comparison.scenario.title, style="bold")
+    console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
+                  f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
+    console.print(_comparison_table(comparison))
+    show_assumptions("evaluation")
+    console.print("Observed rules (what courts did) also assume:", style="bold")
+    for a in assumptions_for("observed_rule"):
+        console.print(f"  - {a}")
+    readings = comparison.readings()
+    if readings:
+        console.print("Effect of showing the aid, by risk level (overall; by group in aid_effect.csv):", style="bold")
+        for line in readings:
+            console.print(f"  - {line}")
+        show_assumptions("aid_effect")
+    for note in comparison.notes:
+        console.print(f"Note: {note}")
+    show_cautions()
+    show_written(paths)
+
+
 def main(argv: Optional[List[str]] = None) -> int:
     """Run the command line; return the exit code."""
     try:
