@@ -217,11 +217,17 @@ class ReportResults:
     constrained_sweeps : tuple of ConstrainedSweep
         The constrained rule re-solved along each outcome cost (:mod:`policy.constrained_sweep`),
         shown at the point nearest the costs chosen on the page.
+    comparison : Comparison, optional
+        The rules compared with intervals and the aid's effect (:func:`policy.compare.compare`).
+    comparison_note : str
+        Why there is no comparison, where there is none.
     """
 
     analysis: Analysis
     compared: tuple[ComparedRule, ...] = ()
     constrained_sweeps: tuple[Any, ...] = ()
+    comparison: Any = None
+    comparison_note: str = ""
 
     @property
     def scenario(self) -> Scenario:
@@ -511,6 +517,114 @@ def constrained_section(results: ReportResults) -> Section | None:
     )
 
 
+def fmt_interval(value: float, lo: float, hi: float, fmt: Callable[[float], str]) -> str:
+    """A figure with its interval in brackets, e.g. '12.3% (10.1% to 14.0%)'; without one where missing."""
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return fmt(value)
+    return f"{fmt(value)} ({fmt(lo)} to {fmt(hi)})"
+
+
+def comparison_section(results: ReportResults) -> Section:
+    """The optimum against what courts did, the aid's recommendation and candidate rules, with intervals."""
+    cmp = results.comparison
+    if cmp is None:
+        return Section(key="comparison", title="Compared with what courts did, the aid and candidate rules",
+                       template="sections/unavailable.html.j2", context={"why": results.comparison_note})
+    frame = cmp.comparison_frame()
+    rl = cmp.risk_levels
+    cost = lambda v: fmt_num(v)
+    pct1 = lambda v: fmt_pct(v, DIGITS["share"])
+    pct2 = lambda v: fmt_pct(v, DIGITS["rate"])
+
+    def iv(row, col, fmt):
+        return fmt_interval(row[col], row[f"{col}_lower"], row[f"{col}_upper"], fmt)
+
+    main_rows, share_rows = [], []
+    for _, row in frame.iterrows():
+        main_rows.append((row["rule"], row["kind"], iv(row, "cost_per_1000_cases", cost),
+                          iv(row, "regret_per_1000_cases", cost), iv(row, "agreement", pct1)))
+        share_rows.append((row["rule"],) + tuple(iv(row, f"share_{v}", pct1) for v in rl.level_values)
+                          + tuple(iv(row, f"rate_{k}", pct2) for k in rl.outcome_keys))
+    label = cmp.result.interval_label
+    unit = cmp.costs.unit
+    costs_view = TableView(f"Expected cost, regret and agreement per 1,000 cases ({unit}; {label} in brackets)",
+                           ("rule", "kind", "expected cost", "regret against the cost-minimizing rule",
+                            "same decision as the cost-minimizing rule"),
+                           tuple(main_rows), (False, False, True, True, True))
+    shares_view = TableView(f"Decision shares and expected outcome rates ({label} in brackets)",
+                            ("rule",) + tuple(f"share: {lab}" for lab in rl.level_labels)
+                            + tuple(f"rate: {lab}" for lab in rl.outcome_labels),
+                            tuple(share_rows), (False,) + (True,) * (rl.n_levels + len(rl.outcome_keys)))
+    misplaced_rows = []
+    for _, row in frame.iterrows():
+        misplaced_rows.append((row["rule"],) + tuple(iv(row, f"safe_given_harsher_{k}", pct1) for k in rl.outcome_keys)
+                              + tuple(iv(row, f"preventable_given_too_lenient_{k}", pct1) for k in rl.outcome_keys))
+    misplaced_view = TableView(
+        f"Cases given a harsher level than their risk level calls for, or one too lenient to prevent the outcome ({label})",
+        ("rule",) + tuple(f"safe ({lab}) given a harsher level" for lab in rl.outcome_labels)
+        + tuple(f"preventable ({lab}) given too lenient a level" for lab in rl.outcome_labels),
+        tuple(misplaced_rows), (False,) + (True,) * (2 * len(rl.outcome_keys)))
+    r = cmp.result
+    return Section(
+        key="comparison",
+        title="Compared with what courts did, the aid and candidate rules",
+        template="sections/comparison.html.j2",
+        context={
+            "costs": costs_view, "shares": shares_view, "misplaced": misplaced_view,
+            "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
+            "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
+            "observed_assumptions": assumptions_for("observed_rule"),
+        },
+        assumptions=tuple(assumptions_for("evaluation")),
+        files=cmp.output_files(),
+    )
+
+
+def aid_effect_section(results: ReportResults) -> Section | None:
+    """The effect of showing the aid on decisions, by risk level, with intervals."""
+    cmp = results.comparison
+    if cmp is None:
+        return None
+    if not cmp.has_arm:
+        return Section(key="aid-effect", title="The effect of showing the aid, by risk level",
+                       template="sections/unavailable.html.j2",
+                       context={"why": "The data have no arm column (whether the aid was shown), so the aid's effect "
+                                       "on decisions cannot be estimated."})
+    rl = cmp.risk_levels
+    label = dict(zip(rl.outcome_keys, rl.outcome_labels))
+    eff = cmp.effect_frame()
+    eff = eff[eff["attribute"] == "all"]
+    pct = lambda v: fmt_pct(v, DIGITS["share"])
+    signed = lambda v: ("+" if v > 0 else "") + fmt_pct(v, DIGITS["share"])
+    tables = []
+    for key in rl.outcome_keys:
+        part = eff[eff["outcome"] == key]
+        rows = tuple((row["risk_level_name"], f"{row['threshold']} or harsher", pct(row["not_shown"]), pct(row["shown"]),
+                      fmt_interval(row["effect"], row["effect_lower"], row["effect_upper"], signed),
+                      row["direction"], row["meaning"])
+                     for _, row in part.iterrows())
+        tables.append(TableView(
+            f"{label[key]}: share given a level or harsher, by risk level, without and with the aid "
+            f"(all cases; {cmp.result.interval_label} in brackets)",
+            ("risk level", "decision", "aid not shown", "aid shown", "difference (points)", "direction", "what it means"),
+            rows, (False, False, True, True, True, False, False), row_header=2))
+    itt = cmp.itt_frame()
+    itt = itt[itt["attribute"] == "all"]
+    itt_rows = tuple((f"{row['figure']}: {row['level']}", pct(row["not_shown"]), pct(row["shown"]),
+                      fmt_interval(row["difference"], row["difference_lower"], row["difference_upper"], signed))
+                     for _, row in itt.iterrows())
+    itt_view = TableView(f"Decision shares by arm, all cases ({cmp.result.interval_label} in brackets)",
+                         ("figure", "aid not shown", "aid shown", "difference (points)"), itt_rows,
+                         (False, True, True, True))
+    return Section(
+        key="aid-effect",
+        title="The effect of showing the aid, by risk level",
+        template="sections/aid_effect.html.j2",
+        context={"readings": cmp.readings(), "tables": tables, "itt": itt_view, "aid": cmp.scenario.aid.name},
+        assumptions=tuple(assumptions_for("aid_effect")),
+    )
+
+
 #: the section builders, in page order; each takes ReportResults and returns a Section or None
 SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     scenario_section,
@@ -518,6 +632,8 @@ SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     risk_level_section,
     live_rule_section,
     constrained_section,
+    comparison_section,
+    aid_effect_section,
     groups_section,
 ]
 
@@ -707,8 +823,25 @@ def render_report(results: ReportResults | Analysis) -> Report:
     return Report(sc, page, tuple(sections), files, results)
 
 
+#: what each kind of compared rule is, in the live table
+KIND_NOTES = {
+    "optimal": "the cost-minimizing rule at the scenario's own costs, held fixed while the costs move",
+    "aid": "what the aid recommended",
+    "candidate": "a candidate rule written in the scenario",
+    "observed": "what courts did (decisions observed in the data)",
+}
+
+
+def compared_rules(comparison) -> list[ComparedRule]:
+    """The rules of a comparison, each with its point evaluation, as rules compared live."""
+    return [ComparedRule(rule, ev, rule.note or KIND_NOTES.get(rule.kind, rule.kind) if rule.kind != "optimal"
+                         else KIND_NOTES["optimal"])
+            for rule, ev in zip(comparison.rules, comparison.evaluations)]
+
+
 def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
-                 decision_costs: Mapping[str, float] | None = None) -> Report:
+                 decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
+                 progress: bool = False) -> Report:
     """Run the stages for a scenario and assemble their results into the committee report.
 
     Parameters
@@ -717,19 +850,33 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     outcome_costs, decision_costs : mapping, optional
         What-if overrides of the scenario's costs, as for :func:`policy.pipeline.analyze`;
         the page's controls start from these costs.
+    replicates : int, optional
+        Bootstrap replicates of the comparison (default: the scenario's ``[uncertainty]``).
+    progress : bool
+        Show the bootstrap's progress bar.
 
     Returns
     -------
     Report
     """
     scenario = as_scenario(scenario)
+    from .compare import compare
+
     analysis = analyze(scenario, outcome_costs, decision_costs)
-    compared = [held_rule(analysis)]
+    comparison, why = None, ""
+    if scenario.data.kind == "risk_level_table":
+        why = ("The risk levels came from a table estimated elsewhere: it holds no observed decisions and no counts, "
+               "so there is nothing courts did to compare and no bootstrap interval.")
+        compared = [held_rule(analysis)]
+    else:
+        comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
+                             decision_costs=decision_costs, progress=progress)
+        compared = compared_rules(comparison)
     points: list = []
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
         points = constrained_sweeps(analysis)
-    return render_report(ReportResults(analysis, tuple(compared), tuple(points)))
+    return render_report(ReportResults(analysis, tuple(compared), tuple(points), comparison, why))
 
 
 def held_constrained_rule(analysis: Analysis) -> ComparedRule:

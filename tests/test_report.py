@@ -19,6 +19,8 @@ from policy.report import build_report, json_for_script, render_report
 from .conftest import ROOT, SMALL_SCENARIO, run_cli, write_scenario
 
 SCENARIO_FILES = sorted((ROOT / "scenarios").glob("*.toml"))
+#: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)
+REPLICATES = 20
 
 #: labels that would run code or add elements if a page pasted them in as markup
 HOSTILE = {
@@ -92,7 +94,7 @@ def hostile_scenario(folder: Path) -> Path:
 # ----------------------------------------------------------------------------------------------
 @pytest.mark.parametrize("scenario", SCENARIO_FILES, ids=[p.stem for p in SCENARIO_FILES])
 def test_report_builds_for_every_scenario(scenario, tmp_path, capsys):
-    code, out, err = run_cli(["report", scenario, "--out", tmp_path], capsys)
+    code, out, err = run_cli(["report", scenario, "--out", tmp_path, "--replicates", REPLICATES, "--no-progress"], capsys)
     assert code == 0, err
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
     page = parse(html)
@@ -135,7 +137,7 @@ def test_the_data_island_holds_the_engines_arrays(scenario):
 
 
 def test_page_is_self_contained(tmp_path):
-    report = build_report(ROOT / "scenarios" / "demo.toml")
+    report = build_report(ROOT / "scenarios" / "demo.toml", replicates=REPLICATES)
     page = parse(report.html)
     names = {tag for tag, _ in page.tags}
     assert not names & {"link", "img", "iframe", "object", "embed", "base", "audio", "video", "source"}
@@ -171,7 +173,7 @@ def test_json_for_script_escapes_what_could_end_the_element():
 
 def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
     scenario = hostile_scenario(tmp_path)
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"],
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out", "--replicates", REPLICATES, "--no-progress"],
                            capsys)
     assert code == 0, err
     html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")

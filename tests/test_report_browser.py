@@ -31,6 +31,8 @@ CHROMIUM = os.environ.get("POLICY_TEST_CHROMIUM", "/usr/bin/chromium")
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync"]
 INSTALL = "install Debian's browser with `apt-get install -y chromium` (.ci/run does) and the test extra (playwright)"
+#: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)
+REPLICATES = 20
 
 
 @pytest.fixture(scope="module")
@@ -189,7 +191,7 @@ def set_number(page, control: str, value: str) -> None:
 
 # ----------------------------------------------------------------------------------------------
 def built_report(folder: Path, scenario: Path):
-    report = build_report(scenario)
+    report = build_report(scenario, replicates=REPLICATES)
     write_outputs(folder, report.output_files())
     return folder / "report.html", report.results
 
@@ -290,7 +292,7 @@ def test_every_control_has_a_label_and_takes_the_keyboard(demo_page):
 
 def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
     scenario = hostile_scenario(tmp_path)
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out"],
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out", "--replicates", REPLICATES, "--no-progress"],
                            capsys)
     assert code == 0, err
     path = tmp_path / "out" / "report.html"
