@@ -12,6 +12,7 @@ from .constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolu
 from .constraints import ConstraintSpec
 from .costs import Costs, costs_from_scenario, expected_cost
 from .errors import InfeasibleError, InputError, PolicyError, SolverError
+from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
 from .report import Report, build_report
@@ -20,6 +21,7 @@ from .compare import Comparison, compare
 from .rules import Rule
 from .scenario import Scenario, load_scenario
 from .solve import optimal_rule
+from .sweep import LenientMap, OneRatioSweep, SweepResult, lenient_map, ratio_axis, sweep_one, sweep_scenario
 from .strata import (
     RiskLevelEstimator,
     RiskLevels,
@@ -47,13 +49,17 @@ __all__ = [
     "InputError",
     "LPSettings",
     "LPSolution",
+    "LenientMap",
+    "OneRatioSweep",
     "PolicyError",
     "Report",
+    "RiskBounds",
     "RiskLevelEstimator",
     "RiskLevels",
     "Rule",
     "Scenario",
     "SolverError",
+    "SweepResult",
     "analyze",
     "build_report",
     "bootstrap",
@@ -65,9 +71,15 @@ __all__ = [
     "evaluate",
     "expected_cost",
     "isotonic_nonincreasing",
+    "lenient_map",
     "load_cell_table",
     "load_scenario",
+    "manski_bounds",
     "optimal_rule",
+    "ratio_axis",
     "risk_level_distribution",
+    "sensitivity_bounds",
     "solve_constrained",
+    "sweep_one",
+    "sweep_scenario",
 ]

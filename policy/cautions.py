@@ -21,6 +21,7 @@ ASSUMPTIONS: dict[str, str] = {
     "costs": "the cost weights of the scenario (value judgments), in its stated unit",
     "sensitivity": "within a cell, unmeasured factors change the odds of the outcome between cases given different decisions by at most the stated factor Gamma",
     "bounds": "monotonicity only (no unconfoundedness): the bounds hold for every confounding story consistent with the data",
+    "swept_costs": "the swept cost takes every value in the range shown; every other cost stays at the scenario's value (value judgments), in its stated unit",
 }
 
 #: which assumptions each kind of figure needs
@@ -32,6 +33,8 @@ FIGURE_ASSUMPTIONS: dict[str, tuple[str, ...]] = {
     "aid_effect": ("monotonicity", "unconfoundedness", "exclusion", "randomized_arm"),
     "bounds": ("bounds", "costs"),
     "sensitivity": ("monotonicity", "sensitivity", "costs"),
+    "sweep": ("monotonicity", "unconfoundedness", "swept_costs"),
+    "robust_sweep": ("monotonicity", "swept_costs"),
 }
 
 

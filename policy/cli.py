@@ -51,6 +51,38 @@ def command(fn):
 
 
 OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
+CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
+DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
+ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
+GroupBlindOption = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute.")
+PrincipalFairnessOption = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable).")
+MaxShareOption = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable).")
+MaxRateOption = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable).")
+IgnoreConstraintsOption = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]].")
+ReplicatesOption = typer.Option(None, "--replicates", help="Bootstrap replicates (default: [uncertainty] replicates, 1000; 0: no intervals).")
+SeedOption = typer.Option(None, "--seed", help="Root seed of the bootstrap (default: [scenario] seed).")
+ResamplingOption = typer.Option(None, "--resampling", help="'poisson' or 'multinomial' (default: [uncertainty] resampling).")
+OutcomesOption = typer.Option(None, "--outcomes", help="'model' or 'cases' (default: [uncertainty] outcomes).")
+IntervalOption = typer.Option(None, "--interval", help="Coverage of the intervals (default: [uncertainty] interval, 0.95).")
+WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: every core); the output does not depend on it.")
+ProgressOption = typer.Option(True, "--progress/--no-progress", help="Show progress bars.")
+LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
+
+
+def _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver):
+    """Constraints added on the command line (as tables) and the LP settings in force."""
+    from dataclasses import replace
+
+    from .constrained import lp_settings_from_table
+    from .constraints import parse_constraint_text, shorthand_tables
+
+    added = [parse_constraint_text(text) for text in constraint or []]
+    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
+    settings = sc.sections.get("linear_program")
+    if solver is not None:
+        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
+        settings = replace(settings, solver=chosen.solver)
+    return added, settings
 
 
 def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
@@ -225,15 +257,15 @@ def _print_constrained(constrained) -> None:
 def solve(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     out: Path = OutOption,
-    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable)."),
-    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable)."),
-    constraint: Optional[List[str]] = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |)."),
-    group_blind: bool = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute."),
-    principal_fairness: Optional[List[str]] = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable)."),
-    max_share: Optional[List[str]] = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable)."),
-    max_rate: Optional[List[str]] = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable)."),
-    ignore_constraints: bool = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]]."),
-    solver: Optional[str] = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL."),
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    constraint: Optional[List[str]] = ConstraintOption,
+    group_blind: bool = GroupBlindOption,
+    principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
+    max_share: Optional[List[str]] = MaxShareOption,
+    max_rate: Optional[List[str]] = MaxRateOption,
+    ignore_constraints: bool = IgnoreConstraintsOption,
+    solver: Optional[str] = LPSolverOption,
 ):
     """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
@@ -241,20 +273,11 @@ def solve(
     optimal rule, its price and the constraint table. Exit code 3 and no files when the
     constraints cannot all hold.
     """
-    from dataclasses import replace
-
-    from .constrained import lp_settings_from_table
-    from .constraints import parse_constraint_text, shorthand_tables
     from .outputs import write_outputs
     from .pipeline import analyze, as_scenario
 
     sc = as_scenario(scenario)
-    added = [parse_constraint_text(text) for text in constraint or []]
-    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
-    settings = sc.sections.get("linear_program")
-    if solver is not None:
-        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
-        settings = replace(settings, solver=chosen.solver)
+    added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     paths = write_outputs(out, analysis.output_files())
@@ -282,6 +305,118 @@ def report(
     show_cautions()
     show_written(paths)
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
+
+
+def _ranges(values: Optional[List[str]]) -> Optional[list]:
+    if not values:
+        return None
+    out = []
+    for item in values:
+        lo, sep, hi = item.partition(":")
+        try:
+            pair = (float(lo), float(hi))
+        except ValueError:
+            pair = None
+        if not sep or pair is None:
+            raise InputError(f"--range {item!r} must look like LOW:HIGH, e.g. 0:40.")
+        out.append(pair)
+    return out
+
+
+def _vary(text: Optional[str]) -> tuple:
+    if text is None:
+        return None, None
+    name, sep, values = text.rpartition("=")
+    try:
+        numbers = [float(v) for v in values.split(",") if v.strip()]
+    except ValueError:
+        numbers = []
+    if not sep or not name.strip() or not numbers:
+        raise InputError(f"--vary {text!r} must look like NAME=V1,V2,..., e.g. '#3 capacity=0.1,0.15,0.2' or 3=0.1,0.2.")
+    name = name.strip()
+    return (int(name) if name.isdigit() else name), numbers
+
+
+@command
+def sweep(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    ratio: List[str] = typer.Option(..., "--ratio", help="Outcome key whose cost is swept; once for a sweep, twice for a map."),
+    range_: Optional[List[str]] = typer.Option(None, "--range", help="LOW:HIGH of each ratio, in --ratio order (default 0 to 4x the scenario's)."),
+    scale: str = typer.Option("linear", "--scale", help="linear or log."),
+    per: Optional[str] = typer.Option(None, "--per", help="Decision level whose mean cost divides the swept cost (default the harshest)."),
+    gamma: Optional[List[float]] = typer.Option(None, "--gamma", help="Sensitivity parameter of a robust region (repeatable; default 1.1, 1.25, 1.5)."),
+    no_bounds: bool = typer.Option(False, "--no-bounds", help="Leave out the monotone-response bounds."),
+    missing: str = typer.Option("worst_case", "--missing", help="Missing outcome records in the bounds: worst_case or ignore."),
+    share: float = typer.Option(0.5, "--share", help="Share of cases in 'lenient stays optimal for this share up to ratio Y'."),
+    points: int = typer.Option(200, "--points", help="Display grid points per axis of the map figure."),
+    table_points: int = typer.Option(51, "--table-points", help="Grid points per axis written to map_grid.csv."),
+    figure: Optional[List[str]] = typer.Option(None, "--figure", help="Figure format png or svg (repeatable; default both)."),
+    no_figures: bool = typer.Option(False, "--no-figures", help="Write the tables only."),
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    constraint: Optional[List[str]] = ConstraintOption,
+    group_blind: bool = GroupBlindOption,
+    principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
+    max_share: Optional[List[str]] = MaxShareOption,
+    max_rate: Optional[List[str]] = MaxRateOption,
+    ignore_constraints: bool = IgnoreConstraintsOption,
+    solver: Optional[str] = LPSolverOption,
+    lp_points: int = typer.Option(50, "--lp-points", help="Ratios at which the constrained optimum is re-solved (one ratio, with constraints)."),
+    vary: Optional[str] = typer.Option(None, "--vary", help="Sweep a constraint's tolerance or cap too: NAME=V1,V2,... (NAME or its 1-based position)."),
+    duals_only: bool = typer.Option(False, "--duals-only", help="Price each constraint by its dual value only (no re-solve without it)."),
+    replicates: Optional[int] = ReplicatesOption,
+    seed: Optional[int] = SeedOption,
+    resampling: Optional[str] = ResamplingOption,
+    outcomes: Optional[str] = OutcomesOption,
+    interval: Optional[float] = IntervalOption,
+    workers: Optional[int] = WorkersOption,
+    progress: bool = ProgressOption,
+):
+    """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
+    from .outputs import write_outputs
+    from .pipeline import as_scenario
+    from .sweep import assumption_lines, sweep_scenario
+
+    sc = as_scenario(scenario)
+    added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
+    varied, values = _vary(vary)
+    if table_points < 2:
+        raise InputError(f"--table-points must be at least 2; got {table_points}.")
+    formats = [] if no_figures else list(figure or ["png", "svg"])
+    unknown = [f for f in formats if f not in ("png", "svg")]
+    if unknown:
+        raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
+    result = sweep_scenario(
+        sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+        bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
+        outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+        constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
+        vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
+        interval=interval, outcomes=outcomes, workers=workers, progress=progress)
+    files = result.output_files(formats, table_points)
+    drawn = [name for name, content in files.items() if callable(content)]
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
+                   TimeElapsedColumn(), console=err_console, transient=True, disable=not progress)
+    with bar:
+        task = bar.add_task("sweep: drawing figures", total=len(drawn))
+
+        def advancing(name, write):
+            def run(path):
+                write(path)
+                bar.update(task, advance=1, description=f"sweep: drew {name}")
+            return run
+
+        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()})
+    console.print(result.scenario.title, style="bold")
+    console.print(str(result))
+    console.print("Assumptions behind these figures:", style="bold")
+    for line in assumption_lines("robust_sweep" if len(result.assumptions) > 1 else "sweep", result.assumptions)[:-1]:
+        console.print(f"  - {line}")
+    show_cautions()
+    show_written(paths)
 
 
 def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
@@ -318,13 +453,13 @@ def _comparison_table(comparison) -> Table:
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     out: Path = OutOption,
-    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates (default: [uncertainty] replicates, 1000)."),
-    seed: Optional[int] = typer.Option(None, help="Root seed of the bootstrap (default: [scenario] seed)."),
-    resampling: Optional[str] = typer.Option(None, help="'poisson' or 'multinomial' (default: [uncertainty] resampling)."),
-    outcomes: Optional[str] = typer.Option(None, help="'model' or 'cases' (default: [uncertainty] outcomes)."),
-    interval: Optional[float] = typer.Option(None, help="Coverage of the intervals (default: [uncertainty] interval, 0.95)."),
-    workers: Optional[int] = typer.Option(None, help="Worker processes (default: every core); the output does not depend on it."),
-    progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+    replicates: Optional[int] = ReplicatesOption,
+    seed: Optional[int] = SeedOption,
+    resampling: Optional[str] = ResamplingOption,
+    outcomes: Optional[str] = OutcomesOption,
+    interval: Optional[float] = IntervalOption,
+    workers: Optional[int] = WorkersOption,
+    progress: bool = ProgressOption,
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from .compare import compare as run_compare

@@ -1,0 +1,218 @@
+"""Bounds on outcome probabilities without unconfoundedness (policy/bounds.py)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.special import expit, logit
+
+from policy.bounds import (
+    decision_shares,
+    manski_bounds,
+    monotone_response_bounds,
+    odds_shift,
+    robust_assumptions,
+    sensitivity_bounds,
+    sensitivity_interval,
+)
+from policy.demo import true_risk_levels
+from policy.errors import InputError
+from policy.pipeline import estimate
+
+
+# -- Manski (1997): the worked numbers -----------------------------------------------------------
+def test_manski_worked_example():
+    # Manski (1997), "Monotone Treatment Response", Econometrica 65(6) (seen); the worked numbers
+    # are derived in docs/reference-values.md: decisions z in {0,1,2} with P(z) = (0.3, 0.5, 0.2)
+    # and P(y=1|z) = (0.2, 0.3, 0.5), the outcome rising with the index; the monotone bounds on
+    # P(y(1)=1) are [0.21, 0.55]. Our outcome falls with the index, so the levels are reversed.
+    share = np.array([0.3, 0.5, 0.2])[::-1]
+    rate = np.array([0.2, 0.3, 0.5])[::-1]
+    lower, upper = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
+    assert lower[0, 1] == pytest.approx(0.21, abs=1e-12)
+    assert upper[0, 1] == pytest.approx(0.55, abs=1e-12)
+
+
+def test_manski_worked_example_no_assumption_bounds_are_wider():
+    # Same worked example (reference-values.md, derived): without monotonicity the bounds on
+    # P(y(1)=1) are [0.15, 0.65]; the monotone bounds must lie inside them.
+    share = np.array([0.2, 0.5, 0.3])
+    rate = np.array([0.5, 0.3, 0.2])
+    lower, upper = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
+    assert 0.15 <= lower[0, 1] and upper[0, 1] <= 0.65
+
+
+def test_manski_counts_and_shares_agree_and_bounds_are_monotone():
+    rng = np.random.default_rng(3)
+    cases = rng.integers(1, 50, size=(40, 4)).astype(float)
+    observed = np.minimum(cases[:, None, :], rng.integers(0, 50, size=(40, 2, 4)))
+    events = np.floor(observed * rng.random((40, 2, 4)))
+    lo, hi = monotone_response_bounds(cases, observed, events)
+    n = cases.sum(axis=1, keepdims=True)
+    lo2, hi2 = monotone_response_bounds(cases / n, observed / n[..., None], events / n[..., None])
+    np.testing.assert_allclose(lo, lo2, atol=1e-12)
+    np.testing.assert_allclose(hi, hi2, atol=1e-12)
+    assert (np.diff(lo, axis=-1) <= 1e-12).all() and (np.diff(hi, axis=-1) <= 1e-12).all()
+    assert (lo <= hi + 1e-12).all()
+
+
+def _random_population(rng, types=30, L=3, missing=0.0):
+    """A population of case types with monotone potential outcomes and confounded decisions.
+
+    Each type t has a risk level R_t (Y_t(d) = 1 iff d < R_t) and its own decision
+    distribution, so the decision depends on the potential outcomes within the cell.
+    """
+    w = rng.random(types)
+    risk = rng.integers(0, L + 1, size=types)
+    y = (np.arange(L)[None, :] < risk[:, None]).astype(float)   # Y_t(d)
+    pz = rng.dirichlet(np.ones(L) * 0.7, size=types)             # P(D = z | t)
+    truth = (w[:, None] * y).sum(axis=0) / w.sum()
+    cases = (w[:, None] * pz).sum(axis=0)
+    observed = cases * (1 - missing)
+    events = (w[:, None] * pz * y).sum(axis=0) * (1 - missing)
+    return truth, cases, observed[None, :], events[None, :]
+
+
+def test_manski_bounds_contain_the_truth_of_confounded_populations():
+    # Definition check (Manski 1997, seen): under monotonicity the bounds hold for every
+    # population, whatever the dependence of the decision on the potential outcomes.
+    rng = np.random.default_rng(11)
+    for _ in range(500):
+        truth, cases, observed, events = _random_population(rng, L=int(rng.integers(2, 5)))
+        lo, hi = monotone_response_bounds(cases, observed, events)
+        assert (lo[0] <= truth + 1e-12).all() and (truth <= hi[0] + 1e-12).all()
+
+
+def test_manski_bounds_with_missing_records():
+    rng = np.random.default_rng(12)
+    for _ in range(200):
+        truth, cases, observed, events = _random_population(rng, missing=0.3)
+        for how in ("worst_case", "ignore"):
+            lo, hi = monotone_response_bounds(cases, observed, events, missing=how)
+            assert (lo[0] <= truth + 1e-12).all() and (truth <= hi[0] + 1e-12).all()
+        wide = monotone_response_bounds(cases, observed, events, "worst_case")
+        narrow = monotone_response_bounds(cases, observed, events, "ignore")
+        assert (wide[0] <= narrow[0] + 1e-12).all() and (narrow[1] <= wide[1] + 1e-12).all()
+    with pytest.raises(InputError, match="missing"):
+        monotone_response_bounds(cases, observed, events, missing="drop")
+
+
+def test_manski_bounds_are_attained():
+    # Sharpness (Manski 1997, seen): a population consistent with the data attains each end.
+    # Lower end: Y(d) = Y(z) for cases given z >= d, Y(d) = 0 for z < d (allowed since Y(z) >= 0).
+    share = np.array([0.25, 0.45, 0.3])
+    rate = np.array([0.4, 0.25, 0.1])
+    lo, hi = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
+    for d in range(3):
+        attained_low = sum(share[z] * rate[z] for z in range(d, 3))
+        attained_high = sum(share[z] * rate[z] for z in range(0, d + 1)) + share[d + 1:].sum()
+        assert lo[0, d] == pytest.approx(attained_low) and hi[0, d] == pytest.approx(attained_high)
+
+
+def test_manski_bounds_contain_the_simulator_truth_in_every_cell():
+    # The demo simulator's exact per-cell truth (policy.demo.true_risk_levels) and its exact
+    # decision distribution per cell and arm, as population counts (arms half each).
+    truth, court = true_risk_levels()
+    share = court.mean(axis=1)                                  # P(D = z | cell)
+    cases = truth.weights[:, None] * share
+    events = cases[:, None, :] * truth.p                        # unconfounded given the cell
+    lo, hi = monotone_response_bounds(cases, np.broadcast_to(cases[:, None, :], events.shape), events)
+    assert (lo <= truth.p + 1e-12).all() and (truth.p <= hi + 1e-12).all()
+    assert (hi - lo).max() > 0.05                              # not a trivial point interval
+
+
+def test_manski_bounds_of_the_demo_keep_structural_zeros(tmp_path):
+    from policy import load_scenario
+    from .conftest import SCENARIOS
+
+    sc = load_scenario(SCENARIOS / "observational_detention.toml")
+    cells, rl = estimate(sc)
+    b = manski_bounds(cells, rl)
+    assert rl.structural_zero.any()
+    assert (b.lower[:, rl.structural_zero] == 0).all() and (b.upper[:, rl.structural_zero] == 0).all()
+    assert (b.lower <= b.upper + 1e-12).all()
+    frame = b.to_frame(rl)
+    assert len(frame) == rl.p.size and {"lower", "upper", "point", "assumption"} <= set(frame.columns)
+
+
+# -- the sensitivity parameter Gamma --------------------------------------------------------------
+def test_odds_shift_multiplies_the_odds():
+    m = np.array([0.01, 0.2, 0.5, 0.9])
+    for f in (0.5, 2.0, 7.0):
+        shifted = odds_shift(m, f)
+        np.testing.assert_allclose(shifted / (1 - shifted), f * m / (1 - m), rtol=1e-12)
+
+
+def _monotone_p(rng, n, J, L):
+    return np.sort(rng.random((n, J, L)) * 0.6, axis=-1)[..., ::-1]
+
+
+def test_gamma_one_is_the_point_estimate_and_intervals_nest():
+    rng = np.random.default_rng(5)
+    p = _monotone_p(rng, 50, 2, 3)
+    shares = rng.dirichlet(np.ones(3), size=50)
+    lo, hi = sensitivity_interval(p, shares, 1.0)
+    np.testing.assert_allclose(lo, p, atol=1e-15)
+    np.testing.assert_allclose(hi, p, atol=1e-15)
+    prev = (lo, hi)
+    for g in (1.1, 1.5, 2, 4, 10):
+        lo, hi = sensitivity_interval(p, shares, g)
+        assert (lo <= prev[0] + 1e-15).all() and (hi >= prev[1] - 1e-15).all()
+        assert (lo <= p + 1e-15).all() and (p <= hi + 1e-15).all()
+        prev = (lo, hi)
+
+
+def test_large_gamma_approaches_the_monotone_bounds_at_the_estimated_rates():
+    # Manski (1997, seen): with the estimated rates standing in for the identified ones, the
+    # monotone bounds are [sum_{z>=d} pi_z p_z, sum_{z<=d} pi_z p_z + sum_{z>d} pi_z].
+    rng = np.random.default_rng(6)
+    p = _monotone_p(rng, 30, 1, 4)
+    shares = rng.dirichlet(np.ones(4), size=30)
+    lo, hi = sensitivity_interval(p, shares, 1e9)
+    mlo, mhi = monotone_response_bounds(shares, shares[:, None, :], shares[:, None, :] * p)
+    np.testing.assert_allclose(lo, mlo, atol=1e-8)
+    np.testing.assert_allclose(hi, mhi, atol=1e-8)
+
+
+def test_gamma_interval_is_the_extreme_over_the_model_by_search():
+    # Brute force over the model's definition: every group's log-odds of Y(d) lies in one window
+    # of width log(Gamma) that holds the identified group's; groups given z > d have
+    # P(Y(d)=1) >= p_z and those given z < d at most p_z (monotonicity). Slide the window over a
+    # fine grid and take the extreme of sum_z pi_z P(Y(d)=1 | D=z).
+    rng = np.random.default_rng(8)
+    for _ in range(40):
+        L = int(rng.integers(2, 5))
+        p = np.sort(rng.uniform(0.02, 0.8, size=L))[::-1]
+        shares = rng.dirichlet(np.ones(L))
+        gamma = float(rng.uniform(1.05, 4.0))
+        lo, hi = sensitivity_interval(p[None, :], shares, gamma)
+        width = np.log(gamma)
+        for d in range(L):
+            best_lo, best_hi = np.inf, -np.inf
+            for start in np.linspace(logit(p[d]) - width, logit(p[d]), 4001):
+                a, b = expit(start), expit(start + width)
+                low_z = np.array([a if z < d else (max(a, p[z]) if z > d else p[d]) for z in range(L)])
+                high_z = np.array([min(b, p[z]) if z < d else (b if z > d else p[d]) for z in range(L)])
+                best_lo = min(best_lo, shares @ low_z)
+                best_hi = max(best_hi, shares @ high_z)
+            assert lo[0, d] == pytest.approx(best_lo, abs=2e-4)
+            assert hi[0, d] == pytest.approx(best_hi, abs=2e-4)
+
+
+def test_sensitivity_bounds_reject_gamma_below_one():
+    rng = np.random.default_rng(1)
+    with pytest.raises(InputError, match="Gamma"):
+        sensitivity_interval(_monotone_p(rng, 2, 1, 3), np.full((2, 3), 1 / 3), 0.5)
+
+
+def test_robust_assumptions_order_and_needs(demo_scenario):
+    cells, rl = estimate(demo_scenario)
+    out = robust_assumptions(rl, cells, [2.0, 1.0, 1.5])
+    assert [b.key for b in out] == ["point", "gamma=1.5", "gamma=2", "bounds"]
+    np.testing.assert_array_equal(out[0].lower, rl.p)
+    np.testing.assert_array_equal(sensitivity_bounds(rl, decision_shares(cells), 1.0).upper, rl.p)
+    with pytest.raises(InputError, match="counts"):
+        robust_assumptions(rl, None, [1.5])
+    with pytest.raises(InputError, match="Gamma"):
+        robust_assumptions(rl, cells, [0.9])
+    assert [b.key for b in robust_assumptions(rl, None, [], bounds=False)] == ["point"]
