@@ -48,9 +48,6 @@ __all__ = [
     "SECTION_BUILDERS",
 ]
 
-#: Okabe-Ito colours (Okabe and Ito 2008, "Color Universal Design"), lenient to harsh
-LEVEL_COLOURS = {2: ("#009E73", "#D55E00"), 3: ("#009E73", "#0072B2", "#D55E00")}
-LEVEL_COLOURS_MANY = ("#009E73", "#56B4E9", "#0072B2", "#E69F00", "#D55E00", "#CC79A7", "#F0E442", "#000000")
 #: digits after the point of each kind of figure, on the page and in the JavaScript alike
 DIGITS = {"share": 1, "rate": 2, "cost": 0}
 
@@ -81,10 +78,10 @@ def input_value(value: float) -> str:
 
 
 def level_colours(n_levels: int) -> list[str]:
-    """Colours of decision levels 0..n-1, lenient to harsh (Okabe-Ito)."""
-    if n_levels in LEVEL_COLOURS:
-        return list(LEVEL_COLOURS[n_levels])
-    return [LEVEL_COLOURS_MANY[i % len(LEVEL_COLOURS_MANY)] for i in range(n_levels)]
+    """Colours of decision levels 0..n-1, lenient to harsh: the figures' (:func:`policy.plots.level_colours`)."""
+    from .plots import level_colours as figure_colours
+
+    return figure_colours(n_levels)
 
 
 def risk_level_colours(n: int) -> list[str]:
@@ -215,12 +212,16 @@ class ReportResults:
     compared : tuple of ComparedRule
         Rules scored against the cost-minimizing one, live on the page.
     constrained_sweeps : tuple of ConstrainedSweep
-        The constrained rule re-solved along each outcome cost (:mod:`policy.constrained_sweep`),
-        shown at the point nearest the costs chosen on the page.
+        The constrained optimum re-solved along each outcome cost's ratio
+        (:mod:`policy.sweep_constrained`), shown at the point nearest the ratio chosen on the page.
     comparison : Comparison, optional
         The rules compared with intervals and the aid's effect (:func:`policy.compare.compare`).
     comparison_note : str
         Why there is no comparison, where there is none.
+    sweeps : tuple of SweepResult
+        One-ratio sweeps (:func:`policy.sweep.sweep_scenario`), with their robust lenient regions.
+    lenient_map : SweepResult, optional
+        A two-ratio lenient map.
     """
 
     analysis: Analysis
@@ -228,6 +229,8 @@ class ReportResults:
     constrained_sweeps: tuple[Any, ...] = ()
     comparison: Any = None
     comparison_note: str = ""
+    sweeps: tuple[Any, ...] = ()
+    lenient_map: Any = None
 
     @property
     def scenario(self) -> Scenario:
@@ -488,9 +491,6 @@ def constrained_section(results: ReportResults) -> Section | None:
     versus = TableView("The constrained rule against the unconstrained optimum on the same rule columns",
                        ("figure", con.rule.name, con.unconstrained.name), tuple(figures), (False, True, True))
     sweeps = results.constrained_sweeps
-    files = {}
-    if sweeps:
-        files["constrained_sweep.csv"] = pd.concat([sw.to_frame() for sw in sweeps], ignore_index=True)
     return Section(
         key="constrained",
         title="The constrained rule and its price",
@@ -508,12 +508,10 @@ def constrained_section(results: ReportResults) -> Section | None:
             "level_labels": list(ev.level_labels),
             "outcome_labels": list(ev.outcome_labels),
             "shares": [fmt_pct(v, DIGITS["share"]) for v in ev.level_shares],
-            "rates": [fmt_pct(v, DIGITS["rate"]) for v in ev.outcome_rates],
-            "points": len(sweeps[0].values) if sweeps else 0,
-            "reference_label": sweeps[0].reference_label if sweeps else "",
+            "points": len(sweeps[0].ratios) if sweeps else 0,
+            "reference_label": sweeps[0].axis.reference_label if sweeps else "",
         },
         assumptions=tuple(assumptions_for("rule")),
-        files=files,
     )
 
 
@@ -625,6 +623,124 @@ def aid_effect_section(results: ReportResults) -> Section | None:
     )
 
 
+def inline_svg(write: Callable[[Path], None], key: str, label: str) -> Markup:
+    """A figure, written as SVG by ``write(path)`` (a writer of :func:`policy.plots.figure_files`),
+    as an element to place inside the page.
+
+    Its ids get the prefix ``key`` (figures share glyph and clip-path ids otherwise), comments,
+    metadata and namespace declarations go, and it scales to the page's width. Text drawn as
+    paths carries no markup; ``label`` (escaped) names the figure for screen readers.
+    """
+    import re
+    import tempfile
+    from html import escape
+
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "figure.svg"
+        write(path)
+        text = path.read_text(encoding="utf-8")
+    text = text[text.index("<svg"):]
+    text = re.sub(r"<!--.*?-->", "", text, flags=re.S)
+    text = re.sub(r"<metadata>.*?</metadata>", "", text, flags=re.S)
+    text = re.sub(r'\bid="([^"]+)"', lambda m: f'id="{key}-{m.group(1)}"', text)
+    text = re.sub(r'((?:xlink:)?href)="#([^"]+)"', lambda m: f'{m.group(1)}="#{key}-{m.group(2)}"', text)
+    text = re.sub(r"url\(#([^)]+)\)", lambda m: f"url(#{key}-{m.group(1)})", text)
+    root = re.match(r"<svg\b[^>]*>", text).group(0)
+    clean = re.sub(r'\s(?:width|height|version|xmlns(?::\w+)?)="[^"]*"', "", root)
+    clean = clean[:-1] + f' width="100%" role="img" aria-label="{escape(label, quote=True)}">'
+    return Markup(clean + text[len(root):])
+
+
+#: the figures of a one-ratio sweep shown in the report, with what each shows
+SWEEP_FIGURES = (
+    ("sweep_shares.svg", "Decision shares of the optimal rule along the {} ratio"),
+    ("sweep_regret.svg", "Regret of each compared rule along the {} ratio"),
+    ("sweep_prices.svg", "Price of the constraints along the {} ratio"),
+)
+
+
+def sweep_section(results: ReportResults) -> Section | None:
+    """Sweeps of each cost ratio and the lenient map, with their robust lenient regions, figures inline."""
+    if not results.sweeps and results.lenient_map is None:
+        return None
+    from .sweep import assumption_lines
+
+    blocks, files = [], {}
+    for i, res in enumerate(results.sweeps):
+        sw = res.sweep
+        axis = sw.axis
+        kind = "robust_sweep" if len(res.assumptions) > 1 else "sweep"
+        share = float(res.settings["share"])
+        summary = sw.summary(share).drop(columns=["share"], errors="ignore")
+        view = TableView.from_frame(
+            summary, f"Where {sw.level_labels[0]} stays optimal as the {axis.outcome_label} cost varies, "
+                     "under each assumption",
+            {"share_lenient_at_low": fmt_pct, "share_lenient_at_scenario": fmt_pct,
+             "up_to_ratio": lambda v: fmt_num(v, 2), "up_to_cost": fmt_num},
+            rename={"share_lenient_at_low": f"share of cases, ratio {fmt_num(sw.lo, 2)}",
+                    "share_lenient_at_scenario": "share of cases, scenario's ratio",
+                    "up_to_ratio": f"stays optimal for at least {fmt_pct(share, 0)} of cases up to ratio",
+                    "up_to_cost": f"that is, up to a cost of ({axis.unit})"})
+        columns = list(sw.rule_cells.columns)
+        breaks_view = TableView.from_frame(
+            sw.breakpoints(), f"Where a rule cell's optimal level changes along the {axis.outcome_label} ratio (exact)",
+            {"cases": fmt_num, "ratio": lambda v: fmt_num(v, 3), "cost": fmt_num},
+            row_header=max(len(columns), 1), rename={"level_before": "optimal below", "level_after": "optimal above"})
+        outputs = res.output_files(("svg",))
+        figures = [inline_svg(outputs[name], f"sweep{i}-{name[:-4]}", label.format(axis.outcome_label))
+                   for name, label in SWEEP_FIGURES if name in outputs]
+        prices = None
+        if res.constrained is not None:
+            c = res.constrained
+            prices = TableView.from_frame(
+                c.summary().drop(columns=["bound"]),
+                f"Price of the constraints along the {axis.outcome_label} ratio ({c.unit} per 1,000 cases; "
+                f"{len(c.ratios)} ratios re-solved)",
+                {"ratio": lambda v: fmt_num(v, 3), "price_per_1000_there": fmt_num, "lowest_price_per_1000": fmt_num,
+                 "highest_price_per_1000": fmt_num, "infeasible_points": fmt_num},
+                row_header=0,
+                rename={"ratio": "grid ratio nearest the scenario's", "price_per_1000_there": "price there",
+                        "lowest_price_per_1000": "lowest price", "highest_price_per_1000": "highest price",
+                        "infeasible_points": "ratios where the constraints cannot all hold"})
+        blocks.append({
+            "title": f"Cost of one {axis.outcome_label}, as a ratio to the mean cost of {axis.reference_label}",
+            "definition": axis.describe()["definition"],
+            "scenario_ratio": fmt_num(axis.scenario_ratio, 3),
+            "summary": view, "breakpoints": breaks_view, "prices": prices, "figures": figures,
+            "lines": assumption_lines(kind, res.assumptions)[:-1],
+        })
+        files.update({f"sweep_{axis.outcome}_{name.removeprefix('sweep_')}": content
+                      for name, content in outputs.items() if not name.endswith(".svg") and name != "sweep.json"})
+    lm = None
+    if results.lenient_map is not None:
+        res = results.lenient_map
+        m = res.map
+        kind = "robust_sweep" if len(res.assumptions) > 1 else "sweep"
+        ax = m.axes
+        outputs = res.output_files(("svg",), 51)
+        summary = m.summary()
+        lm = {
+            "title": f"Where {m.level_labels[0]} stays optimal: {ax[0].outcome_label} against {ax[1].outcome_label}",
+            "definitions": [a.describe()["definition"] for a in ax],
+            "summary": TableView.from_frame(summary, "Share of cases for which leniency is optimal at the scenario's "
+                                            "ratios, under each assumption",
+                                            {c: fmt_pct for c in summary.columns if c != "assumption"}),
+            "figure": inline_svg(outputs["map_lenient.svg"], "map",
+                                 f"Lenient map of {ax[0].outcome_label} against {ax[1].outcome_label}"),
+            "lines": assumption_lines(kind, res.assumptions)[:-1],
+            "note": res.settings.get("constraints", ""),
+        }
+        files.update({name: content for name, content in outputs.items()
+                      if not name.endswith(".svg") and name != "sweep.json"})
+    return Section(
+        key="sweeps",
+        title="If the costs were different: sweeps and the lenient map",
+        template="sections/sweeps.html.j2",
+        context={"blocks": blocks, "map": lm},
+        files=files,
+    )
+
+
 #: the section builders, in page order; each takes ReportResults and returns a Section or None
 SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     scenario_section,
@@ -634,6 +750,7 @@ SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     constrained_section,
     comparison_section,
     aid_effect_section,
+    sweep_section,
     groups_section,
 ]
 
@@ -694,6 +811,11 @@ def controls(results: ReportResults) -> list[dict[str, Any]]:
     return out
 
 
+def _finite_list(values: np.ndarray) -> list:
+    """Numbers for JSON, with None where a value is missing (an infeasible grid point)."""
+    return [float(v) if np.isfinite(v) else None for v in np.asarray(values, dtype=np.float64)]
+
+
 def live_data(results: ReportResults) -> dict[str, Any]:
     """What the page's script needs to recompute the rule: per-cell arrays and the compared rules.
 
@@ -727,9 +849,9 @@ def live_data(results: ReportResults) -> dict[str, Any]:
         "tie_tolerance": TIE_TOLERANCE,
         "digits": DIGITS,
         "constrained": [
-            {"outcome_index": sw.outcome_index, "values": sw.values.tolist(), "reference_cost": sw.reference_cost,
-             "reference_label": sw.reference_label, "cost": sw.cost_per_case.tolist(), "price": sw.price_per_case.tolist(),
-             "shares": sw.level_shares.tolist(), "rates": sw.outcome_rates.tolist()}
+            {"outcome_index": sw.axis.outcome_index, "ratios": sw.ratios.tolist(), "reference_cost": sw.axis.reference_cost,
+             "feasible": sw.feasible[0].tolist(), "cost": _finite_list(sw.cost[0]), "price": _finite_list(sw.price[0]),
+             "shares": [_finite_list(row) for row in sw.shares[0]]}
             for sw in results.constrained_sweeps
         ],
     }
@@ -872,37 +994,32 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
         comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
                              decision_costs=decision_costs, progress=progress)
         compared = compared_rules(comparison)
-    points: list = []
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
-        points = constrained_sweeps(analysis)
-    return render_report(ReportResults(analysis, tuple(compared), tuple(points), comparison, why))
+    sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
+                                      replicates, progress)
+    points = tuple(res.constrained for res in sweeps if res.constrained is not None)
+    return render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map))
 
+
+def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mapping[str, float] | None = None,
+                decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
+                progress: bool = False) -> tuple[list, Any]:
+    """One exact sweep per outcome kind's cost ratio, with the compared rules' regret, bootstrap
+    bands where the data hold counts and, with constraints, the constrained optimum re-solved
+    along it; and the lenient map of the first two outcome kinds (:func:`policy.sweep.sweep_scenario`)."""
+    from .sweep import sweep_scenario
+
+    keys = list(scenario.outcome_keys)
+    bands = replicates if scenario.data.kind != "risk_level_table" else 0
+    sweeps = [sweep_scenario(scenario, [k], rules=list(rules), outcome_costs=outcome_costs,
+                             decision_costs=decision_costs, replicates=bands, progress=progress) for k in keys]
+    lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs)
+                   if len(keys) >= 2 else None)
+    return sweeps, lenient_map
 
 def held_constrained_rule(analysis: Analysis) -> ComparedRule:
     """The constrained optimal rule at the scenario's costs, compared while the costs move."""
     con = analysis.constrained
     return ComparedRule(con.rule, evaluate(con.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule),
                         "the constrained optimal rule at the scenario's own costs, held fixed while the costs move")
-
-
-#: points of each outcome cost at which the constrained rule is solved in advance for the page
-CONSTRAINED_POINTS = 41
-
-
-def constrained_sweeps(analysis: Analysis, points: int = CONSTRAINED_POINTS) -> list:
-    """The constrained rule solved along each outcome cost's slider range (other costs as in the scenario),
-    the scenario's own cost among the points."""
-    from .constrained import ConstrainedProblem
-    from .constrained_sweep import sweep_constrained
-
-    sc, costs = analysis.scenario, analysis.costs
-    con = analysis.constrained
-    problem = ConstrainedProblem(analysis.risk_levels, costs, con.specs, settings=sc.sections.get("linear_program"))
-    biggest = float(max(costs.outcome.max(initial=0.0), costs.decision.max(initial=0.0)))
-    out = []
-    for j in range(len(costs.outcome)):
-        top = _slider_max(float(costs.outcome[j]), biggest)
-        values = np.unique(np.append(np.linspace(0.0, top, points), costs.outcome[j]))
-        out.append(sweep_constrained(problem, j, values, con.rule.name))
-    return out

@@ -147,7 +147,10 @@ def test_page_is_self_contained(tmp_path):
         for value in attrs.values():
             assert "://" not in (value or ""), (tag, attrs)
     assert ":root" in page.styles[0]  # the report's own style sheet comes first
-    # every id on the page is unique
+    # the figures are inline SVG, one per sweep figure and the map, and every id on the page is unique
+    svgs = [attrs for tag, attrs in page.tags if tag == "svg" and attrs.get("role") == "img" and "aria-label" in attrs]
+    outcomes = len(analyze(ROOT / "scenarios" / "demo.toml").scenario.outcomes)
+    assert len([a for a in svgs if a.get("width") == "100%"]) == 2 * outcomes + 1
     ids = [attrs["id"] for _, attrs in page.tags if "id" in attrs]
     assert len(ids) == len(set(ids))
     for css in page.styles:
@@ -200,7 +203,7 @@ def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
 
 def test_report_starts_from_overridden_costs(tmp_path, capsys, small_case_table):
     scenario, _ = small_case_table
-    code, _, err = run_cli(["report", scenario, "--out", tmp_path,
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path, "--replicates", REPLICATES, "--no-progress",
                             "--cost", "new_offense=20000",
                             "--decision-cost", "supervision=100"], capsys)
     assert code == 0, err
@@ -223,28 +226,3 @@ def test_controls_say_how_a_per_cell_cost_moves():
     for c in live["controls"]:
         assert c["min"] <= c["value"] <= c["max"] and c["step"] > 0
 
-
-def test_constrained_sweep_points_are_constrained_solves():
-    from policy.constrained import ConstrainedProblem
-    from policy.constrained_sweep import sweep_constrained
-
-    scenario = ROOT / "scenarios" / "demo_constrained.toml"
-    analysis = analyze(scenario)
-    con = analysis.constrained
-    problem = ConstrainedProblem(analysis.risk_levels, analysis.costs, con.specs,
-                                 settings=analysis.scenario.sections.get("linear_program"))
-    j = analysis.scenario.outcome_index("new_offense")
-    values = [0.0, 3000.0, float(analysis.costs.outcome[j]), 20000.0]
-    sweep = sweep_constrained(problem, j, values)
-    # the problem is left at the scenario's costs
-    np.testing.assert_array_equal(problem.outcome_costs, analysis.costs.outcome)
-    for i, v in enumerate(values):
-        fresh = analyze(scenario, {"new_offense": v}).constrained  # built and solved from scratch
-        assert sweep.cost_per_case[i] == pytest.approx(fresh.cost_per_case, rel=1e-9)
-        assert sweep.price_per_case[i] == pytest.approx(fresh.price_per_case, rel=1e-7, abs=1e-9)
-        np.testing.assert_allclose(sweep.level_shares[i], fresh.evaluation.level_shares, atol=1e-9)
-    frame = sweep.to_frame()
-    assert list(frame["cost"]) == values
-    np.testing.assert_allclose(frame["ratio"] * sweep.reference_cost, values)
-    c_ref = np.average(analysis.costs.decision[:, -1], weights=analysis.risk_levels.weights)
-    assert sweep.reference_cost == pytest.approx(c_ref)

@@ -342,7 +342,7 @@ def constrained_report(tmp_path_factory):
 
 def constrained_shown(page) -> dict:
     texts = lambda kind: [t.strip() for t in page.locator(f'#constrained-live [data-live="{kind}"]').all_inner_texts()]
-    return {"cost": texts("c-cost")[0], "price": texts("c-price")[0], "shares": texts("c-share"), "rates": texts("c-rate"),
+    return {"cost": texts("c-cost")[0], "price": texts("c-price")[0], "shares": texts("c-share"),
             "note": page.locator("#constrained-note").inner_text()}
 
 
@@ -351,8 +351,6 @@ def assert_constrained_matches(view: dict, con) -> None:
     assert close(view["price"], con.price_per_case, DIGITS["cost"], 1000), (view["price"], con.price_per_case)
     for text, v in zip(view["shares"], con.evaluation.level_shares, strict=True):
         assert close(text, v, DIGITS["share"], 100), (text, v)
-    for text, v in zip(view["rates"], con.evaluation.outcome_rates, strict=True):
-        assert close(text, v, DIGITS["rate"], 100), (text, v)
 
 
 def test_constrained_figures_come_from_the_nearest_precomputed_point(browser, constrained_report):
@@ -373,11 +371,12 @@ def test_constrained_figures_come_from_the_nearest_precomputed_point(browser, co
     for _ in range(3):
         page.keyboard.press("PageUp")
     value = float(page.locator(f"#cost-outcome-{j}-range").input_value())
-    # the nearest point on the ratio axis, c_j / mean cost of the harshest level
-    grid = pd.read_csv(folder / "constrained_sweep.csv")
-    grid = grid[grid["outcome"] == "new_offense"]
+    # the nearest feasible point on the ratio axis, c_j / mean cost of the harshest level
+    grid = pd.read_csv(folder / "sweep_new_offense_constrained.csv")
+    grid = grid[grid["feasible"]]
     c_ref = float(np.average(analysis.costs.decision[:, -1], weights=analysis.risk_levels.weights))
-    nearest = float(grid["cost"].to_numpy()[np.argmin(np.abs(grid["cost"].to_numpy() / c_ref - value / c_ref))])
+    ratio = float(grid["ratio"].to_numpy()[np.argmin(np.abs(grid["ratio"].to_numpy() - value / c_ref))])
+    nearest = ratio * c_ref
     # the point's figures equal a constrained solve at that point's costs, done afresh
     fresh = analyze(analysis.scenario, {"new_offense": nearest}).constrained
     view = constrained_shown(page)

@@ -182,6 +182,13 @@
     return m / totalWeight;
   }
 
+  // the constrained figures as the tool wrote them: the exact solution at the scenario's costs
+  var exactConstrained = {};
+  ["c-cost", "c-price", "c-share"].forEach(function (kind) {
+    exactConstrained[kind] = [];
+    each(kind, function (el, i) { exactConstrained[kind][i] = el.textContent; });
+  });
+
   function showConstrained() {
     var sweeps = live.constrained;
     var note = document.getElementById("constrained-note");
@@ -193,34 +200,36 @@
         if (c.kind === "outcome") { moved.push(c.index); } else { decisionMoved = true; }
       }
     });
-    var j = moved.indexOf(lastOutcome) >= 0 ? lastOutcome : (moved.length ? moved[0] : sweeps[0].outcome_index);
-    var sweep = sweeps.filter(function (s) { return s.outcome_index === j; })[0];
-    // the chosen ratio: the outcome's cost over the mean cost of the harshest level, as chosen
-    var ref = meanDecisionCost(L - 1);
-    var useRatio = sweep.reference_cost > 0 && ref > 0;
-    var target = useRatio ? outcomeCost[j] / ref : outcomeCost[j];
-    var best = 0, gap = Infinity;
-    sweep.values.forEach(function (v, i) {
-      var at = useRatio ? v / sweep.reference_cost : v;
-      var g = Math.abs(at - target);
-      if (g < gap) { gap = g; best = i; }
-    });
-    each("c-cost", function (el) { el.textContent = fmtNum(1000 * sweep.cost[best], digits.cost); });
-    each("c-price", function (el) { el.textContent = fmtNum(1000 * sweep.price[best], digits.cost); });
-    each("c-share", function (el, i) { el.textContent = fmtPct(sweep.shares[best][i], digits.share); });
-    each("c-rate", function (el, i) { el.textContent = fmtPct(sweep.rates[best][i], digits.rate); });
-    var label = live.outcome_labels[j];
     if (!moved.length && !decisionMoved) {
+      ["c-cost", "c-price", "c-share"].forEach(function (kind) {
+        each(kind, function (el, i) { el.textContent = exactConstrained[kind][i]; });
+      });
       note.textContent = "At the scenario's own costs: the constrained rule solved at exactly these costs.";
       return;
     }
-    var text = "Precomputed point nearest the ratio chosen: cost of one " + label + " "
-      + fmtNum(sweep.values[best], 0) + " " + live.unit;
-    if (useRatio) {
-      text += " (ratio " + fmtNum(sweep.values[best] / sweep.reference_cost, 2) + " to the mean cost of "
-        + sweep.reference_label + "; chosen here: " + fmtNum(target, 2) + ")";
+    var j = moved.indexOf(lastOutcome) >= 0 ? lastOutcome : (moved.length ? moved[0] : sweeps[0].outcome_index);
+    var sweep = sweeps.filter(function (s) { return s.outcome_index === j; })[0];
+    if (!sweep) { return; }
+    // the chosen ratio: the outcome's cost over the mean cost of the harshest level, as chosen
+    var ref = meanDecisionCost(L - 1);
+    var target = ref > 0 ? outcomeCost[j] / ref : Infinity;
+    var best = -1, gap = Infinity;
+    sweep.ratios.forEach(function (r, i) {
+      if (sweep.feasible[i] && Math.abs(r - target) < gap) { gap = Math.abs(r - target); best = i; }
+    });
+    var label = live.outcome_labels[j];
+    if (best < 0) {
+      ["c-cost", "c-price", "c-share"].forEach(function (kind) { each(kind, function (el) { el.textContent = "\u2013"; }); });
+      note.textContent = "The constraints cannot all hold at any precomputed point of the " + label + " sweep.";
+      return;
     }
-    text += ", every other cost at the scenario's value.";
+    each("c-cost", function (el) { el.textContent = fmtNum(1000 * sweep.cost[best], digits.cost); });
+    each("c-price", function (el) { el.textContent = fmtNum(1000 * sweep.price[best], digits.cost); });
+    each("c-share", function (el, i) { el.textContent = fmtPct(sweep.shares[best][i], digits.share); });
+    var text = "Precomputed point nearest the ratio chosen: cost of one " + label + " "
+      + fmtNum(sweep.ratios[best] * sweep.reference_cost, 0) + " " + live.unit + " (ratio "
+      + fmtNum(sweep.ratios[best], 2) + " to the mean cost of " + live.level_labels[L - 1] + "; chosen here: "
+      + fmtNum(target, 2) + "), every other cost at the scenario's value.";
     if (moved.length > 1 || decisionMoved) {
       text += " The other costs changed here are not reflected in these constrained figures.";
     }
