@@ -1,7 +1,9 @@
 """The committee report: one self-contained HTML file assembled from the stages' result objects.
 
-The report computes nothing itself. Each section is built from a result object (the analysis,
-and the results of later stages when they are given) into a :class:`Section`: a template under
+The report computes nothing itself. :func:`build_report` runs the stages (the analysis with any
+constrained rule, the comparison with its bootstrap intervals and the aid's effect, a sweep of
+each outcome cost and the lenient map); :func:`render_report` turns their result objects, each
+section by one builder of :data:`SECTION_BUILDERS`, into a :class:`Section`: a template under
 ``policy/templates/`` and the already-formatted figures it shows. The page embeds, as a JSON
 data island, the per-cell outcome probabilities, weights and decision costs, so that its live
 cost controls can re-run in plain JavaScript the same argmin as :func:`policy.solve.optimal_rule`
@@ -956,9 +958,11 @@ KIND_NOTES = {
 
 def compared_rules(comparison) -> list[ComparedRule]:
     """The rules of a comparison, each with its point evaluation, as rules compared live."""
-    return [ComparedRule(rule, ev, rule.note or KIND_NOTES.get(rule.kind, rule.kind) if rule.kind != "optimal"
-                         else KIND_NOTES["optimal"])
-            for rule, ev in zip(comparison.rules, comparison.evaluations)]
+    out = []
+    for rule, evaluation in zip(comparison.rules, comparison.evaluations):
+        note = KIND_NOTES["optimal"] if rule.kind == "optimal" else (rule.note or KIND_NOTES.get(rule.kind, rule.kind))
+        out.append(ComparedRule(rule, evaluation, note))
+    return out
 
 
 def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
@@ -973,7 +977,8 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
         What-if overrides of the scenario's costs, as for :func:`policy.pipeline.analyze`;
         the page's controls start from these costs.
     replicates : int, optional
-        Bootstrap replicates of the comparison (default: the scenario's ``[uncertainty]``).
+        Bootstrap replicates of the comparison and of the sweeps' bands (default: the scenario's
+        ``[uncertainty]``).
     progress : bool
         Show the bootstrap's progress bar.
 
@@ -981,9 +986,9 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     -------
     Report
     """
-    scenario = as_scenario(scenario)
     from .compare import compare
 
+    scenario = as_scenario(scenario)
     analysis = analyze(scenario, outcome_costs, decision_costs)
     comparison, why = None, ""
     if scenario.data.kind == "risk_level_table":
@@ -1017,6 +1022,7 @@ def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mappin
     lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs)
                    if len(keys) >= 2 else None)
     return sweeps, lenient_map
+
 
 def held_constrained_rule(analysis: Analysis) -> ComparedRule:
     """The constrained optimal rule at the scenario's costs, compared while the costs move."""
