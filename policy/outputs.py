@@ -22,6 +22,21 @@ import pandas as pd
 __all__ = ["atomic_path", "write_outputs", "to_json_text", "table_bytes"]
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _publish(tmp: Path, target: Path) -> None:
+    """Give the temporary file the permissions a newly created file gets, then rename it.
+
+    ``mkstemp`` creates files readable by their owner only; outputs are meant to be shared.
+    """
+    os.chmod(tmp, 0o666 & ~_umask())
+    os.replace(tmp, target)
+
+
 @contextmanager
 def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``target``; rename it over ``target`` on success."""
@@ -32,7 +47,7 @@ def atomic_path(target: str | os.PathLike) -> Iterator[Path]:
     tmp_path = Path(tmp)
     try:
         yield tmp_path
-        os.replace(tmp_path, target)
+        _publish(tmp_path, target)
     finally:
         if tmp_path.exists():
             tmp_path.unlink()
@@ -120,7 +135,7 @@ def write_outputs(folder: str | os.PathLike, files: dict[str, Any]) -> list[Path
             else:
                 raise TypeError(f"cannot write {type(content).__name__} to {name}")
         for tmp_path, target in staged:
-            os.replace(tmp_path, target)
+            _publish(tmp_path, target)
         return [target for _, target in staged]
     finally:
         for tmp_path, _ in staged:
