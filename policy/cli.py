@@ -291,7 +291,7 @@ def report(
     out: Path = OutOption,
     cost: Optional[List[str]] = typer.Option(None, "--cost", help="Start from another outcome cost: KEY=NUMBER (repeatable)."),
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
-    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison (default: [uncertainty] replicates)."),
+    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
 ):
     """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
