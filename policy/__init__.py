@@ -15,6 +15,7 @@ from .errors import InfeasibleError, InputError, PolicyError, SolverError
 from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
 from .evaluate import Evaluation, evaluate
 from .pipeline import Analysis, CheckReport, analyze, check, estimate
+from .report import Report, build_report
 from .uncertainty import BootstrapResult, bootstrap
 from .compare import Comparison, compare
 from .rules import Rule
@@ -51,6 +52,7 @@ __all__ = [
     "LenientMap",
     "OneRatioSweep",
     "PolicyError",
+    "Report",
     "RiskBounds",
     "RiskLevelEstimator",
     "RiskLevels",
@@ -59,6 +61,7 @@ __all__ = [
     "SolverError",
     "SweepResult",
     "analyze",
+    "build_report",
     "bootstrap",
     "check",
     "compare",

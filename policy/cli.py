@@ -290,6 +290,28 @@ def solve(
     show_written(paths)
 
 
+@command
+def report(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    cost: Optional[List[str]] = typer.Option(None, "--cost", help="Start from another outcome cost: KEY=NUMBER (repeatable)."),
+    decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
+    replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
+    progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+):
+    """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
+    from .outputs import write_outputs
+    from .report import build_report
+
+    built = build_report(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+                         replicates=replicates, progress=progress)
+    paths = write_outputs(out, built.output_files())
+    console.print(str(built))
+    show_cautions()
+    show_written(paths)
+    console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
+
+
 def _ranges(values: Optional[List[str]]) -> Optional[list]:
     if not values:
         return None

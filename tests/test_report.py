@@ -1,0 +1,228 @@
+"""The committee report without a browser: it builds for every scenario, it is self-contained,
+and every label from a scenario reaches the page as text, never as markup."""
+
+from __future__ import annotations
+
+import json
+import re
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from policy.demo import simulate_cases
+from policy.pipeline import analyze
+from policy.report import build_report, json_for_script, render_report
+
+from .conftest import ROOT, SMALL_SCENARIO, run_cli, write_scenario
+
+SCENARIO_FILES = sorted((ROOT / "scenarios").glob("*.toml"))
+#: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)
+REPLICATES = 20
+
+#: labels that would run code or add elements if a page pasted them in as markup
+HOSTILE = {
+    "title": "Quarrow <script>alert('title')</script> & \u2028co\u2029 </script><!--",
+    "level": "<img src=x onerror=alert('level')>",
+    "outcome": "</script><zzz-hostile>new offense</zzz-hostile>",
+    "category": "<script>alert('cell')</script>",
+    "source": "<a href=\"https://example.invalid/\">a link</a> & \"quotes\"",
+    "unit": "<b>USD</b>",
+}
+
+
+class PageParser(HTMLParser):
+    """Collects tags, attributes, text and the contents of <script> and <style> elements."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict]] = []
+        self.text: list[str] = []
+        self.scripts: list[str] = []
+        self.styles: list[str] = []
+        self._in: str | None = None
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag in ("script", "style"):
+            self._in = tag
+            (self.scripts if tag == "script" else self.styles).append("")
+
+    def handle_endtag(self, tag):
+        if tag == self._in:
+            self._in = None
+
+    def handle_data(self, data):
+        if self._in == "script":
+            self.scripts[-1] += data
+        elif self._in == "style":
+            self.styles[-1] += data
+        else:
+            self.text.append(data)
+
+
+def parse(html: str) -> PageParser:
+    parser = PageParser()
+    parser.feed(html)
+    parser.close()
+    return parser
+
+
+def island(html: str) -> dict:
+    """The JSON data island, read back as JSON.parse would."""
+    match = re.search(r'<script type="application/json" id="report-data">(.*?)</script>', html, flags=re.S)
+    assert match, "no data island"
+    return json.loads(match.group(1))
+
+
+def hostile_scenario(folder: Path) -> Path:
+    """The small scenario with hostile labels everywhere a scenario can put text on the page."""
+    frame, _ = simulate_cases(3_000, seed=5)
+    frame["charge_class"] = frame["charge_class"].replace({"felony": HOSTILE["category"]})
+    frame.to_csv(folder / "cases.csv", index=False)
+    return write_scenario(folder, replace={
+        'title = "small test scenario"': f'title = {json.dumps(HOSTILE["title"])}\n'
+                                         f'description = {json.dumps(HOSTILE["source"])}',
+        'label = "secured bond"': f'label = {json.dumps(HOSTILE["level"])}\ncost_source = {json.dumps(HOSTILE["source"])}',
+        'label = "new offense"': f'label = {json.dumps(HOSTILE["outcome"])}',
+        'unit = "USD"': f'unit = {json.dumps(HOSTILE["unit"])}',
+    })
+
+
+# ----------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("scenario", SCENARIO_FILES, ids=[p.stem for p in SCENARIO_FILES])
+def test_report_builds_for_every_scenario(scenario, tmp_path, capsys):
+    code, out, err = run_cli(["report", scenario, "--out", tmp_path, "--replicates", REPLICATES, "--no-progress"], capsys)
+    assert code == 0, err
+    html = (tmp_path / "report.html").read_text(encoding="utf-8")
+    page = parse(html)
+    text = " ".join(" ".join(page.text).split())
+    # the cautions come before any figure: before the first table and before the controls
+    first_caution = text.index("not an assessment of any individual")
+    assert first_caution < text.index("What the data hold")
+    assert html.index('id="cautions"') < html.index("<table") < html.index('id="cost-controls"')
+    assert "local law" in text and "discretion" in text
+    assert "Assumptions behind these figures" in text
+    # every cost source of the scenario is on the page
+    analysis = analyze(scenario)
+    for level in analysis.scenario.levels:
+        if level.cost_source:
+            assert " ".join(level.cost_source.split()) in text
+    # the tables beside the report are those of the analysis, and nothing is left half-written
+    for name in analysis.output_files():
+        assert (tmp_path / name).is_file(), name
+    assert not list(tmp_path.glob(".*.partial"))
+    assert "report.html" in out
+
+
+@pytest.mark.parametrize("scenario", SCENARIO_FILES, ids=[p.stem for p in SCENARIO_FILES])
+def test_the_data_island_holds_the_engines_arrays(scenario):
+    analysis = analyze(scenario)
+    report = render_report(analysis)
+    live = island(report.html)["live"]
+    rl, costs = analysis.risk_levels, analysis.costs
+    n, J, L = rl.p.shape
+    assert (live["n_cells"], live["n_outcomes"], live["n_levels"]) == (n, J, L)
+    # the numbers are the engine's own doubles, not rounded copies
+    np.testing.assert_array_equal(np.array(live["p"]).reshape(n, J, L), rl.p)
+    np.testing.assert_array_equal(np.array(live["weights"]), rl.weights)
+    np.testing.assert_array_equal(np.array(live["decision_base"]).reshape(n, L), costs.decision)
+    np.testing.assert_array_equal(live["outcome_costs"], costs.outcome)
+    np.testing.assert_array_equal(live["rule_index"], analysis.rule.index)
+    np.testing.assert_array_equal(live["scenario_levels"], analysis.rule.level)
+    assert len(live["rule_cells"]) == analysis.rule.n_rule_cells
+    assert len(live["controls"]) == J + L
+
+
+def test_page_is_self_contained(tmp_path):
+    report = build_report(ROOT / "scenarios" / "demo.toml", replicates=REPLICATES)
+    page = parse(report.html)
+    names = {tag for tag, _ in page.tags}
+    assert not names & {"link", "img", "iframe", "object", "embed", "base", "audio", "video", "source"}
+    for tag, attrs in page.tags:
+        assert "src" not in attrs, (tag, attrs)
+        assert not attrs.get("href", "#").strip() or attrs.get("href", "#").startswith("#"), (tag, attrs)
+        for value in attrs.values():
+            assert "://" not in (value or ""), (tag, attrs)
+    assert ":root" in page.styles[0]  # the report's own style sheet comes first
+    # the figures are inline SVG, one per sweep figure and the map, and every id on the page is unique
+    svgs = [attrs for tag, attrs in page.tags if tag == "svg" and attrs.get("role") == "img" and "aria-label" in attrs]
+    outcomes = len(analyze(ROOT / "scenarios" / "demo.toml").scenario.outcomes)
+    assert len([a for a in svgs if a.get("width") == "100%"]) == 2 * outcomes + 1
+    ids = [attrs["id"] for _, attrs in page.tags if "id" in attrs]
+    assert len(ids) == len(set(ids))
+    for css in page.styles:
+        assert "url(" not in css and "@import" not in css and "@font-face" not in css
+    # two scripts: the data island and the inline program; the program loads nothing
+    assert len(page.scripts) == 2
+    program = page.scripts[1]
+    for call in ("fetch(", "XMLHttpRequest", "import(", "WebSocket", "EventSource", "sendBeacon", ".innerHTML", "eval("):
+        assert call not in program, call
+
+
+def test_json_for_script_escapes_what_could_end_the_element():
+    obj = {"a": HOSTILE["title"], "b": ["</script>", "<!--", "&amp;", "\u2028\u2029", "\u00e9"], "c": 1.5e-300}
+    text = str(json_for_script(obj))
+    for char in ("<", ">", "&", "\u2028", "\u2029"):
+        assert char not in text
+    # JSON.parse reads the escapes back as the original characters (json.loads follows the same
+    # grammar: RFC 8259, section 7)
+    assert json.loads(text) == obj
+    with pytest.raises(ValueError):
+        json_for_script({"x": float("nan")})
+
+
+def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
+    scenario = hostile_scenario(tmp_path)
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out", "--replicates", REPLICATES, "--no-progress"],
+                           capsys)
+    assert code == 0, err
+    html = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    page = parse(html)
+    names = [tag for tag, _ in page.tags]
+    # no element came from a label: two scripts (island and program), no image, no unknown tag
+    assert names.count("script") == 2
+    assert "img" not in names and "zzz-hostile" not in names
+    assert names.count("a") == sum(1 for _, attrs in page.tags if attrs.get("href", "").startswith("#"))
+    for _, attrs in page.tags:
+        assert not any(key.startswith("on") for key in attrs), attrs
+    # each label is on the page as written, as text
+    text = "".join(page.text)
+    for key in ("title", "level", "outcome", "category", "unit"):
+        assert HOSTILE[key].replace("\u2028", "").replace("\u2029", "") in text.replace("\u2028", "").replace("\u2029", ""), key
+    assert HOSTILE["source"] in text
+    # the data island hides nothing that could close it, and reads back to the same labels
+    raw = page.scripts[0]
+    assert "<" not in raw and ">" not in raw and "\u2028" not in raw
+    live = json.loads(raw)["live"]
+    assert HOSTILE["level"] in live["level_labels"] and HOSTILE["outcome"] in live["outcome_labels"]
+    assert any(HOSTILE["category"] in row for row in live["rule_cells"])
+
+
+def test_report_starts_from_overridden_costs(tmp_path, capsys, small_case_table):
+    scenario, _ = small_case_table
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path, "--replicates", REPLICATES, "--no-progress",
+                            "--cost", "new_offense=20000",
+                            "--decision-cost", "supervision=100"], capsys)
+    assert code == 0, err
+    live = island((tmp_path / "report.html").read_text(encoding="utf-8"))["live"]
+    by_id = {c["id"]: c for c in live["controls"]}
+    assert by_id["cost-outcome-1"]["value"] == 20000 and by_id["cost-level-1"]["value"] == 100
+    rule = pd.read_csv(tmp_path / "rule.csv")
+    expected = analyze(scenario, {"new_offense": 20000}, {"supervision": 100}).rule.to_frame()
+    assert list(rule["level"]) == list(expected["level"])
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "bad", "--cost", "nope=1"], capsys)
+    assert code == 2 and not (tmp_path / "bad").exists()
+
+
+def test_controls_say_how_a_per_cell_cost_moves():
+    report = render_report(analyze(ROOT / "scenarios" / "demo.toml"))
+    live = island(report.html)["live"]
+    bond = [c for c in live["controls"] if c["kind"] == "decision" and c["mode"] == "scale"]
+    assert len(bond) == 1 and bond[0]["value"] == 1.0
+    assert "factor on each cell's cost from column bond_cost" in "".join(parse(report.html).text)
+    for c in live["controls"]:
+        assert c["min"] <= c["value"] <= c["max"] and c["step"] > 0
+

@@ -1,0 +1,392 @@
+"""The committee report in a real browser: Debian's Chromium, headless, driven by playwright.
+
+The page is opened from disk with every request intercepted (any URL that is not ``file:``
+fails the test), its cost controls are moved with the keyboard and by typing, and every number
+the page shows is checked against the tool's Python engine (policy.costs, policy.solve,
+policy.evaluate) for the same costs, to the precision the page displays. Where Chromium or
+playwright is missing, these tests fail with a message saying how to install them: they never
+skip.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from policy import costs_from_scenario, evaluate, optimal_rule
+from policy.outputs import write_outputs
+from policy.pipeline import analyze
+from policy.report import DIGITS, build_report
+
+from .conftest import ROOT, run_cli
+from .test_report import HOSTILE, hostile_scenario
+
+#: Debian's chromium package; never a browser downloaded by a test tool
+CHROMIUM = os.environ.get("POLICY_TEST_CHROMIUM", "/usr/bin/chromium")
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+         "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+INSTALL = "install Debian's browser with `apt-get install -y chromium` (.ci/run does) and the test extra (playwright)"
+#: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)
+REPLICATES = 20
+
+
+@pytest.fixture(scope="module")
+def browser(tmp_path_factory):
+    """A fresh headless Chromium profile; fails (never skips) where the browser cannot start."""
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError as exc:  # pragma: no cover - the failure path is the point
+        pytest.fail(f"playwright is not installed ({exc}); {INSTALL}.", pytrace=False)
+    if not (Path(CHROMIUM).is_file() or shutil.which(CHROMIUM)):
+        pytest.fail(f"Chromium was not found at {CHROMIUM}; {INSTALL}.", pytrace=False)
+    profile = tmp_path_factory.mktemp("chromium-profile")
+    with sync_playwright() as pw:
+        try:
+            context = pw.chromium.launch_persistent_context(
+                str(profile), executable_path=CHROMIUM, headless=True, args=FLAGS,
+                viewport={"width": 1280, "height": 1000}, offline=True)
+        except Exception as exc:  # the browser would not start: say so loudly
+            pytest.fail(f"Chromium at {CHROMIUM} could not be started: {exc}; {INSTALL}.", pytrace=False)
+        yield context
+        context.close()
+
+
+@dataclass
+class OpenPage:
+    page: object
+    requests: list
+    problems: list
+    dialogs: list
+
+    def violations(self) -> list:
+        return self.page.evaluate("window.__cspViolations || []")
+
+
+def open_report(browser, path: Path) -> OpenPage:
+    """Open a report from disk, refusing (and recording) every request that is not a file."""
+    page = browser.new_page()
+    requests, problems, dialogs = [], [], []
+
+    def route(r):
+        requests.append(r.request.url)
+        if r.request.url.startswith("file:"):
+            r.continue_()
+        else:
+            r.abort()
+
+    page.route("**/*", route)
+    browser.on("request", lambda req: None if req.url in requests else requests.append(req.url))
+    page.on("console", lambda m: problems.append(f"console {m.type}: {m.text}") if m.type in ("error", "warning") else None)
+    page.on("pageerror", lambda e: problems.append(f"page error: {e}"))
+    page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+    # requests the page's content security policy refuses never reach the route: count them too
+    page.add_init_script("window.__cspViolations = [];"
+                         "document.addEventListener('securitypolicyviolation',"
+                         " e => window.__cspViolations.push(e.blockedURI + ' ' + e.violatedDirective));")
+    page.goto(path.as_uri())
+    page.wait_for_load_state("load")
+    return OpenPage(page, requests, problems, dialogs)
+
+
+def assert_offline(opened: OpenPage, path: Path) -> None:
+    assert opened.requests, "the route saw no request at all: the interception is not working"
+    foreign = [u for u in opened.requests if not u.startswith("file:")]
+    assert not foreign, f"the report tried to reach the network: {foreign}"
+    assert set(opened.requests) == {path.as_uri()}, opened.requests
+    assert not opened.violations(), opened.violations()
+    assert not opened.problems, opened.problems
+    assert not opened.dialogs, opened.dialogs
+
+
+# ----------------------------------------------------------------------------------------------
+# Reading the page and asking the engine
+# ----------------------------------------------------------------------------------------------
+def number(text: str) -> float:
+    return float(text.replace(",", "").replace("%", "").strip())
+
+
+def compared_rows(page) -> dict:
+    """Each compared rule's row: name -> (expected cost, regret, agreement) as shown."""
+    rows = page.locator("#compared-table tbody tr")
+    out = {}
+    for i in range(rows.count()):
+        row = rows.nth(i)
+        out[row.locator("th").inner_text().strip()] = tuple(
+            row.locator(f'[data-live="{k}"]').inner_text().strip() for k in ("compared-cost", "regret", "agreement"))
+    return out
+
+
+def shown(page) -> dict:
+    """What the page shows, as a reader would read it."""
+    texts = lambda sel: [t.strip() for t in page.locator(sel).all_inner_texts()]
+    rows = page.locator("#rule-table tbody tr")
+    rule = {}
+    for i in range(rows.count()):
+        row = rows.nth(i)
+        key = tuple(t.strip() for t in row.locator("th").all_inner_texts())
+        rule[key] = (row.locator('[data-live="level"]').inner_text().strip(),
+                     row.locator('[data-live="changed"]').inner_text().strip())
+    return {
+        "shares": texts('#shares-table [data-live="share"]'),
+        "rates": texts('#rates-table [data-live="rate"]'),
+        "cost": texts('.headline [data-live="cost"]')[0],
+        "lenient": texts('.headline [data-live="share"]')[0],
+        "compared": compared_rows(page),
+        "rule": rule,
+        "status": page.locator("#live-status").inner_text(),
+    }
+
+
+def engine(results, outcome_costs=None, decision_costs=None, scale=None):
+    """The Python engine's answer for the given costs: the rule, its evaluation, and each compared
+    rule's evaluation against it (policy.costs, policy.solve, policy.evaluate)."""
+    analysis = results.analysis
+    rl = analysis.risk_levels
+    costs = costs_from_scenario(analysis.scenario, rl, outcome_costs, decision_costs)
+    if scale:
+        costs = costs.with_decision_scale([scale.get(d, 1.0) for d in range(rl.n_levels)])
+    rule = optimal_rule(rl, costs)
+    compared = {c.rule.name: evaluate(c.rule, rl, costs, reference=rule) for c in results.compared}
+    return rule, evaluate(rule, rl, costs), compared
+
+
+def close(text: str, value: float, digits: int, scale: float = 1.0) -> bool:
+    """The shown text equals ``value * scale`` to the displayed number of digits."""
+    return abs(number(text) - value * scale) <= 0.5 * 10.0 ** -digits + 1e-9 * max(1.0, abs(value * scale))
+
+
+def assert_matches_engine(view: dict, results, rule, ev, compared) -> None:
+    analysis = results.analysis
+    for text, share in zip(view["shares"], ev.level_shares, strict=True):
+        assert close(text, share, DIGITS["share"], 100), (text, share)
+    assert view["lenient"] == view["shares"][0]
+    for text, rate in zip(view["rates"], ev.outcome_rates, strict=True):
+        assert close(text, rate, DIGITS["rate"], 100), (text, rate)
+    assert close(view["cost"], ev.cost_per_case, DIGITS["cost"], 1000), (view["cost"], ev.cost_per_1000)
+    assert set(view["compared"]) == set(compared)
+    for name, e in compared.items():
+        cost, regret, agreement = view["compared"][name]
+        assert close(cost, e.cost_per_case, DIGITS["cost"], 1000), (name, cost, e.cost_per_1000)
+        assert close(regret, e.regret_per_case, DIGITS["cost"], 1000), (name, regret, 1000 * e.regret_per_case)
+        assert close(agreement, e.agreement, DIGITS["share"], 100), (name, agreement, e.agreement)
+    frame, base = rule.to_frame(), analysis.rule.to_frame()
+    columns = list(rule.rule_cells.columns)
+    assert len(view["rule"]) == len(frame)
+    for i in range(len(frame)):
+        key = tuple(str(v) for v in frame.loc[i, columns])
+        level, changed = view["rule"][key]
+        assert level == frame.loc[i, "level"], (key, level, frame.loc[i, "level"])
+        assert changed == ("changed" if frame.loc[i, "level"] != base.loc[i, "level"] else ""), key
+
+
+def set_number(page, control: str, value: str) -> None:
+    box = page.locator(f"#{control}-number")
+    box.fill(value)  # types the text and fires the input event, as a reader typing would
+
+
+# ----------------------------------------------------------------------------------------------
+def built_report(folder: Path, scenario: Path):
+    report = build_report(scenario, replicates=REPLICATES)
+    write_outputs(folder, report.output_files())
+    return folder / "report.html", report.results
+
+
+@pytest.fixture(scope="module")
+def demo_report(tmp_path_factory):
+    return built_report(tmp_path_factory.mktemp("demo-report"), ROOT / "scenarios" / "demo.toml")
+
+
+@pytest.fixture
+def demo_page(browser, demo_report):
+    """The demo report open in a fresh page; afterwards, no request may have left the file."""
+    path, results = demo_report
+    opened = open_report(browser, path)
+    yield opened.page, results
+    assert_offline(opened, path)
+    opened.page.close()
+
+
+def test_demo_report_offline_live_and_equal_to_the_engine(demo_page, tmp_path):
+    page, results = demo_page
+    analysis = results.analysis
+
+    # on opening, the script's figures equal the engine's at the scenario's own costs
+    view = shown(page)
+    assert_matches_engine(view, results, *engine(results))
+    assert "scenario's own costs" in view["status"]
+    # the cautions are on the first screen, before any table of numbers
+    caution = page.locator("#cautions")
+    assert caution.is_visible() and caution.bounding_box()["y"] + caution.bounding_box()["height"] < 1000
+    assert caution.bounding_box()["y"] < page.locator("table").first.bounding_box()["y"]
+
+    # drag the new-offense cost up with the keyboard (Page Up) until the lenient share moves
+    j = analysis.scenario.outcome_index("new_offense")
+    slider = page.locator(f"#cost-outcome-{j}-range")
+    slider.focus()
+    for _ in range(10):
+        page.keyboard.press("PageUp")
+        if shown(page)["lenient"] != view["lenient"]:
+            break
+    value = float(slider.input_value())
+    assert value > analysis.costs.outcome[j]
+    assert float(page.locator(f"#cost-outcome-{j}-number").input_value()) == value
+    rule, ev, compared = engine(results, {"new_offense": value})
+    after = shown(page)
+    assert_matches_engine(after, results, rule, ev, compared)
+    # the committee sees the rule and the lenient share change
+    assert any(changed for _, changed in after["rule"].values())
+    assert after["lenient"] != view["lenient"]
+    assert "costs chosen here" in after["status"]
+
+    # type costs: a fixed decision cost and the factor on the bond's per-cell cost
+    set_number(page, "cost-level-1", "400")
+    set_number(page, "cost-level-2", "1.5")
+    rule, ev, compared = engine(results, {"new_offense": value}, {"supervision": 400}, scale={2: 1.5})
+    assert_matches_engine(shown(page), results, rule, ev, compared)
+    mean = float(np.average(analysis.costs.decision[:, 2], weights=analysis.risk_levels.weights))
+    assert close(page.locator("#cost-level-2-mean").inner_text(), 1.5 * mean, 0)
+    # a bad entry is marked and changes nothing
+    set_number(page, "cost-outcome-0", "-5")
+    assert page.locator("#cost-outcome-0-number").get_attribute("aria-invalid") == "true"
+    assert_matches_engine(shown(page), results, rule, ev, compared)
+
+    page.screenshot(path=str(tmp_path / "report-after-moving-costs.png"), full_page=True)
+    assert (tmp_path / "report-after-moving-costs.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+    # printed: no controls, and the costs used are stated
+    page.emulate_media(media="print")
+    assert not page.locator("#cost-controls").is_visible()
+    printed = page.locator("#printed-costs")
+    assert printed.is_visible() and "costs chosen on the page" in printed.inner_text()
+    page.emulate_media(media="screen")
+
+    # back to the scenario's costs
+    page.locator("#reset-costs").click()
+    assert_matches_engine(shown(page), results, *engine(results))
+
+
+def test_every_control_has_a_label_and_takes_the_keyboard(demo_page):
+    page, results = demo_page
+    analysis = results.analysis
+    inputs = page.locator("#cost-controls input")
+    assert inputs.count() == 2 * (len(analysis.scenario.outcomes) + len(analysis.scenario.levels))
+    for i in range(inputs.count()):
+        handle = inputs.nth(i)
+        ident = handle.get_attribute("id")
+        assert page.locator(f'label[for="{ident}"]').count() == 1, ident
+    # Tab from the skip link reaches the first slider
+    page.keyboard.press("Tab")
+    assert page.evaluate("document.activeElement.className") == "skip"
+    page.keyboard.press("Enter")
+    for _ in range(40):
+        page.keyboard.press("Tab")
+        if page.evaluate("document.activeElement.type") == "range":
+            break
+    assert page.evaluate("document.activeElement.type") == "range"
+
+
+def test_hostile_labels_stay_text_in_the_browser(browser, tmp_path, capsys):
+    scenario = hostile_scenario(tmp_path)
+    code, _, err = run_cli(["report", scenario, "--out", tmp_path / "out", "--replicates", REPLICATES, "--no-progress"],
+                           capsys)
+    assert code == 0, err
+    path = tmp_path / "out" / "report.html"
+    opened = open_report(browser, path)
+    page = opened.page
+    analysis = analyze(scenario)
+    # move every outcome slider so the script rewrites the rule table and the status line
+    for j in range(len(analysis.scenario.outcomes)):
+        page.locator(f"#cost-outcome-{j}-range").focus()
+        page.keyboard.press("End")
+    assert page.locator("img, zzz-hostile").count() == 0
+    assert page.locator("script").count() == 2
+    body = page.locator("body").inner_text()
+    assert HOSTILE["level"] in body and HOSTILE["category"] in body and HOSTILE["outcome"] in body
+    levels = page.locator('#rule-table [data-live="level"]').all_inner_texts()
+    assert HOSTILE["level"] in levels
+    assert page.title().startswith("Quarrow <script>")
+    assert_offline(opened, path)
+    page.close()
+
+
+def test_ties_go_to_the_lenient_level_as_in_the_engine(demo_page):
+    page, results = demo_page
+    analysis = results.analysis
+    # every cost zero: every level ties in every rule cell, and both engines pick the most lenient
+    controls = page.locator('#cost-controls input[type="number"]')
+    for i in range(controls.count()):
+        controls.nth(i).fill("0")
+    L = analysis.risk_levels.n_levels
+    rule, ev, compared = engine(results, {k: 0.0 for k in analysis.scenario.outcome_keys},
+                                {v: 0.0 for v in analysis.scenario.level_values}, scale={L - 1: 0.0})
+    assert (rule.level == 0).all()
+    assert_matches_engine(shown(page), results, rule, ev, compared)
+    # only the decision costs: supervision free, recognizance and bond as in the scenario
+    page.locator("#reset-costs").click()
+    page.locator("#cost-level-1-number").fill("0")
+    rule, ev, compared = engine(results, None, {analysis.scenario.level_values[1]: 0.0})
+    assert_matches_engine(shown(page), results, rule, ev, compared)
+
+
+@pytest.fixture(scope="module")
+def constrained_report(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("constrained-report")
+    path, results = built_report(folder, ROOT / "scenarios" / "demo_constrained.toml")
+    return folder, results
+
+
+def constrained_shown(page) -> dict:
+    texts = lambda kind: [t.strip() for t in page.locator(f'#constrained-live [data-live="{kind}"]').all_inner_texts()]
+    return {"cost": texts("c-cost")[0], "price": texts("c-price")[0], "shares": texts("c-share"),
+            "note": page.locator("#constrained-note").inner_text()}
+
+
+def assert_constrained_matches(view: dict, con) -> None:
+    assert close(view["cost"], con.cost_per_case, DIGITS["cost"], 1000), (view["cost"], con.cost_per_case)
+    assert close(view["price"], con.price_per_case, DIGITS["cost"], 1000), (view["price"], con.price_per_case)
+    for text, v in zip(view["shares"], con.evaluation.level_shares, strict=True):
+        assert close(text, v, DIGITS["share"], 100), (text, v)
+
+
+def test_constrained_figures_come_from_the_nearest_precomputed_point(browser, constrained_report):
+    import pandas as pd
+
+    folder, results = constrained_report
+    analysis = results.analysis
+    path = folder / "report.html"
+    opened = open_report(browser, path)
+    page = opened.page
+    # at the scenario's costs: the constrained rule solved at exactly those costs
+    view = constrained_shown(page)
+    assert "exactly these costs" in view["note"]
+    assert_constrained_matches(view, analysis.constrained)
+
+    j = analysis.scenario.outcome_index("new_offense")
+    page.locator(f"#cost-outcome-{j}-range").focus()
+    for _ in range(3):
+        page.keyboard.press("PageUp")
+    value = float(page.locator(f"#cost-outcome-{j}-range").input_value())
+    # the nearest feasible point on the ratio axis, c_j / mean cost of the harshest level
+    grid = pd.read_csv(folder / "sweep_new_offense_constrained.csv")
+    grid = grid[grid["feasible"]]
+    c_ref = float(np.average(analysis.costs.decision[:, -1], weights=analysis.risk_levels.weights))
+    ratio = float(grid["ratio"].to_numpy()[np.argmin(np.abs(grid["ratio"].to_numpy() - value / c_ref))])
+    nearest = ratio * c_ref
+    # the point's figures equal a constrained solve at that point's costs, done afresh
+    fresh = analyze(analysis.scenario, {"new_offense": nearest}).constrained
+    view = constrained_shown(page)
+    assert_constrained_matches(view, fresh)
+    assert "nearest" in view["note"] and f"{nearest:,.0f}" in view["note"]
+    # the constrained rule held at the scenario's costs is one of the compared rules, live
+    assert analysis.constrained.rule.name in shown(page)["compared"]
+    assert_matches_engine(shown(page), results, *engine(results, {"new_offense": value}))
+    # another cost moved too: the page says the constrained figures do not follow it
+    page.locator("#cost-level-1-number").fill("500")
+    assert "not reflected" in constrained_shown(page)["note"]
+    assert_offline(opened, path)
+    page.close()
