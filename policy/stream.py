@@ -22,7 +22,8 @@ case ids are unique (below), never by the case rows themselves.
   becomes a 64-bit key (the value itself for integer ids; a hash of the bytes for text ids),
   the keys are sorted once at the end, and the few keys seen more than once are checked
   exactly in a second pass that reads only the id column. A hash collision between two
-  different ids is therefore never reported as a duplicate.
+  different ids is therefore never reported as a duplicate. CSV ids are compared as written
+  (text: ``012`` and ``12`` are two cases).
 - Errors name the file's own row numbers. A table read in several blocks stops at the first
   block with a bad value; its message says which rows were checked.
 """
@@ -33,7 +34,6 @@ import csv
 import io
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import nullcontext
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
@@ -58,12 +58,6 @@ READ_BATCH_ROWS = 1 << 18
 # ----------------------------------------------------------------------------------------------
 # Blocks of a file
 # ----------------------------------------------------------------------------------------------
-@dataclass
-class _Block:
-    frame: pd.DataFrame
-    start: int  # rows before this block
-
-
 class _Source:
     """A case table file read in blocks of exactly ``block_rows`` rows (the last one shorter)."""
 
@@ -518,10 +512,10 @@ def _progress_bar(show: bool | None, source: _Source, file: str):
                                                                      else 64 << 20)
     if not show:
         return nullcontext(None)
-    return _bar(source, file)
+    return _Bar(source, file)
 
 
-class _bar:
+class _Bar:
     def __init__(self, source: _Source, file: str):
         self.source, self.file = source, file
 
