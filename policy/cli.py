@@ -542,7 +542,7 @@ def batch(
     paths = write_outputs(out, result.output_files())
     summary = result.summary()
     table = Table(title=f"{len(result.runs)} scenarios ({result.where})")
-    for col in ("scenario", "status", "cases", f"cost per 1,000 cases", "constrained price per 1,000", "outputs or reason"):
+    for col in ("scenario", "status", "cases", "cost per 1,000 cases", "constrained price per 1,000", "outputs or reason"):
         table.add_column(col, justify="right" if col not in ("scenario", "status", "outputs or reason") else "left")
     for _, row in summary.iterrows():
         done = row["status"] == "done"

@@ -43,7 +43,7 @@ replicates are computed in fixed chunks of :data:`CHUNK` whatever the number of 
 with single-threaded BLAS (:func:`one_blas_thread`), so the same seed gives the same bits on one
 core or many. How chunks are run is isolated behind
 :class:`TaskRunner` (``map(fn, shared, tasks)``): :class:`InProcess` and :class:`LocalProcesses`
-here; a distributed runner (e.g. Dask) only has to implement the same method. The task function
+here, :class:`policy.distributed.DaskRunner` on a Dask cluster (``--run-on``). The task function
 :func:`run_chunk` is pure and picklable.
 
 Intervals are bootstrap percentile intervals (Efron and Tibshirani 1993, ch. 13): the
