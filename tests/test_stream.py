@@ -209,3 +209,11 @@ def test_twenty_million_rows_in_bounded_memory(tmp_path, demo_scenario):
     expected = base["decision"].value_counts().reindex(list(demo_scenario.level_values)).to_numpy() * 20
     assert got["per_level"] == expected.tolist()
     assert got["peak_mb"] < MEMORY_BOUND_MB, got
+
+
+def test_progress_bar_reads_the_same(tmp_path, demo_scenario, cases30k, capsys):
+    path = tmp_path / "cases.csv"
+    cases30k.to_csv(path, index=False)
+    quiet = stream_cell_table(path, demo_scenario, block_rows=8_192, progress=False)
+    shown = stream_cell_table(path, demo_scenario, block_rows=8_192, progress=True)
+    assert_same_table(quiet, shown)
