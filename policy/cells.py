@@ -18,12 +18,15 @@ import pandas as pd
 
 from .errors import InputError
 from .scenario import Scenario
-from .tables import binary_states, describe_bad, read_table, require_columns
+from .tables import binary_states, describe_bad, read_table, require_columns, row_number
 
-__all__ = ["CellLayout", "CellTable", "CodedColumn", "load_cell_table", "aggregate_codes", "code_column"]
+__all__ = ["BlockCounts", "CellLayout", "CellTable", "CodedColumn", "count_block", "load_cell_table", "aggregate_codes", "code_column"]
 
-#: rows per chunk of the aggregation pass (bounds the temporary key array)
-CHUNK_ROWS = 1 << 21
+#: rows per chunk of the aggregation pass (bounds the temporary key array; a file is read in
+#: blocks of this many rows, so that both add per-cell sums in the same order)
+CHUNK_ROWS = 1 << 20
+#: rows per step of the key computation within a chunk (the step's key stays in cache)
+KEY_STEP = 1 << 15
 #: largest key space counted with one dense bincount; beyond it keys are sorted and merged
 DENSE_KEYS = 1 << 22
 
@@ -153,7 +156,7 @@ def code_column(series: pd.Series, column: str, file: str, what: str = "column")
     if series.hasnans:
         rows = np.flatnonzero(series.isna().to_numpy())
         raise InputError(
-            f"{file}: {what} {column!r} is empty in {len(rows)} rows (first: row {rows[0] + 1}); "
+            f"{file}: {what} {column!r} is empty in {len(rows)} rows (first: row {row_number(rows[0])}); "
             f"every row needs a value."
         )
     if isinstance(series.dtype, pd.CategoricalDtype):
@@ -282,50 +285,22 @@ class CellTable:
             The table's name for messages (default: ``frame.attrs['file']``).
         """
         file = file or frame.attrs.get("file", "case table")
-        typed = frame.attrs.get("format") == "parquet"
-        require_columns(frame.columns, _case_columns(scenario), file, f"named in {scenario.file}")
-        n = len(frame)
-        if n == 0:
+        block = count_block(frame, scenario, file, whole=True)
+        return cls.from_block_counts(block, scenario, file)
+
+    @classmethod
+    def from_block_counts(cls, block: "BlockCounts", scenario: Scenario, file: str) -> "CellTable":
+        """The cell table of a case table counted in one block (or in several, merged by
+        :mod:`policy.stream`): cells ordered by their categories, margins, cost means."""
+        if block.rows == 0:
             raise InputError(f"{file}: the case table has no rows.")
-        if scenario.case_id is not None:
-            _check_unique_ids(frame[scenario.case_id], scenario.case_id, file)
-
-        cells = [code_column(frame[c], c, file, "cell column") for c in scenario.cell_columns]
-        columns = list(cells)
-        if scenario.arm is not None:
-            arm = binary_states(frame[scenario.arm], scenario.arm, file, allow_missing=False, typed=typed) - 1
-            columns.append(CodedColumn(arm, 0, [0, 1]))
-            arms: tuple = (0, 1)
-        else:
-            arms = (None,)
-        decision = code_column(frame[scenario.decision], scenario.decision, file)
-        columns.append(decision)
-        recommendation = None
-        if scenario.aid.recommendation is not None:
-            recommendation = code_column(frame[scenario.aid.recommendation], scenario.aid.recommendation, file)
-            columns.append(recommendation)
-        for outcome in scenario.outcomes:
-            states = binary_states(frame[outcome.column], outcome.column, file, allow_missing=True, typed=typed)
-            if not states.any():
+        for j, outcome in enumerate(scenario.outcomes):
+            if not block.observed_any[j]:
                 raise InputError(f"{file}: outcome column {outcome.column!r} ({outcome.label}) is empty in every row; nothing can be estimated for it.")
-            columns.append(CodedColumn(states, 0, [None, 0, 1]))
-        costs_raw = {col: _cost_values(frame[col], col, file) for col in scenario.cost_columns}
-
-        counts, cell_ids, cost_sums = aggregate_codes(columns, len(cells), costs_raw)
-        # counts: (cells present, [arm], decision codes, [recommendation codes], 3, ..., 3)
-        if scenario.arm is None:
-            counts = counts[:, None]
-        axis = 2
-        counts = _to_levels(counts, axis, decision, scenario, scenario.decision, frame, file)
-        if recommendation is not None:
-            counts = _to_levels(counts, axis + 1, recommendation, scenario, scenario.aid.recommendation, frame, file)
-        else:
-            counts = counts[:, :, :, None]
-        J = len(scenario.outcomes)
-        counts = counts.reshape(counts.shape[:4] + (3 ** J,))
-        categories, order = _present_categories(cells, cell_ids, scenario, file)
-        table = cls._from_counts_array(counts[order], categories, scenario, arms, recommendation is not None,
-                                       {c: v[order] for c, v in cost_sums.items()}, f"case table {file}")
+        categories, order = _present_categories(block.uniques, block.codes, scenario, file)
+        arms: tuple = (0, 1) if scenario.arm is not None else (None,)
+        table = cls._from_counts_array(block.counts[order], categories, scenario, arms, scenario.aid.recommendation is not None,
+                                       {c: v[order] for c, v in block.cost_sums.items()}, f"case table {file}")
         _check_structural_zeros(table, scenario, file)
         return table
 
@@ -523,16 +498,20 @@ def _counts_columns(scenario: Scenario) -> list[str]:
     return list(dict.fromkeys(cols))
 
 
-def _check_unique_ids(ids: pd.Series, column: str, file: str) -> None:
+def _check_unique_ids(ids: pd.Series, column: str, file: str, rows: np.ndarray | None = None) -> None:
+    """Raise if a case id appears twice. ``rows``: the 0-based file row of each value (default:
+    their positions), for a check of only the rows that might hold duplicates."""
+    ids = ids.reset_index(drop=True)
     dup = ids.duplicated(keep=False).to_numpy()
     if dup.any():
-        rows = np.flatnonzero(dup)
-        first_value = ids.iloc[rows[0]]
-        same = np.flatnonzero((ids == first_value).to_numpy())
+        at = np.arange(len(ids)) if rows is None else np.asarray(rows)
+        first = int(np.flatnonzero(dup)[0])
+        first_value = ids.iloc[first]
+        same = at[np.flatnonzero((ids == first_value).to_numpy())]
         n_values = int(ids[dup].nunique())
         raise InputError(
             f"{file}: column {column!r} must identify each case once; {n_values} values appear more than once "
-            f"in {len(rows)} rows (first: {first_value!r} at rows {same[0] + 1} and {same[1] + 1})."
+            f"in {int(dup.sum())} rows (first: {first_value!r} at rows {same[0] + 1} and {same[1] + 1})."
         )
 
 
@@ -582,18 +561,20 @@ def _level_codes(series: pd.Series, scenario: Scenario, column: str, file: str) 
     return level
 
 
-def _present_categories(cells: Sequence[CodedColumn], cell_ids: np.ndarray, scenario: Scenario,
+def _present_categories(uniques: Sequence[list], codes: np.ndarray, scenario: Scenario,
                         file: str) -> tuple[dict, np.ndarray]:
     """Categories of each cell column among the cells present, and the order that sorts the
-    cells by them (category order, first column slowest)."""
-    parts = np.unravel_index(cell_ids, [c.size for c in cells])
+    cells by them (category order, first column slowest). ``codes[:, k]`` points into
+    ``uniques[k]``."""
     categories, positions = {}, []
-    for name, coded, raw in zip(scenario.cell_columns, cells, parts):
+    for k, name in enumerate(scenario.cell_columns):
+        raw = codes[:, k]
+        coded = CodedColumn(np.empty(0, dtype=np.int64), 0, list(uniques[k]))
         cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file)
         pos = lookup[raw]
         categories[name] = (cats, pos)
         positions.append(pos)
-    order = np.lexsort(positions[::-1]) if positions else np.arange(len(cell_ids))
+    order = np.lexsort(positions[::-1]) if positions else np.arange(len(codes))
     categories = {name: (cats, pos[order]) for name, (cats, pos) in categories.items()}
     return categories, order
 
@@ -617,6 +598,89 @@ def _check_structural_zeros(table: CellTable, scenario: Scenario, file: str) -> 
                 f"{file}: outcome {o.key!r} is declared impossible from level {scenario.levels[o.impossible_from].value!r} "
                 f"on (impossible_from in {scenario.file}), but the data hold {ev} such events there."
             )
+
+
+@dataclass(frozen=True)
+class BlockCounts:
+    """Counts of a block of case rows by cell (before the cells are ordered).
+
+    Attributes
+    ----------
+    uniques : list of list
+        For each cell column, the values that ``codes`` point into.
+    codes : ndarray of shape (n_present, n_cell_columns)
+        Each present cell's value of each cell column, as positions in ``uniques``.
+    counts : ndarray of shape (n_present, A, L, R, 3**J)
+        Cases per cell x arm x decision level x recommended level (R = 1 without a
+        recommendation column) x joint outcome state.
+    cost_sums : dict of str to ndarray of shape (n_present,)
+        Sum of each cost column per cell.
+    observed_any : ndarray of shape (J,)
+        Whether each outcome kind was observed in some row.
+    rows : int
+        Case rows counted.
+    """
+
+    uniques: list
+    codes: np.ndarray
+    counts: np.ndarray
+    cost_sums: Mapping[str, np.ndarray]
+    observed_any: np.ndarray
+    rows: int
+
+
+def count_block(frame: pd.DataFrame, scenario: Scenario, file: str, whole: bool = True) -> BlockCounts:
+    """Validate and count one block of case rows (the whole table, or one block of a stream).
+
+    With ``whole`` (the table is this one block) duplicate case ids and outcome columns empty
+    in every row are errors here; a stream checks both over all its blocks instead.
+    """
+    typed = frame.attrs.get("format") == "parquet"
+    require_columns(frame.columns, _case_columns(scenario), file, f"named in {scenario.file}")
+    if whole and len(frame) == 0:
+        raise InputError(f"{file}: the case table has no rows.")
+    if whole and scenario.case_id is not None:
+        _check_unique_ids(frame[scenario.case_id], scenario.case_id, file)
+
+    cells = [code_column(frame[c], c, file, "cell column") for c in scenario.cell_columns]
+    columns = list(cells)
+    if scenario.arm is not None:
+        arm = binary_states(frame[scenario.arm], scenario.arm, file, allow_missing=False, typed=typed) - 1
+        columns.append(CodedColumn(arm, 0, [0, 1]))
+    decision = code_column(frame[scenario.decision], scenario.decision, file)
+    columns.append(decision)
+    recommendation = None
+    if scenario.aid.recommendation is not None:
+        recommendation = code_column(frame[scenario.aid.recommendation], scenario.aid.recommendation, file)
+        columns.append(recommendation)
+    observed_any = np.zeros(len(scenario.outcomes), dtype=bool)
+    for j, outcome in enumerate(scenario.outcomes):
+        states = binary_states(frame[outcome.column], outcome.column, file, allow_missing=True, typed=typed)
+        observed_any[j] = states.any()
+        if whole and not observed_any[j]:
+            raise InputError(f"{file}: outcome column {outcome.column!r} ({outcome.label}) is empty in every row; nothing can be estimated for it.")
+        columns.append(CodedColumn(states, 0, [None, 0, 1]))
+    costs_raw = {col: _cost_values(frame[col], col, file) for col in scenario.cost_columns}
+    J = len(scenario.outcomes)
+    if len(frame) == 0:
+        shape = (0, 2 if scenario.arm is not None else 1, len(scenario.levels),
+                 len(scenario.levels) if recommendation is not None else 1, 3 ** J)
+        return BlockCounts([c.uniques for c in cells], np.zeros((0, len(cells)), dtype=np.int64),
+                           np.zeros(shape, dtype=np.int64), {c: np.zeros(0) for c in costs_raw}, observed_any, 0)
+
+    counts, cell_ids, cost_sums = aggregate_codes(columns, len(cells), costs_raw)
+    # counts: (cells present, [arm], decision codes, [recommendation codes], 3, ..., 3)
+    if scenario.arm is None:
+        counts = counts[:, None]
+    axis = 2
+    counts = _to_levels(counts, axis, decision, scenario, scenario.decision, frame, file)
+    if recommendation is not None:
+        counts = _to_levels(counts, axis + 1, recommendation, scenario, scenario.aid.recommendation, frame, file)
+    else:
+        counts = counts[:, :, :, None]
+    counts = counts.reshape(counts.shape[:4] + (3 ** J,))
+    codes = np.stack(np.unravel_index(cell_ids, [c.size for c in cells]), axis=1).astype(np.int64)
+    return BlockCounts([c.uniques for c in cells], codes, counts, cost_sums, observed_any, len(frame))
 
 
 def aggregate_codes(
@@ -673,13 +737,17 @@ def aggregate_codes(
     for start in range(0, n, chunk_rows):
         stop = min(n, start + chunk_rows)
         key = np.zeros(stop - start, dtype=np.int64)
-        cell_key = None
-        for i, (col, size) in enumerate(zip(columns, sizes)):
-            if i:
-                key *= size
-            col.add_to(key, start, stop)
-            if i == n_cell_columns - 1 and cost_values:
-                cell_key = key.copy()
+        cell_key = np.empty(stop - start, dtype=np.int64) if cost_values else None
+        # Horner's scheme in cache-sized steps: each step's key stays in cache across the columns
+        for step in range(start, stop, KEY_STEP):
+            end = min(stop, step + KEY_STEP)
+            part = key[step - start:end - start]
+            for i, (col, size) in enumerate(zip(columns, sizes)):
+                if i:
+                    part *= size
+                col.add_to(part, step, end)
+                if i == n_cell_columns - 1 and cell_key is not None:
+                    cell_key[step - start:end - start] = part
         if dense:
             acc += np.bincount(key, minlength=space)
             for c, values in cost_values.items():
@@ -711,8 +779,13 @@ def aggregate_codes(
     return counts.reshape((len(present),) + tuple(inner_sizes)), present, cost_sums
 
 
-def load_cell_table(scenario: Scenario) -> CellTable:
-    """The cell table of a scenario: read its case or counts table, or run its simulator."""
+def load_cell_table(scenario: Scenario, progress: bool | None = None) -> CellTable:
+    """The cell table of a scenario: read its case or counts table, or run its simulator.
+
+    A case table file is read in blocks (:func:`policy.stream.stream_cell_table`), with a
+    progress bar when ``progress`` (None: when standard error is a terminal and the file is
+    large).
+    """
     kind = scenario.data.kind
     if kind == "simulate":
         from .demo import simulate_cases
@@ -720,8 +793,11 @@ def load_cell_table(scenario: Scenario) -> CellTable:
         frame, _ = simulate_cases(scenario.data.simulate, seed=scenario.seed)
         return CellTable.from_cases(frame, scenario, file=f"simulated case table ({scenario.data.simulate:,} cases)")
     if kind == "case_table":
-        frame = read_table(scenario.data.path, _case_columns(scenario), f"case table ({scenario.file} [data] case_table)")
-        return CellTable.from_cases(frame, scenario)
+        from .stream import stream_cell_table
+
+        # read in blocks (policy.stream): memory bounded by the cells, identical to reading it whole
+        return stream_cell_table(scenario.data.path, scenario, f"case table ({scenario.file} [data] case_table)",
+                                 progress=progress)
     if kind == "counts_table":
         frame = read_table(scenario.data.path, _counts_columns(scenario), f"counts table ({scenario.file} [data] counts_table)")
         return CellTable.from_counts(frame, scenario)

@@ -1,7 +1,8 @@
 """The command line: parse, call one library function, write its files, print a summary.
 
 No numerics live here. Exit codes: 0 success, 2 bad input, 3 constraints that cannot all hold,
-4 solver trouble, 1 anything unexpected.
+4 solver trouble, 5 tasks that could not be run to the end where they were sent (--run-on),
+1 anything unexpected.
 """
 
 from __future__ import annotations
@@ -66,6 +67,10 @@ OutcomesOption = typer.Option(None, "--outcomes", help="'model' or 'cases' (defa
 IntervalOption = typer.Option(None, "--interval", help="Coverage of the intervals (default: [uncertainty] interval, 0.95).")
 WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: every core); the output does not depend on it.")
 ProgressOption = typer.Option(True, "--progress/--no-progress", help="Show progress bars.")
+RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: here (this process), local or local:N "
+                           "(a Dask cluster of N worker processes on this machine), or a Dask scheduler address such as "
+                           "tcp://10.0.0.5:8786. Results are the same wherever they run. Dask is an optional extra: "
+                           'pip install "policy-release-rules[distributed]".')
 LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
@@ -372,6 +377,7 @@ def sweep(
     interval: Optional[float] = IntervalOption,
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
+    run_on: Optional[str] = RunOnOption,
 ):
     """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
@@ -389,13 +395,14 @@ def sweep(
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
         raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
-    result = sweep_scenario(
-        sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
-        bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-        outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
-        constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
-        vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
-        interval=interval, outcomes=outcomes, workers=workers, progress=progress)
+    with _runner(run_on, workers) as runner:
+        result = sweep_scenario(
+            sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+            bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
+            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+            constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
+            vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
+            interval=interval, outcomes=outcomes, workers=workers, progress=progress, runner=runner)
     files = result.output_files(formats, table_points)
     drawn = [name for name, content in files.items() if callable(content)]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
@@ -460,13 +467,15 @@ def compare(
     interval: Optional[float] = IntervalOption,
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
+    run_on: Optional[str] = RunOnOption,
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from .compare import compare as run_compare
     from .outputs import write_outputs
 
-    comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                             outcomes=outcomes, workers=workers, progress=progress)
+    with _runner(run_on, workers) as runner:
+        comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
@@ -487,6 +496,70 @@ def compare(
         console.print(f"Note: {note}")
     show_cautions()
     show_written(paths)
+
+
+def _runner(run_on: Optional[str], workers: Optional[int]):
+    """The runner of --run-on (None: the command's own default, e.g. --workers)."""
+    from contextlib import nullcontext
+
+    from .distributed import run_on as runner_for
+
+    if run_on is None:
+        return nullcontext(None)
+    if workers is not None:
+        raise InputError("give --workers (processes of this machine) or --run-on, not both.")
+    return runner_for(run_on)
+
+
+@command
+def batch(
+    folder: Path = typer.Argument(..., help="Folder of scenario files (*.toml), e.g. one per county."),
+    out: Path = OutOption,
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    run_on: Optional[str] = typer.Option("here", "--run-on", help=RunOnOption.help),
+    progress: bool = ProgressOption,
+):
+    """Solve every scenario of a folder as independent tasks; write each one's files in its own folder and one summary table.
+
+    A scenario that fails is reported with its reason (in the summary and here) and the others go
+    on; the exit code is then 2, with the files of the scenarios that were done written.
+    """
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    from .batch import SUMMARY_FILE, run_batch, scenario_files
+    from .distributed import describe_where, run_on as runner_for
+    from .outputs import write_outputs
+
+    n = len(scenario_files(folder))
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+                   console=err_console, transient=True, disable=not progress)
+    with runner_for(run_on) as runner, bar:
+        task = bar.add_task("batch: scenarios", total=n)
+        result = run_batch(folder, runner, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+                           on_done=lambda name: bar.update(task, advance=1, description=f"batch: {name} finished"),
+                           where=describe_where(run_on))
+    paths = write_outputs(out, result.output_files())
+    summary = result.summary()
+    table = Table(title=f"{len(result.runs)} scenarios ({result.where})")
+    for col in ("scenario", "status", "cases", "cost per 1,000 cases", "constrained price per 1,000", "outputs or reason"):
+        table.add_column(col, justify="right" if col not in ("scenario", "status", "outputs or reason") else "left")
+    for _, row in summary.iterrows():
+        done = row["status"] == "done"
+        price = row.get("constrained_price_per_1000_cases", float("nan"))
+        table.add_row(row["scenario"], row["status"], f"{row['cases']:,.0f}" if done else "",
+                      f"{row['cost_per_1000_cases']:,.0f} {row['unit']}" if done else "",
+                      f"{price:,.0f}" if done and price == price else "",
+                      row["outputs"] if done else row["reason"])
+    console.print(table)
+    for r in result.failed:
+        err_console.print(f"failed: {r.file}: {r.reason}", style="bold red")
+    show_assumptions("rule")
+    show_cautions()
+    console.print(f"Wrote {SUMMARY_FILE} and batch.json to {out}, and each done scenario's files in a folder of its name "
+                  f"({len(paths)} files).")
+    if result.failed:
+        raise typer.Exit(2)
 
 
 def main(argv: Optional[List[str]] = None) -> int:

@@ -82,6 +82,11 @@ class ConstrainedSolver:
         state["_problem"] = None
         return state
 
+    def start_batch(self) -> None:
+        """Start the next solve cold: a chunk of replicates then gives the same bits in any process."""
+        if self._problem is not None:
+            self._problem.forget_basis()
+
     def __call__(self, risk_levels: RiskLevels, costs: Costs) -> np.ndarray:
         from .constrained import ConstrainedProblem
 
@@ -484,6 +489,8 @@ class ComparisonStatistic:
         deltas = [best]
         failed = np.zeros((b, len(self.solvers)), dtype=bool)
         for k, solver in enumerate(self.solvers):
+            if hasattr(solver, "start_batch"):
+                solver.start_batch()
             solved = np.full((b, n, L), np.nan)
             for i in range(b):
                 try:

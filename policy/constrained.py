@@ -511,6 +511,19 @@ class ConstrainedProblem:
         self._dirty = {"cost": True, "bounds": True, "model": True}
         return self
 
+    def forget_basis(self) -> "ConstrainedProblem":
+        """Make the next solve start cold, as on a newly built problem.
+
+        Warm re-solves depend on the basis the last solve left; a degenerate LP has several,
+        and two paths to the same optimum may differ in the last bits. Tasks that may run in any
+        process (bootstrap chunks, blocks of sweep points) call this first, so their results
+        depend only on their own inputs.
+        """
+        self._highs = None
+        self._model = None
+        self._dirty = {"cost": True, "bounds": True, "model": True}
+        return self
+
     def current_costs(self) -> Costs:
         """The cost weights in force, as a :class:`~policy.costs.Costs`."""
         return replace(self.base_costs, decision=self.base_costs.decision * self.decision_scale, outcome=self.outcome_costs.copy())

@@ -30,3 +30,10 @@ class SolverError(PolicyError):
     """A solver failed or returned a status other than optimal."""
 
     exit_code = 4
+
+
+class RunError(PolicyError):
+    """Tasks could not be run to the end where they were sent (a cluster unreachable, a worker
+    that died every time it ran a task); nothing is written."""
+
+    exit_code = 5

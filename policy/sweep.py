@@ -1538,7 +1538,8 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         Bootstrap bands (one ratio, data with counts): override the scenario's ``[uncertainty]``
         settings and ``[scenario] seed``; 0 replicates: no bands.
     workers, runner : optional
-        How the replicates run (:func:`policy.uncertainty.bootstrap`); the output does not depend on them.
+        How the replicates run (:func:`policy.uncertainty.bootstrap`); a ``runner`` also runs the blocks
+        of constrained re-solves (default: in this process). The output does not depend on them.
     progress : bool
         Show progress bars (rich, on standard error) for the bootstrap and the constrained re-solves.
     on_step : callable, optional
@@ -1617,7 +1618,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                         on_point(done, total)
 
                 constrained = constrained_sweep(rl, costs, axes[0], grid, specs, settings=lp, vary=vary, values=vary_values,
-                                                removal=removal, scale=scale, unconstrained=s, on_point=point)
+                                                removal=removal, scale=scale, unconstrained=s, on_point=point, runner=runner)
             step("constrained re-solves")
         bands = None
         if u is not None and u.replicates > 0:

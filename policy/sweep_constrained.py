@@ -32,8 +32,12 @@ from .errors import InfeasibleError, InputError
 from .rules import SPLIT_TOLERANCE
 from .strata import RiskLevels
 from .sweep import OneRatioSweep, RatioAxis, sweep_one
+from .uncertainty import InProcess
 
-__all__ = ["ConstrainedSweep", "constrained_sweep", "ratio_grid"]
+__all__ = ["ConstrainedSweep", "constrained_sweep", "ratio_grid", "solve_sweep_block", "SWEEP_BLOCK"]
+
+#: grid points per task of a constrained sweep (fixed, so results do not depend on the workers)
+SWEEP_BLOCK = 10
 
 
 def ratio_grid(lo: float, hi: float, points: int, scale: str) -> np.ndarray:
@@ -179,7 +183,7 @@ def constrained_sweep(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, ra
                       settings: LPSettings | None = None, vary: str | int | None = None,
                       values: Sequence[float] | None = None, removal: bool = True, scale: str = "linear",
                       unconstrained: OneRatioSweep | None = None,
-                      on_point: Callable[[int, int], None] | None = None) -> ConstrainedSweep:
+                      on_point: Callable[[int, int], None] | None = None, runner=None) -> ConstrainedSweep:
     """Re-solve the constrained optimum along a grid of ratios, re-using one compiled problem.
 
     Parameters
@@ -206,6 +210,9 @@ def constrained_sweep(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, ra
         The exact unconstrained sweep on the same rule columns (computed if not given).
     on_point : callable, optional
         Called with (points done, points in all) after each grid point.
+    runner : TaskRunner, optional
+        Where the blocks of :data:`SWEEP_BLOCK` grid points run (default: in this process;
+        :mod:`policy.distributed`). The result does not depend on it.
     """
     ratios = np.asarray(ratios, dtype=np.float64)
     if ratios.ndim != 1 or len(ratios) == 0 or (ratios < 0).any() or not np.isfinite(ratios).all():
@@ -235,40 +242,91 @@ def constrained_sweep(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, ra
     split = np.zeros((B, P), dtype=np.int64)
     dual = np.full((B, P, K), np.nan)
     removed = np.full((B, P, K), np.nan)
-    weights = np.bincount(problem.index, weights=risk_levels.weights, minlength=problem.n_rule_cells)
-    total = weights.sum()
-    outcome = np.asarray(costs.outcome, dtype=np.float64).copy()
-    blind = np.array([s.kind == "group_blind" for s in specs])
-    done = 0
-    for b, value in enumerate(bounds):
-        if k_vary is not None:
-            problem.set_bounds({k_vary + 1: float(value)})
-        for i, r in enumerate(ratios):
-            outcome[axis.outcome_index] = r * axis.reference_cost
-            problem.set_costs(outcome_costs=outcome)
-            try:
-                lp = problem.solve_lp()
-            except InfeasibleError:
-                done += 1
-                if on_point:
-                    on_point(done, B * P)
+    # fixed blocks of grid points (bound rows, then ratios), each solved warm within itself and
+    # cold at its start: the same bits whether the blocks run here, in other processes or on a cluster
+    points = [(b, i) for b in range(B) for i in range(P)]
+    blocks = [tuple(points[k:k + SWEEP_BLOCK]) for k in range(0, len(points), SWEEP_BLOCK)]
+    shared = _SweepShared(risk_levels, costs, specs, problem.columns, problem.settings, axis.outcome_index,
+                          axis.reference_cost, ratios, bounds, k_vary, removal, problem)
+    done = [0]
+
+    def finished(k: int) -> None:
+        for _ in blocks[k]:
+            done[0] += 1
+            if on_point:
+                on_point(done[0], B * P)
+
+    results = (runner or InProcess()).map(solve_sweep_block, shared, blocks, finished)
+    for block, result in zip(blocks, results):
+        for (b, i), point in zip(block, result):
+            if point is None:
                 continue
             feasible[b, i] = True
-            cost[b, i] = lp.cost_per_case
-            shares[b, i] = weights @ lp.delta / total
-            split[b, i] = int((lp.delta.max(axis=1) <= 1 - SPLIT_TOLERANCE).sum())
-            dual[b, i] = np.where(blind, np.nan, lp.saving)
-            if removal:
-                for k in range(K):
-                    # fewer constraints only widen the feasible set: this re-solve is feasible
-                    problem.set_active(k + 1, False)
-                    try:
-                        removed[b, i, k] = max(lp.cost_per_case - problem.solve_lp(lenient_ties=False).cost_per_case, 0.0)
-                    finally:
-                        problem.set_active(k + 1, True)
-            done += 1
-            if on_point:
-                on_point(done, B * P)
+            cost[b, i], shares[b, i], split[b, i], dual[b, i], removed[b, i] = point
     return ConstrainedSweep(axis, ratios, scale, specs, varied, bounds, risk_levels.level_values,
                             risk_levels.level_labels, feasible, cost, opt, shares, split, dual, removed, costs.unit,
                             problem.settings.label)
+
+
+@dataclass
+class _SweepShared:
+    """What every block of a constrained sweep needs (sent once to each worker)."""
+
+    risk_levels: RiskLevels
+    costs: Costs
+    specs: tuple
+    columns: tuple
+    settings: LPSettings
+    outcome_index: int
+    reference_cost: float
+    ratios: np.ndarray
+    bounds: np.ndarray
+    k_vary: int | None
+    removal: bool
+    problem: ConstrainedProblem | None = None
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state["problem"] = None  # each process builds its own (a loaded solver does not travel)
+        return state
+
+
+def solve_sweep_block(shared: _SweepShared, block: tuple) -> list:
+    """The pure task of a constrained sweep: solve one block of grid points ``(b, i)`` in order.
+
+    The process's problem is built once and starts each block cold
+    (:meth:`~policy.constrained.ConstrainedProblem.forget_basis`). Returns per point None
+    (infeasible) or (cost per case, shares (L,), split rule cells, duals (K,), savings if removed (K,)).
+    """
+    if shared.problem is None:
+        shared.problem = ConstrainedProblem(shared.risk_levels, shared.costs, shared.specs, shared.columns, shared.settings)
+    problem = shared.problem.forget_basis()
+    K = len(problem.specs)
+    weights = np.bincount(problem.index, weights=shared.risk_levels.weights, minlength=problem.n_rule_cells)
+    total = weights.sum()
+    blind = np.array([s.kind == "group_blind" for s in problem.specs])
+    outcome = np.asarray(shared.costs.outcome, dtype=np.float64).copy()
+    out: list = []
+    for b, i in block:
+        if shared.k_vary is not None:
+            problem.set_bounds({shared.k_vary + 1: float(shared.bounds[b])})
+        outcome[shared.outcome_index] = shared.ratios[i] * shared.reference_cost
+        problem.set_costs(outcome_costs=outcome)
+        try:
+            lp = problem.solve_lp()
+        except InfeasibleError:
+            out.append(None)
+            continue
+        removed = np.full(K, np.nan)
+        if shared.removal:
+            for k in range(K):
+                # fewer constraints only widen the feasible set: this re-solve is feasible
+                problem.set_active(k + 1, False)
+                try:
+                    removed[k] = max(lp.cost_per_case - problem.solve_lp(lenient_ties=False).cost_per_case, 0.0)
+                finally:
+                    problem.set_active(k + 1, True)
+        out.append((lp.cost_per_case, weights @ lp.delta / total,
+                    int((lp.delta.max(axis=1) <= 1 - SPLIT_TOLERANCE).sum()),
+                    np.where(blind, np.nan, lp.saving), removed))
+    return out

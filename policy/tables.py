@@ -6,15 +6,35 @@ Rows are counted from 1 after the header line, in the order of the file.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
+from contextvars import ContextVar
 from pathlib import Path
-from typing import Iterable, Sequence
+from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
 
 from .errors import InputError
 
-__all__ = ["read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns"]
+__all__ = ["read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns", "rows_from", "row_number"]
+
+#: rows before the block being checked (a table read in blocks numbers its rows from the file's start)
+_ROWS_BEFORE: ContextVar[int] = ContextVar("rows_before", default=0)
+
+
+@contextmanager
+def rows_from(rows_before: int) -> Iterator[None]:
+    """Within this context, messages number rows as if ``rows_before`` rows came first."""
+    token = _ROWS_BEFORE.set(int(rows_before))
+    try:
+        yield
+    finally:
+        _ROWS_BEFORE.reset(token)
+
+
+def row_number(position: int) -> int:
+    """1-based row number in the file of a 0-based position in the block being checked."""
+    return int(position) + 1 + _ROWS_BEFORE.get()
 
 
 def first_bad_utf8(path: Path, chunk: int = 1 << 20) -> tuple[int, int]:
@@ -118,7 +138,7 @@ def describe_bad(values: pd.Series | np.ndarray, bad: np.ndarray, limit: int = 5
     vals = pd.unique(pd.Series(np.asarray(values)[rows[:10_000]], dtype=object))
     shown = sorted((repr(v.item() if isinstance(v, np.generic) else v) for v in vals), key=str)
     text = "{" + ", ".join(shown[:limit]) + (", ..." if len(shown) > limit else "") + "}"
-    return text, len(rows), int(rows[0]) + 1
+    return text, len(rows), row_number(rows[0])
 
 
 def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool, typed: bool = False) -> np.ndarray:
@@ -139,19 +159,21 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
             missing = None
     elif pd.api.types.is_integer_dtype(dtype) or pd.api.types.is_float_dtype(dtype):
         arr = series.to_numpy(dtype=np.float64, na_value=np.nan) if series.hasnans or pd.api.types.is_float_dtype(dtype) else series.to_numpy()
-        if arr.dtype.kind == "f":
+        states = _numeric_states(arr)
+        if states is not None:  # every value 0, 1 or missing (the usual case): no masks needed
+            if not allow_missing and arr.dtype.kind == "f":
+                missing = states == 0
+            else:
+                missing = None
+        elif arr.dtype.kind == "f":
             missing = np.isnan(arr)
             bad = ~missing & (arr != 0) & (arr != 1)
         else:
             missing = None
             bad = (arr != 0) & (arr != 1)
-        if bad.any():
+        if states is None:
             text, n, first = describe_bad(arr, bad)
             raise InputError(f"{file}: column {column!r} must be {expected}; got {text} in {n} rows (first: row {first}).")
-        if missing is not None:
-            states = np.where(missing, 0, arr + 1).astype(np.int8)
-        else:
-            states = arr.astype(np.int8) + 1
     else:
         if typed:
             raise InputError(f"{file}: column {column!r} has type {dtype}; expected integer or boolean 0/1 (null for missing).")
@@ -167,5 +189,32 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
         states = np.where(missing, 0, np.where(one.to_numpy(dtype=bool), 2, 1)).astype(np.int8)
     if not allow_missing and missing is not None and missing.any():
         rows = np.flatnonzero(missing)
-        raise InputError(f"{file}: column {column!r} must be {expected} in every row; {len(rows)} rows are empty (first: row {rows[0] + 1}).")
+        raise InputError(f"{file}: column {column!r} must be {expected} in every row; {len(rows)} rows are empty (first: row {row_number(rows[0])}).")
     return states
+
+
+#: rows per step of :func:`_numeric_states` (its temporaries stay in the processor's cache)
+_STEP = 1 << 14
+
+
+def _numeric_states(arr: np.ndarray) -> np.ndarray | None:
+    """States (0 missing, 1 zero, 2 one) of a numeric 0/1 array (NaN = missing), or None if it
+    holds any other value. Done in cache-sized steps: the column is read once."""
+    out = np.empty(len(arr), dtype=np.int8)
+    if arr.dtype.kind == "f":
+        for start in range(0, len(arr), _STEP):
+            a = arr[start:start + _STEP]
+            o = out[start:start + _STEP]
+            one = a == 1
+            np.add(a == 0, one, out=o, casting="unsafe")
+            o += one
+            if not (o.astype(bool) | np.isnan(a)).all():
+                return None
+        return out
+    unsigned = arr.view(np.dtype(f"u{arr.dtype.itemsize}")) if arr.dtype.kind == "i" else arr
+    for start in range(0, len(arr), _STEP):
+        a = unsigned[start:start + _STEP]
+        if (a > 1).any():  # negative numbers are large as unsigned
+            return None
+        np.add(a, 1, out=out[start:start + _STEP], casting="unsafe")
+    return out

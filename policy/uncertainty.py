@@ -43,7 +43,7 @@ replicates are computed in fixed chunks of :data:`CHUNK` whatever the number of 
 with single-threaded BLAS (:func:`one_blas_thread`), so the same seed gives the same bits on one
 core or many. How chunks are run is isolated behind
 :class:`TaskRunner` (``map(fn, shared, tasks)``): :class:`InProcess` and :class:`LocalProcesses`
-here; a distributed runner (e.g. Dask) only has to implement the same method. The task function
+here, :class:`policy.distributed.DaskRunner` on a Dask cluster (``--run-on``). The task function
 :func:`run_chunk` is pure and picklable.
 
 Intervals are bootstrap percentile intervals (Efron and Tibshirani 1993, ch. 13): the
@@ -420,9 +420,12 @@ class _Chunk:
 
 
 def run_chunk(shared: tuple, task: _Chunk) -> dict[str, np.ndarray]:
-    """The pure task: resample one chunk of replicates and apply the statistic."""
+    """The pure task: resample one chunk of replicates and apply the statistic (a chunk without
+    seeds applies it to the data themselves: the point estimates, run beside the replicates)."""
     resampler, statistic = shared
     with one_blas_thread():
+        if not task.seeds:
+            return {k: np.asarray(v) for k, v in statistic(resampler.original).items()}
         batch = resampler.draw(task.seeds, np.arange(task.first, task.first + len(task.seeds)))
         return {k: np.asarray(v) for k, v in statistic(batch).items()}
 
@@ -549,18 +552,19 @@ def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, se
     root = np.random.SeedSequence(seed)
     seed_used = int(root.entropy)
     resampler = CountResampler(cells, method, outcome_model)
-    with one_blas_thread():
-        point = {k: np.asarray(v)[0] for k, v in statistic(resampler.original).items()}
     if replicates == 0:
+        point = {k: v[0] for k, v in run_chunk((resampler, statistic), _Chunk(-1, ())).items()}
         empty = {k: np.empty((0,) + v.shape) for k, v in point.items()}
         return BootstrapResult(point, empty, 0, seed_used, method, level, resampler.joint, outcomes)
     children = root.spawn(replicates)
-    tasks = [_Chunk(i, tuple(children[i:i + CHUNK])) for i in range(0, replicates, CHUNK)]
-    runner = runner or make_runner(workers, len(tasks))
+    # the point estimates are one more task, first, so that they run beside the replicates
+    tasks = [_Chunk(-1, ())] + [_Chunk(i, tuple(children[i:i + CHUNK])) for i in range(0, replicates, CHUNK)]
+    runner = runner or make_runner(workers, len(tasks) - 1)
     with _progress(progress, description, replicates) as advance:
         parts = runner.map(run_chunk, (resampler, statistic), tasks,
                            None if advance is None else (lambda i: advance(len(tasks[i].seeds))))
-    reps = {k: np.concatenate([p[k] for p in parts], axis=0) for k in point}
+    point = {k: np.asarray(v)[0] for k, v in parts[0].items()}
+    reps = {k: np.concatenate([p[k] for p in parts[1:]], axis=0) for k in point}
     return BootstrapResult(point, reps, replicates, seed_used, method, level, resampler.joint, outcomes)
 
 

@@ -1,0 +1,145 @@
+"""Streaming aggregation of a 20,000,000-row Parquet case table against reading it with pyarrow.
+
+Prints figures measured in one run (the machines are shared and noisy; absolute times vary):
+
+- counting a 20,000,000-row case table of the demo's shape (15 columns the demo scenario uses:
+  seven text columns, integer and nullable outcome columns, a cost column and text case ids
+  such as ``QC-12345678``) into cells with ``policy.stream.stream_cell_table`` (what
+  ``load_cell_table`` does for a file): peak memory of the process (target: at most 1.5 GB) and
+  time against the reference (target: at most 1.5x);
+- the reference: reading the same columns with pyarrow alone, ``pyarrow.parquet.read_table``,
+  text columns dictionary-encoded as the tool reads them (the stricter reference: a plain read,
+  reported too, decodes every text value and is slower);
+- the same without the case-id check (a scenario without ``case_id``), against reading the same
+  columns without the ids (reported).
+
+Every measurement runs in a fresh process (peak memory is its ``ru_maxrss``), the tool and the
+references interleaved, three rounds; medians are compared.
+
+Usage: python benchmarks/bench_stream.py [--rows N] [--rounds R] [--path FILE]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+SCENARIO = ROOT / "scenarios" / "demo.toml"
+
+
+def write_table(path: Path, rows: int) -> None:
+    """``rows`` cases: one simulated million repeated, with new text ids in every row group."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from policy.demo import simulate_cases
+
+    base, _ = simulate_cases(1_000_000, seed=3)
+    table = pa.Table.from_pandas(base.drop(columns=["case_id"]), preserve_index=False)
+    schema = table.schema.insert(0, pa.field("case_id", pa.large_string()))
+    with pq.ParquetWriter(path, schema) as writer:
+        for start in range(0, rows, len(base)):
+            n = min(len(base), rows - start)
+            ids = pa.array(np.char.add("QC-", np.arange(start, start + n).astype("U9")), type=pa.large_string())
+            writer.write_table(table.slice(0, n).add_column(0, "case_id", ids))
+
+
+TOOL = """
+import json, resource, sys, time
+from dataclasses import replace
+sys.path.insert(0, {root!r})
+from policy import load_scenario
+from policy.stream import stream_cell_table
+scenario = load_scenario({scenario!r})
+if not {ids}:
+    scenario = replace(scenario, case_id=None)
+t = time.perf_counter()
+table = stream_cell_table({path!r}, scenario, progress=False)
+seconds = time.perf_counter() - t
+print(json.dumps({{"seconds": seconds, "peak_mb": {peak}, "cases": table.n_cases, "cells": table.n_cells}}))
+"""
+
+REFERENCE = """
+import json, resource, sys, time
+sys.path.insert(0, {root!r})
+import pyarrow as pa, pyarrow.parquet as pq
+from policy import load_scenario
+from policy.cells import _case_columns
+columns = [c for c in _case_columns(load_scenario({scenario!r})) if {ids} or c != "case_id"]
+schema = pq.read_schema({path!r})
+text = [c for c in columns if c != "case_id" and (pa.types.is_string(schema.field(c).type) or pa.types.is_large_string(schema.field(c).type))]
+t = time.perf_counter()
+table = pq.read_table({path!r}, columns=columns, read_dictionary=text if {dictionary} else None)
+seconds = time.perf_counter() - t
+print(json.dumps({{"seconds": seconds, "peak_mb": {peak}, "cases": table.num_rows}}))
+"""
+
+
+#: the process's own peak memory: VmHWM starts afresh at exec (ru_maxrss would keep the high-water
+#: mark of the forked copy of this benchmark's process, which holds the simulated table)
+PEAK = ("(lambda h: int(h[0].split()[1]) / 1024 if h else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)"
+        "([l for l in open('/proc/self/status') if l.startswith('VmHWM:')])")
+
+
+def measure(code: str) -> dict:
+    done = subprocess.run([sys.executable, "-c", textwrap.dedent(code)], capture_output=True, text=True, check=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--rows", type=int, default=20_000_000)
+    ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--path", type=Path, default=None, help="an existing table of the demo's shape (else one is written)")
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        path = args.path or Path(tmp) / "cases.parquet"
+        if args.path is None:
+            t = time.perf_counter()
+            write_table(path, args.rows)
+            print(f"wrote {args.rows:,} rows ({path.stat().st_size / 1e6:.0f} MB Parquet) in {time.perf_counter() - t:.0f} s")
+        fill = dict(root=str(ROOT), scenario=str(SCENARIO), path=str(path), peak=PEAK)
+        runs: dict[str, list] = {}
+        load = os.getloadavg()
+        for _ in range(args.rounds):
+            for name, code in (
+                ("tool", TOOL.format(ids=True, **fill)),
+                ("pyarrow, text as dictionaries", REFERENCE.format(ids=True, dictionary=True, **fill)),
+                ("pyarrow, plain", REFERENCE.format(ids=True, dictionary=False, **fill)),
+                ("tool, no case ids", TOOL.format(ids=False, **fill)),
+                ("pyarrow, no case ids, dictionaries", REFERENCE.format(ids=False, dictionary=True, **fill)),
+            ):
+                runs.setdefault(name, []).append(measure(code))
+        load_after = os.getloadavg()
+
+    def med(name, key):
+        return float(np.median([r[key] for r in runs[name]]))
+
+    rows = runs["tool"][0]["cases"]
+    print(f"rows: {rows:,}; cells: {runs['tool'][0]['cells']:,}; {os.cpu_count()} cores; load average "
+          f"{load[0]:.2f} before and {load_after[0]:.2f} after the run (other jobs share the machine)")
+    for name in runs:
+        times = ", ".join(f"{r['seconds']:.2f}" for r in runs[name])
+        print(f"{name:36s} {med(name, 'seconds'):6.2f} s (runs {times})   peak {med(name, 'peak_mb'):6.0f} MB")
+    ratio = med("tool", "seconds") / med("pyarrow, text as dictionaries", "seconds")
+    print(f"tool against pyarrow (same columns, text as dictionaries): time ratio {ratio:4.2f} (target <= 1.5); "
+          f"peak memory {med('tool', 'peak_mb') / 1024:4.2f} GB (target <= 1.5 GB)")
+    print(f"tool against a plain pyarrow read: time ratio {med('tool', 'seconds') / med('pyarrow, plain', 'seconds'):4.2f} (reported)")
+    print(f"without case ids: time ratio {med('tool, no case ids', 'seconds') / med('pyarrow, no case ids, dictionaries', 'seconds'):4.2f} "
+          f"(reported); peak {med('tool, no case ids', 'peak_mb'):.0f} MB")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,143 @@
+"""Tasks on a Dask cluster (policy.distributed): the same bytes as in this process for a bootstrap
+and a constrained sweep, a worker killed mid-run, and the messages of --run-on.
+
+Each test starts its own Dask cluster of two worker processes on loopback and stops it.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import sys
+import threading
+import time
+from pathlib import Path
+
+import pytest
+
+from .conftest import SCENARIOS, run_cli
+
+distributed = pytest.importorskip("distributed")
+
+DEMO_CONSTRAINED = SCENARIOS / "demo_constrained.toml"
+
+
+@pytest.fixture
+def cluster():
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as c:
+        yield c
+
+
+def same_bytes(a: Path, b: Path) -> None:
+    names = sorted(p.name for p in a.iterdir())
+    assert names == sorted(p.name for p in b.iterdir())
+    for name in names:
+        assert (a / name).read_bytes() == (b / name).read_bytes(), name
+
+
+def test_bootstrap_on_a_cluster_gives_the_bytes_of_this_process(cluster, tmp_path, capsys):
+    args = ["compare", DEMO_CONSTRAINED, "--replicates", "60", "--seed", "5", "--no-progress"]
+    code, _, err = run_cli(args + ["--out", tmp_path / "here", "--run-on", "here"], capsys)
+    assert code == 0, err
+    code, _, err = run_cli(args + ["--out", tmp_path / "cluster", "--run-on", cluster.scheduler_address], capsys)
+    assert code == 0, err
+    same_bytes(tmp_path / "here", tmp_path / "cluster")
+
+
+def test_constrained_sweep_on_a_cluster_gives_the_bytes_of_this_process(cluster, tmp_path, capsys):
+    args = ["sweep", DEMO_CONSTRAINED, "--ratio", "new_offense", "--lp-points", "25", "--replicates", "30",
+            "--vary", "at most 15% held=0.12,0.15", "--no-figures", "--no-progress"]
+    code, _, err = run_cli(args + ["--out", tmp_path / "here"], capsys)
+    assert code == 0, err
+    code, _, err = run_cli(args + ["--out", tmp_path / "cluster", "--run-on", cluster.scheduler_address], capsys)
+    assert code == 0, err
+    assert (tmp_path / "here" / "sweep_constrained.csv").exists() and (tmp_path / "here" / "sweep_bands.csv").exists()
+    same_bytes(tmp_path / "here", tmp_path / "cluster")
+
+
+class Killer(threading.Thread):
+    """Kills (SIGKILL) the first worker process seen running one of the tool's tasks."""
+
+    def __init__(self, address: str, prefix: str = "policy-run_chunk"):
+        super().__init__(daemon=True)
+        self.client = distributed.Client(address)
+        self.pids = self.client.run(os.getpid)
+        self.prefix = prefix
+        self.killed = None
+        self.stop = threading.Event()
+
+    def run(self) -> None:
+        deadline = time.monotonic() + 120
+        while not self.stop.is_set() and time.monotonic() < deadline:
+            for worker, keys in self.client.processing().items():
+                if any(str(k).startswith(self.prefix) for k in keys) and worker in self.pids:
+                    os.kill(self.pids[worker], signal.SIGKILL)
+                    self.killed = worker
+                    return
+            time.sleep(0.005)
+
+    def close(self) -> None:
+        self.stop.set()
+        self.join(10)
+        self.client.close()
+
+
+def test_a_worker_killed_mid_run_and_the_run_completes_with_the_same_bytes(cluster, tmp_path, capsys):
+    args = ["compare", DEMO_CONSTRAINED, "--replicates", "100", "--seed", "9", "--no-progress"]
+    code, _, err = run_cli(args + ["--out", tmp_path / "here"], capsys)
+    assert code == 0, err
+    killer = Killer(cluster.scheduler_address)
+    killer.start()
+    try:
+        code, _, err = run_cli(args + ["--out", tmp_path / "cluster", "--run-on", cluster.scheduler_address], capsys)
+    finally:
+        killer.close()
+    assert killer.killed is not None, "no worker was killed during the run"
+    assert code == 0, err  # Dask ran the lost worker's tasks again elsewhere
+    same_bytes(tmp_path / "here", tmp_path / "cluster")
+
+
+def test_tasks_that_cannot_complete_stop_the_run_and_nothing_is_written(tmp_path, capsys):
+    import dask
+
+    # a cluster that gives up on a task the first time its worker dies
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}), \
+            distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                     dashboard_address=None) as cluster:
+        killer = Killer(cluster.scheduler_address)
+        killer.start()
+        try:
+            code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--replicates", "100", "--no-progress",
+                                    "--out", tmp_path / "out", "--run-on", cluster.scheduler_address], capsys)
+        finally:
+            killer.close()
+    assert killer.killed is not None
+    text = " ".join(err.split())
+    assert code == 5, err
+    assert "could not be completed" in text and "worker process died" in text and "nothing was written" in text
+    assert not (tmp_path / "out").exists()
+
+
+def test_run_on_messages(tmp_path, capsys, monkeypatch):
+    out = tmp_path / "out"
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--run-on", "the cloud"], capsys)
+    assert code == 2 and "expected here, local, local:N or a Dask scheduler address" in " ".join(err.split())
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--run-on", "local:0"], capsys)
+    assert code == 2 and "positive integer" in err
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--run-on", "here", "--workers", "2"], capsys)
+    assert code == 2 and "not both" in err
+    monkeypatch.setattr("policy.distributed.CONNECT_TIMEOUT", 1)
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--replicates", "5", "--run-on", "tcp://127.0.0.1:9"], capsys)
+    assert code == 5 and "could not reach a Dask scheduler" in " ".join(err.split())
+    assert not out.exists()
+
+
+def test_without_dask_the_default_works_and_the_option_says_how_to_install(tmp_path, capsys, monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import distributed now raises ImportError
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", tmp_path / "a", "--replicates", "5", "--run-on", "local:2"], capsys)
+    text = " ".join(err.split())
+    assert code == 2 and 'pip install "policy-release-rules[distributed]"' in text and 'pip install ".[distributed]"' in text
+    code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", tmp_path / "b", "--replicates", "5", "--run-on", "here",
+                            "--no-progress"], capsys)
+    assert code == 0, err
