@@ -10,7 +10,6 @@ outcome states), processed in chunks so memory stays bounded by the cell count.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -375,7 +374,7 @@ class CellTable:
         sizes = [len(categories[c]) for c in scenario.cell_columns]
         key_cells = np.ravel_multi_index(cell_codes, sizes)
         cell_ids, cell_pos = np.unique(key_cells, return_inverse=True)
-        A, L, J = len(arms), len(scenario.levels), len(scenario.outcomes)
+        A, L = len(arms), len(scenario.levels)
         n_cells = len(cell_ids)
         flat = (cell_pos * A + arm_codes) * L + level_codes
         size = n_cells * A * L

@@ -120,7 +120,7 @@ def show_written(paths) -> None:
 
 
 def _rule_table(analysis) -> Table:
-    rule, rl = analysis.rule, analysis.risk_levels
+    rule = analysis.rule
     frame = rule.to_frame()
     table = Table(title=f"{rule.name} (by {', '.join(rule.rule_cells.columns)})", show_lines=False)
     for col in rule.rule_cells.columns:

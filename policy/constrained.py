@@ -1170,7 +1170,6 @@ class ConstrainedRule:
             "solver": self.lp.solver,
             "solver_status": self.lp.status,
             "solver_iterations": self.lp.iterations,
-            "solver_seconds": self.lp.seconds,
             "most_lenient_of_ties": self.lp.lenient_pass,
         }
 

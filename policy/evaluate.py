@@ -16,7 +16,6 @@ probabilities p_jd(x) and risk-level distribution q_jr(x) (method notes, section
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Sequence
 
 import numpy as np
 import pandas as pd

@@ -27,7 +27,7 @@ follow-up data. Biometrics 41(1), 55-68. (The Mantel-Haenszel risk ratio.)
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd

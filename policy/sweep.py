@@ -977,7 +977,6 @@ def sweep_one(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, lo: float,
     M = aggregation_matrix(index, len(groups), risk_levels.weights)
     A, B = M @ base, M @ slope[0]
     env = lower_envelope(A, B)
-    L = risk_levels.n_levels
     shares, total = envelope_functions(env, weights, A, B)
     inside = total.knots[(total.knots > lo) & (total.knots < hi)]
     x = np.concatenate([[lo], inside, [hi]])

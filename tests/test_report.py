@@ -16,7 +16,7 @@ from policy.demo import simulate_cases
 from policy.pipeline import analyze
 from policy.report import build_report, json_for_script, render_report
 
-from .conftest import ROOT, SMALL_SCENARIO, run_cli, write_scenario
+from .conftest import ROOT, run_cli, write_scenario
 
 SCENARIO_FILES = sorted((ROOT / "scenarios").glob("*.toml"))
 #: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)

@@ -14,7 +14,6 @@ from policy.solve import argmin_lenient, rule_cell_costs
 def make_risk_levels(p, weights=None, groups=None, rule=("tier",), protected=("group",)):
     """RiskLevels for hand-made probabilities p of shape (n_cells, J, L)."""
     n, J, L = p.shape
-    rng = np.random.default_rng(0)
     frame = pd.DataFrame({
         "tier": pd.Categorical(np.arange(n) // 2 if groups is None else groups, ordered=True),
         "group": pd.Categorical(np.arange(n) % 2, ordered=True),

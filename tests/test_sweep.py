@@ -10,7 +10,7 @@ import pytest
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull, HalfspaceIntersection
 
-from policy.bounds import decision_shares, manski_bounds, point_bounds, robust_assumptions, sensitivity_bounds
+from policy.bounds import decision_shares, point_bounds, robust_assumptions, sensitivity_bounds
 from policy.cells import CellLayout
 from policy.costs import Costs, costs_from_scenario
 from policy.errors import InputError

@@ -13,7 +13,6 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-import numpy as np
 
 HERE = Path(__file__).resolve().parent
 COARSE_CELLS = ["charge_class", "prior_record", "aid_tier", "sex", "race_group"]
