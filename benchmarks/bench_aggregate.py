@@ -29,7 +29,7 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from policy import CellTable, RiskLevelEstimator, Scenario, optimal_rule  # noqa: E402
-from policy.costs import Costs  # noqa: E402
+from policy.decision.costs import Costs  # noqa: E402
 
 
 def scenario(covariates, sizes_note=""):

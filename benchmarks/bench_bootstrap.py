@@ -34,12 +34,12 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from policy import load_scenario  # noqa: E402
-from policy.cells import CellTable  # noqa: E402
-from policy.compare import ComparisonStatistic  # noqa: E402
-from policy.costs import costs_from_scenario  # noqa: E402
-from policy.demo import demo_scenario_path, simulate_cases  # noqa: E402
-from policy.strata import RiskLevelEstimator  # noqa: E402
-from policy.uncertainty import ResampledCounts, available_cores, bootstrap, one_blas_thread  # noqa: E402
+from policy.inputs.cells import CellTable  # noqa: E402
+from policy.assessment.compare import ComparisonStatistic  # noqa: E402
+from policy.decision.costs import costs_from_scenario  # noqa: E402
+from policy.demo.quarrow import demo_scenario_path, simulate_cases  # noqa: E402
+from policy.estimation.strata import RiskLevelEstimator  # noqa: E402
+from policy.assessment.uncertainty import ResampledCounts, available_cores, bootstrap, one_blas_thread  # noqa: E402
 
 
 def statistic_for(scenario, cells):

@@ -25,10 +25,10 @@ import time
 import numpy as np
 import pandas as pd
 
-from policy.cells import CellLayout
-from policy.constrained import ConstrainedProblem, load_lp, new_highs
-from policy.costs import Costs
-from policy.strata import RiskLevels
+from policy.inputs.cells import CellLayout
+from policy.decision.constrained import ConstrainedProblem, load_lp, new_highs
+from policy.decision.costs import Costs
+from policy.estimation.strata import RiskLevels
 
 LEVELS = ("release", "supervision", "detention")
 
@@ -82,10 +82,10 @@ def compare_solvers(cells: list[int], repeat: int) -> None:
     """First-solve time, optimum and split rule cells of each LP solver on the same LPs."""
     import cvxpy
 
-    from policy.constrained import LPSettings, LPSolution
-    from policy.pipeline import analyze
-    from policy.scenario import load_scenario
-    from policy.constraints import scenario_specs
+    from policy.decision.constrained import LPSettings, LPSolution
+    from policy.running.pipeline import analyze
+    from policy.inputs.scenario import load_scenario
+    from policy.decision.constraints import scenario_specs
 
     sc = load_scenario("scenarios/demo_constrained.toml")
     demo = analyze(sc, scenario_constraints=False)

@@ -30,13 +30,13 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from policy import load_scenario  # noqa: E402
-from policy.compare import ComparisonStatistic, ConstrainedSolver  # noqa: E402
-from policy.constraints import scenario_specs  # noqa: E402
-from policy.costs import costs_from_scenario  # noqa: E402
-from policy.distributed import run_on  # noqa: E402
-from policy.pipeline import estimate  # noqa: E402
-from policy.strata import RiskLevelEstimator  # noqa: E402
-from policy.uncertainty import InProcess, LocalProcesses, bootstrap  # noqa: E402
+from policy.assessment.compare import ComparisonStatistic, ConstrainedSolver  # noqa: E402
+from policy.decision.constraints import scenario_specs  # noqa: E402
+from policy.decision.costs import costs_from_scenario  # noqa: E402
+from policy.running.distributed import run_on  # noqa: E402
+from policy.running.pipeline import estimate  # noqa: E402
+from policy.estimation.strata import RiskLevelEstimator  # noqa: E402
+from policy.assessment.uncertainty import InProcess, LocalProcesses, bootstrap  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -4,7 +4,7 @@ Prints figures measured in one run (the machines are shared and noisy; absolute 
 
 - counting a 20,000,000-row case table of the demo's shape (15 columns the demo scenario uses:
   seven text columns, integer and nullable outcome columns, a cost column and text case ids
-  such as ``QC-12345678``) into cells with ``policy.stream.stream_cell_table`` (what
+  such as ``QC-12345678``) into cells with ``policy.inputs.stream.stream_cell_table`` (what
   ``load_cell_table`` does for a file): peak memory of the process (target: at most 1.5 GB) and
   time against the reference (target: at most 1.5x);
 - the reference: reading the same columns with pyarrow alone, ``pyarrow.parquet.read_table``,
@@ -44,7 +44,7 @@ def write_table(path: Path, rows: int) -> None:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    from policy.demo import simulate_cases
+    from policy.demo.quarrow import simulate_cases
 
     base, _ = simulate_cases(1_000_000, seed=3)
     table = pa.Table.from_pandas(base.drop(columns=["case_id"]), preserve_index=False)
@@ -61,7 +61,7 @@ import json, resource, sys, time
 from dataclasses import replace
 sys.path.insert(0, {root!r})
 from policy import load_scenario
-from policy.stream import stream_cell_table
+from policy.inputs.stream import stream_cell_table
 scenario = load_scenario({scenario!r})
 if not {ids}:
     scenario = replace(scenario, case_id=None)
@@ -76,7 +76,7 @@ import json, resource, sys, time
 sys.path.insert(0, {root!r})
 import pyarrow as pa, pyarrow.parquet as pq
 from policy import load_scenario
-from policy.cells import _case_columns
+from policy.inputs.cells import _case_columns
 columns = [c for c in _case_columns(load_scenario({scenario!r})) if {ids} or c != "case_id"]
 schema = pq.read_schema({path!r})
 text = [c for c in columns if c != "case_id" and (pa.types.is_string(schema.field(c).type) or pa.types.is_large_string(schema.field(c).type))]

@@ -33,12 +33,12 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from policy.cells import CellLayout  # noqa: E402
-from policy.costs import Costs  # noqa: E402
-from policy.rules import Rule  # noqa: E402
-from policy.solve import aggregation_matrix  # noqa: E402
-from policy.strata import RiskLevels  # noqa: E402
-from policy.sweep import cost_lines, lenient_map, ratio_axis, sweep_one  # noqa: E402
+from policy.inputs.cells import CellLayout  # noqa: E402
+from policy.decision.costs import Costs  # noqa: E402
+from policy.decision.rules import Rule  # noqa: E402
+from policy.decision.solve import aggregation_matrix  # noqa: E402
+from policy.estimation.strata import RiskLevels  # noqa: E402
+from policy.assessment.sweep import cost_lines, lenient_map, ratio_axis, sweep_one  # noqa: E402
 
 
 def best_of(fn, repeat=25):
@@ -145,8 +145,8 @@ def constrained(n_rule_cells: int, points: int = 50, fresh_points: int = 5) -> N
     from bench_constrained import SPECS, raw_model
     from bench_constrained import synthetic as lp_instance
 
-    from policy.constrained import ConstrainedProblem, LPSettings
-    from policy.sweep_constrained import constrained_sweep, ratio_grid
+    from policy.decision.constrained import ConstrainedProblem, LPSettings
+    from policy.assessment.sweep.constrained import constrained_sweep, ratio_grid
 
     rl, costs = lp_instance(n_rule_cells)
     axis = ratio_axis(rl, costs, "harm")

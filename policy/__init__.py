@@ -6,29 +6,31 @@ scenario -> cells -> strata -> costs -> solve -> evaluate -> (compare, sweep, un
 an individual.
 """
 
-from .cautions import CAUTIONS
-from .cells import CellLayout, CellTable, load_cell_table
-from .constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
-from .constraints import ConstraintSpec
-from .costs import Costs, costs_from_scenario, expected_cost
-from .errors import InfeasibleError, InputError, PolicyError, SolverError
-from .bounds import RiskBounds, manski_bounds, sensitivity_bounds
-from .evaluate import Evaluation, evaluate
-from .pipeline import Analysis, CheckReport, analyze, check, estimate
-from .report import Report, build_report
-from .uncertainty import BootstrapResult, bootstrap
-from .compare import Comparison, compare
-from .rules import Rule
-from .scenario import Scenario, load_scenario
-from .solve import optimal_rule
-from .sweep import LenientMap, OneRatioSweep, SweepResult, lenient_map, ratio_axis, sweep_one, sweep_scenario
-from .strata import (
+from policy.cautions import CAUTIONS
+from policy.inputs.cells import CellLayout, CellTable, load_cell_table
+from policy.decision.constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
+from policy.decision.constraints import ConstraintSpec
+from policy.decision.costs import Costs, costs_from_scenario, expected_cost
+from policy.errors import InfeasibleError, InputError, PolicyError, SolverError
+from policy.estimation.bounds import RiskBounds, manski_bounds, sensitivity_bounds
+from policy.decision.evaluate import Evaluation, evaluate
+from policy.estimation.from_scenario import estimate_risk_levels
+from policy.running.pipeline import Analysis, CheckReport, analyze, check, estimate
+from policy.presentation.report import Report, build_report
+from policy.assessment.uncertainty import BootstrapResult, bootstrap
+from policy.assessment.compare import Comparison, compare
+from policy.decision.rules import Rule
+from policy.inputs.scenario import Scenario, load_scenario
+from policy.decision.solve import optimal_rule
+from policy.assessment.sweep import LenientMap, OneRatioSweep, SweepResult, lenient_map, ratio_axis, sweep_one, sweep_scenario
+from policy.estimation.strata import (
     RiskLevelEstimator,
     RiskLevels,
-    estimate_risk_levels,
     isotonic_nonincreasing,
     risk_level_distribution,
 )
+
+from policy import demo as demo  # registers the demo's simulator as the [data] simulate source
 
 __version__ = "0.1.0"
 

@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 
 from policy import load_scenario
-from policy.cli import main
-from policy.demo import demo_scenario_path, simulate_cases
+from policy.presentation.cli import main
+from policy.demo.quarrow import demo_scenario_path, simulate_cases
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = ROOT / "scenarios"

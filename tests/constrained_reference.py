@@ -1,7 +1,7 @@
 """An independent formulation of the constrained-rule LP, for checking policy.constrained.
 
 Everything here is written from the definitions in docs/method.md section 5, cell by cell with
-plain loops, without using policy.constraints or policy.constrained: the rule cells come from a
+plain loops, without using policy.decision.constraints or policy.decision.constrained: the rule cells come from a
 pandas groupby, the risk-level probabilities from q_r = p_{r-1} - p_r, and the LP is solved by
 scipy.optimize.linprog(method="highs"). Random instances for the tests are built here too.
 """
@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import linprog
 
-from policy.cells import CellLayout
-from policy.costs import Costs
-from policy.strata import RiskLevels
+from policy.inputs.cells import CellLayout
+from policy.decision.costs import Costs
+from policy.estimation.strata import RiskLevels
 
 
 def random_instance(seed: int, n_scores: int = 3, n_buckets: int = 2, n_groups: int = 2, levels: int = 3,

@@ -5,7 +5,7 @@ hand (``python -m tests.coverage SETS CASES REPLICATES``) to produce the figures
 docs/method.md. Two truths are covered:
 
 - the *population* truth: stratum shares and the aid's effect computed from the simulator's
-  exact per-cell risk levels and court decision probabilities (:func:`policy.demo.true_risk_levels`);
+  exact per-cell risk levels and court decision probabilities (:func:`policy.demo.quarrow.true_risk_levels`);
 - the estimator's *finite-n target* E[estimate]: the mean of the point estimates over the data
   sets. The cell estimator shrinks toward a logistic target model, so its expectation differs
   from the population truth by a shrinkage bias that no interval can remove; coverage of
@@ -21,10 +21,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from policy import compare, load_scenario
-from policy.demo import demo_scenario_path, true_risk_levels
-from policy.evaluate import stratum_decision_mass
-from policy.scenario import DataSource
-from policy.uncertainty import InProcess
+from policy.demo.quarrow import demo_scenario_path, true_risk_levels
+from policy.decision.evaluate import stratum_decision_mass
+from policy.inputs.scenario import DataSource
+from policy.assessment.uncertainty import InProcess
 
 
 def truth_figures() -> tuple[np.ndarray, np.ndarray]:

@@ -1,4 +1,4 @@
-"""The batch verb (policy.batch): a folder of scenarios, one summary, failures reported."""
+"""The batch verb (policy.running.batch): a folder of scenarios, one summary, failures reported."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ import shutil
 import pandas as pd
 import pytest
 
-from policy.batch import run_batch
-from policy.pipeline import analyze
+from policy.running.batch import run_batch
+from policy.running.pipeline import analyze
 
 from .conftest import SCENARIOS, run_cli
 
@@ -59,7 +59,7 @@ def test_batch_on_three_scenarios_one_broken(three, tmp_path, capsys):
 
 def test_batch_api_and_a_local_cluster_agree(three):
     pytest.importorskip("distributed")
-    from policy.distributed import run_on
+    from policy.running.distributed import run_on
 
     here = run_batch(three)
     with run_on("local:2") as runner:

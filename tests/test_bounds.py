@@ -1,4 +1,4 @@
-"""Bounds on outcome probabilities without unconfoundedness (policy/bounds.py)."""
+"""Bounds on outcome probabilities without unconfoundedness (policy/estimation/bounds.py)."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.special import expit, logit
 
-from policy.bounds import (
+from policy.estimation.bounds import (
     decision_shares,
     manski_bounds,
     monotone_response_bounds,
@@ -15,9 +15,9 @@ from policy.bounds import (
     sensitivity_bounds,
     sensitivity_interval,
 )
-from policy.demo import true_risk_levels
+from policy.demo.quarrow import true_risk_levels
 from policy.errors import InputError
-from policy.pipeline import estimate
+from policy.running.pipeline import estimate
 
 
 # -- Manski (1997): the worked numbers -----------------------------------------------------------
@@ -110,7 +110,7 @@ def test_manski_bounds_are_attained():
 
 
 def test_manski_bounds_contain_the_simulator_truth_in_every_cell():
-    # The demo simulator's exact per-cell truth (policy.demo.true_risk_levels) and its exact
+    # The demo simulator's exact per-cell truth (policy.demo.quarrow.true_risk_levels) and its exact
     # decision distribution per cell and arm, as population counts (arms half each).
     truth, court = true_risk_levels()
     share = court.mean(axis=1)                                  # P(D = z | cell)

@@ -6,9 +6,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import policy.cells as cells_mod
+import policy.inputs.cells as cells_mod
 from policy import CellTable, InputError, load_scenario
-from policy.cells import aggregate_codes, code_column, load_cell_table
+from policy.inputs.cells import aggregate_codes, code_column, load_cell_table
 
 from .conftest import run_cli, write_scenario
 
@@ -132,7 +132,7 @@ def _run_bad(tmp_path, capsys, frame=None, writer=None, table="cases.csv"):
 
 @pytest.fixture
 def cases3000():
-    from policy.demo import simulate_cases
+    from policy.demo.quarrow import simulate_cases
 
     return simulate_cases(3_000, seed=5)[0]
 

@@ -14,8 +14,8 @@ import pandas as pd
 import pytest
 
 from policy import compare, load_scenario
-from policy.cells import CellTable
-from policy.compare import (
+from policy.inputs.cells import CellTable
+from policy.assessment.compare import (
     CandidateSpec,
     ComparisonStatistic,
     aid_rule,
@@ -24,13 +24,13 @@ from policy.compare import (
     observed_rules,
     score_rules,
 )
-from policy.costs import costs_from_scenario
-from policy.demo import demo_scenario_path, simulate_cases, true_risk_levels
+from policy.decision.costs import costs_from_scenario
+from policy.demo.quarrow import demo_scenario_path, simulate_cases, true_risk_levels
 from policy.errors import InputError
-from policy.evaluate import evaluate, group_matrix
-from policy.solve import optimal_rule
-from policy.strata import RiskLevelEstimator
-from policy.uncertainty import CountResampler
+from policy.decision.evaluate import evaluate, group_matrix
+from policy.decision.solve import optimal_rule
+from policy.estimation.strata import RiskLevelEstimator
+from policy.assessment.uncertainty import CountResampler
 
 from .conftest import run_cli, write_scenario
 
@@ -305,8 +305,8 @@ def test_compare_command_rejects_bad_settings_and_risk_level_tables(small_case_t
 
 
 def test_constrained_optimum_is_compared_and_never_beats_the_optimum():
-    from policy.constrained import ConstrainedProblem
-    from policy.constraints import scenario_specs
+    from policy.decision.constrained import ConstrainedProblem
+    from policy.decision.constraints import scenario_specs
 
     path = demo_scenario_path().with_name("demo_constrained.toml")
     c = compare(path, replicates=30, workers=1)

@@ -12,11 +12,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from policy import analyze, load_scenario
-from policy.constrained import ConstrainedProblem, LPSettings, _status_error, solve_constrained
-from policy.costs import Costs
+from policy.decision.constrained import ConstrainedProblem, LPSettings, _status_error, solve_constrained
+from policy.decision.costs import Costs
 from policy.errors import InfeasibleError, InputError, SolverError
-from policy.evaluate import evaluate
-from policy.solve import optimal_rule
+from policy.decision.evaluate import evaluate
+from policy.decision.solve import optimal_rule
 
 from .conftest import SCENARIOS, run_cli
 from .constrained_reference import constraint_violation, random_instance, reference_solve
@@ -118,8 +118,8 @@ def _one_outcome_two_levels(seed: int = 3, n: int = 40):
         "cell": pd.Categorical.from_codes(np.arange(2 * n), categories=list(range(2 * n)), ordered=True),
         "group": pd.Categorical.from_codes(group, categories=["a", "b"], ordered=True),
     })
-    from policy.cells import CellLayout
-    from policy.strata import RiskLevels
+    from policy.inputs.cells import CellLayout
+    from policy.estimation.strata import RiskLevels
 
     layout = CellLayout(frame, ("group",), ("cell", "group"), None)
     p = np.stack([risk, np.zeros(2 * n)], axis=1)[:, None, :]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from policy.demo import simulate_cases, true_risk_levels
+from policy.demo.quarrow import simulate_cases, true_risk_levels
 
 
 def test_same_seed_same_table():

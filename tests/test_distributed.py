@@ -1,4 +1,4 @@
-"""Tasks on a Dask cluster (policy.distributed): the same bytes as in this process for a bootstrap
+"""Tasks on a Dask cluster (policy.running.distributed): the same bytes as in this process for a bootstrap
 and a constrained sweep, a worker killed mid-run, and the messages of --run-on.
 
 Each test starts its own Dask cluster of two worker processes on loopback and stops it.
@@ -127,7 +127,7 @@ def test_run_on_messages(tmp_path, capsys, monkeypatch):
     assert code == 2 and "positive integer" in err
     code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--run-on", "here", "--workers", "2"], capsys)
     assert code == 2 and "not both" in err
-    monkeypatch.setattr("policy.distributed.CONNECT_TIMEOUT", 1)
+    monkeypatch.setattr("policy.running.distributed.CONNECT_TIMEOUT", 1)
     code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", out, "--replicates", "5", "--run-on", "tcp://127.0.0.1:9"], capsys)
     assert code == 5 and "could not reach a Dask scheduler" in " ".join(err.split())
     assert not out.exists()

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from policy import Costs, Rule, evaluate
-from policy.demo import simulate_cases, true_risk_levels
+from policy.demo.quarrow import simulate_cases, true_risk_levels
 
 from .test_solve import make_risk_levels
 

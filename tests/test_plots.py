@@ -1,4 +1,4 @@
-"""Figures of sweeps and maps (policy/plots.py): produced for every example scenario, non-empty."""
+"""Figures of sweeps and maps (policy/presentation/plots.py): produced for every example scenario, non-empty."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import pytest
 
 from policy import load_scenario
 from policy.outputs import write_outputs
-from policy.plots import level_colours, save_figure, share_figure
-from policy.sweep import sweep_scenario
+from policy.presentation.plots import level_colours, save_figure, share_figure, sweep_files
+from policy.assessment.sweep import sweep_scenario
 
 from .conftest import SCENARIOS
 
@@ -41,9 +41,9 @@ def test_figures_for_every_scenario(path, tmp_path):
     keys = list(scenario.outcome_keys)
     counts = scenario.data.kind != "risk_level_table"
     one = sweep_scenario(scenario, keys[:1], lp_points=8, replicates=10 if counts else None, workers=1)
-    written = write_outputs(tmp_path / "one", one.output_files())
+    written = write_outputs(tmp_path / "one", sweep_files(one))
     two = sweep_scenario(scenario, keys[:2])
-    written += write_outputs(tmp_path / "two", two.output_files(table_points=5))
+    written += write_outputs(tmp_path / "two", sweep_files(two, table_points=5))
     figures = [p for p in written if p.suffix in (".png", ".svg")]
     stems = ["sweep_shares", "sweep_regret", "map_lenient"] + (["sweep_prices"] if one.constrained is not None else [])
     assert sorted(p.name for p in figures) == sorted(f"{stem}.{fmt}" for stem in stems for fmt in ("png", "svg"))
@@ -75,8 +75,8 @@ def test_share_figure_draws_bands_and_is_reproducible(tmp_path, demo_scenario):
     save_figure(share_figure(s, bands), tmp_path / "a.svg", "svg")
     assert "95% interval" in _svg_text(tmp_path / "a.svg")
     # the same result written twice gives the same bytes
-    first = write_outputs(tmp_path / "r1", res.output_files(["svg"]))
-    second = write_outputs(tmp_path / "r2", res.output_files(["svg"]))
+    first = write_outputs(tmp_path / "r1", sweep_files(res, ["svg"]))
+    second = write_outputs(tmp_path / "r2", sweep_files(res, ["svg"]))
     for a, b in zip(first, second):
         if a.suffix == ".svg":
             assert a.read_bytes() == b.read_bytes()

@@ -12,9 +12,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from policy.demo import simulate_cases
-from policy.pipeline import analyze
-from policy.report import build_report, json_for_script, render_report
+from policy.demo.quarrow import simulate_cases
+from policy.running.pipeline import analyze
+from policy.presentation.report import build_report, json_for_script, render_report
 
 from .conftest import ROOT, run_cli, write_scenario
 

@@ -2,8 +2,8 @@
 
 The page is opened from disk with every request intercepted (any URL that is not ``file:``
 fails the test), its cost controls are moved with the keyboard and by typing, and every number
-the page shows is checked against the tool's Python engine (policy.costs, policy.solve,
-policy.evaluate) for the same costs, to the precision the page displays. Where Chromium or
+the page shows is checked against the tool's Python engine (policy.decision.costs, policy.decision.solve,
+policy.decision.evaluate) for the same costs, to the precision the page displays. Where Chromium or
 playwright is missing, these tests fail with a message saying how to install them: they never
 skip.
 """
@@ -20,8 +20,8 @@ import pytest
 
 from policy import costs_from_scenario, evaluate, optimal_rule
 from policy.outputs import write_outputs
-from policy.pipeline import analyze
-from policy.report import DIGITS, build_report
+from policy.running.pipeline import analyze
+from policy.presentation.report import DIGITS, build_report
 
 from .conftest import ROOT, run_cli
 from .test_report import HOSTILE, hostile_scenario
@@ -144,7 +144,7 @@ def shown(page) -> dict:
 
 def engine(results, outcome_costs=None, decision_costs=None, scale=None):
     """The Python engine's answer for the given costs: the rule, its evaluation, and each compared
-    rule's evaluation against it (policy.costs, policy.solve, policy.evaluate)."""
+    rule's evaluation against it (policy.decision.costs, policy.decision.solve, policy.decision.evaluate)."""
     analysis = results.analysis
     rl = analysis.risk_levels
     costs = costs_from_scenario(analysis.scenario, rl, outcome_costs, decision_costs)

@@ -7,7 +7,7 @@ import re
 import pytest
 
 from policy import InputError, load_scenario
-from policy.scenario import SCHEMA
+from policy.inputs.scenario import SCHEMA
 
 from .conftest import ROOT, write_scenario
 

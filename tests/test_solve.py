@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 
 from policy import Costs, InputError, RiskLevels, costs_from_scenario, estimate_risk_levels, optimal_rule
-from policy.cells import CellLayout
-from policy.solve import argmin_lenient, rule_cell_costs
+from policy.inputs.cells import CellLayout
+from policy.decision.solve import argmin_lenient, rule_cell_costs
 
 
 def make_risk_levels(p, weights=None, groups=None, rule=("tier",), protected=("group",)):

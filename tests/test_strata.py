@@ -11,14 +11,14 @@ from hypothesis.extra import numpy as hnp
 from scipy.optimize import isotonic_regression
 
 from policy import CellTable, InputError, RiskLevelEstimator, estimate_risk_levels, isotonic_nonincreasing
-from policy.demo import simulate_cases, true_risk_levels
-from policy.strata import (
+from policy.demo.quarrow import simulate_cases, true_risk_levels
+from policy.estimation.strata import (
     level_risk_ratios,
     moment_prior_strength,
     outcome_probabilities,
     risk_level_distribution,
-    risk_levels_from_frame,
 )
+from policy.estimation.from_scenario import risk_levels_from_frame
 
 
 # Published pool-adjacent-violators vectors (docs/reference-values.md, "Isotonic regression test
@@ -73,7 +73,7 @@ def test_level_risk_ratio_matches_statsmodels_mantel_haenszel():
 
     frame, _ = simulate_cases(30_000, seed=4)
     from policy import load_scenario
-    from policy.demo import demo_scenario_path
+    from policy.demo.quarrow import demo_scenario_path
 
     sc = load_scenario(demo_scenario_path())
     cells = CellTable.from_cases(frame, sc)
@@ -96,8 +96,8 @@ def test_loglinear_baseline_matches_statsmodels_poisson():
     # (Bishop, Fienberg and Holland 1975, ch. 3).
     import statsmodels.api as sm
 
-    from policy.cells import CellLayout
-    from policy.strata import factor_matrices, loglinear_rates
+    from policy.inputs.cells import CellLayout
+    from policy.estimation.strata import factor_matrices, loglinear_rates
 
     rng = np.random.default_rng(12)
     a, b, c = np.meshgrid(np.arange(4), np.arange(3), np.arange(5), indexing="ij")
@@ -217,8 +217,8 @@ def test_risk_level_table_validation(demo_scenario, edit, message):
     rl = estimate_risk_levels(demo_scenario)
     frame = edit(rl.to_frame())
     with pytest.raises(InputError, match=message.replace("[", r"\[").replace("]", r"\]")):
-        from policy.tables import require_columns
-        from policy.strata import risk_level_table_columns
+        from policy.inputs.tables import require_columns
+        from policy.estimation.from_scenario import risk_level_table_columns
 
         require_columns(frame.columns, risk_level_table_columns(demo_scenario), "risk_levels.csv", "a risk-level table")
         risk_levels_from_frame(frame, demo_scenario, file="risk_levels.csv")

@@ -1,4 +1,4 @@
-"""Cost-ratio sweeps and lenient maps (policy/sweep.py)."""
+"""Cost-ratio sweeps and lenient maps (policy/assessment/sweep.py)."""
 
 from __future__ import annotations
 
@@ -10,27 +10,27 @@ import pytest
 from scipy.optimize import linprog
 from scipy.spatial import ConvexHull, HalfspaceIntersection
 
-from policy.bounds import decision_shares, point_bounds, robust_assumptions, sensitivity_bounds
-from policy.cells import CellLayout
-from policy.costs import Costs, costs_from_scenario
+from policy.estimation.bounds import decision_shares, point_bounds, robust_assumptions, sensitivity_bounds
+from policy.inputs.cells import CellLayout
+from policy.decision.costs import Costs, costs_from_scenario
 from policy.errors import InputError
-from policy.evaluate import evaluate
-from policy.pipeline import estimate
-from policy.rules import Rule
-from policy.solve import optimal_rule
-from policy.strata import RiskLevels
-from policy.sweep import (
+from policy.decision.evaluate import evaluate
+from policy.running.pipeline import estimate
+from policy.decision.rules import Rule
+from policy.decision.solve import optimal_rule
+from policy.estimation.strata import RiskLevels
+from policy.assessment.sweep import (
     StepFunction,
     clip_polygons,
-    envelope_functions,
     lenient_intervals,
     lenient_map,
     lower_envelope,
-    polygon_area,
     ratio_axis,
     sweep_one,
     sweep_scenario,
 )
+from policy.assessment.sweep.envelope import envelope_functions
+from policy.assessment.sweep.regions import polygon_area
 
 from .conftest import SCENARIOS, run_cli
 
@@ -182,7 +182,7 @@ def test_optimal_level_never_becomes_more_lenient_as_an_outcome_cost_grows(demo)
 
 
 def test_regret_is_exact_against_a_direct_evaluation(demo):
-    # Reference: policy.evaluate.evaluate of the fixed rule against the re-solved optimum.
+    # Reference: policy.decision.evaluate.evaluate of the fixed rule against the re-solved optimum.
     _, _, rl, costs = demo
     axis = ratio_axis(rl, costs, "new_offense")
     fixed = optimal_rule(rl, costs, name="fixed")
@@ -485,7 +485,7 @@ def test_replicate_statistics_equal_one_sweep_per_replicate(demo):
     # checked against numpy's argmin on a grid.
     from dataclasses import replace
 
-    from policy.sweep import lenient_replicates, level_thresholds
+    from policy.assessment.sweep import lenient_replicates, level_thresholds
 
     _, _, rl, costs = demo
     axis = ratio_axis(rl, costs, "new_violent")
@@ -508,9 +508,9 @@ def test_replicate_statistics_equal_one_sweep_per_replicate(demo):
 
 
 def test_bootstrap_bands_are_reproducible_and_centred_on_the_exact_sweep(demo_scenario):
-    # Same seed, same bands; the bands come from re-estimated replicates (policy.uncertainty), and
+    # Same seed, same bands; the bands come from re-estimated replicates (policy.assessment.uncertainty), and
     # their point is the exact sweep of the estimates.
-    from policy.sweep import LenientReplicates
+    from policy.assessment.sweep import LenientReplicates
 
     kw = dict(gammas=[], bounds=False, replicates=40, seed=11, workers=1, grid_points=41)
     a = sweep_scenario(demo_scenario, ["new_offense"], **kw)

@@ -1,4 +1,4 @@
-"""Constrained optima along a cost-ratio sweep (policy/sweep_constrained.py)."""
+"""Constrained optima along a cost-ratio sweep (policy/assessment/sweep/constrained.py)."""
 
 from __future__ import annotations
 
@@ -8,10 +8,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from policy.constrained import ConstrainedProblem
+from policy.decision.constrained import ConstrainedProblem
 from policy.errors import InputError
-from policy.sweep import ratio_axis, sweep_one, sweep_scenario
-from policy.sweep_constrained import constrained_sweep, ratio_grid
+from policy.assessment.sweep import ratio_axis, sweep_one, sweep_scenario
+from policy.assessment.sweep.constrained import constrained_sweep, ratio_grid
 
 from .conftest import SCENARIOS, run_cli
 from .constrained_reference import random_instance, reference_solve
@@ -141,4 +141,4 @@ def test_no_constraints_means_no_constrained_outputs():
     res = sweep_scenario(SCENARIOS / "demo_constrained.toml", ["new_offense"], scenario_constraints=False,
                          gammas=[], bounds=False, replicates=0)
     assert res.constrained is None
-    assert not any(name.startswith("sweep_constrain") for name in res.output_files([]))
+    assert not any(name.startswith("sweep_constrain") for name in res.output_files())

@@ -8,12 +8,12 @@ import pytest
 from scipy import stats
 
 from policy import load_scenario
-from policy.cells import CellTable
-from policy.demo import demo_scenario_path, simulate_cases
+from policy.inputs.cells import CellTable
+from policy.demo.quarrow import demo_scenario_path, simulate_cases
 from policy.errors import InputError
-from policy.scenario import Scenario
-from policy.strata import RiskLevelEstimator
-from policy.uncertainty import (
+from policy.inputs.scenario import Scenario
+from policy.estimation.strata import RiskLevelEstimator
+from policy.assessment.uncertainty import (
     CHUNK,
     CountResampler,
     InProcess,

@@ -1,6 +1,6 @@
 """Write the small data files that the example scenarios in scenarios/ read.
 
-Every file is drawn from the invented Quarrow County simulator (policy.demo); nothing here is
+Every file is drawn from the invented Quarrow County simulator (policy.demo.quarrow); nothing here is
 real. Run from the repository root:
 
     python scenarios/data/make_data.py
@@ -20,7 +20,7 @@ COARSE_CELLS = ["charge_class", "prior_record", "aid_tier", "sex", "race_group"]
 
 def build(folder: Path) -> list[Path]:
     from policy import CellTable, estimate_risk_levels, load_scenario
-    from policy.demo import simulate_cases
+    from policy.demo.quarrow import simulate_cases
 
     folder.mkdir(parents=True, exist_ok=True)
     written = []

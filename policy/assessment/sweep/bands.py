@@ -1,0 +1,181 @@
+"""Bootstrap bands of a one-ratio sweep: each replicate's thresholds and shares, re-estimated."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from policy.decision.costs import Costs
+from policy.decision.solve import aggregation_matrix
+from policy.estimation.strata import RiskLevels
+from typing import TYPE_CHECKING
+
+from policy.assessment.sweep.axes import RatioAxis, _plain_groups
+from policy.assessment.sweep.envelope import Envelope, lower_envelope
+
+if TYPE_CHECKING:  # annotations only: the sweep result is built before its bands
+    from policy.assessment.sweep.one_ratio import OneRatioSweep
+
+
+# ----------------------------------------------------------------------------------------------
+# Replicates (bootstrap): the same exact answers for many re-estimated risk levels at once
+# ----------------------------------------------------------------------------------------------
+def level_thresholds(env: Envelope, n_levels: int) -> np.ndarray:
+    """For each row and level d < L - 1, the ratio above which the optimal level is harsher than d.
+
+    Returns
+    -------
+    ndarray of shape (n, L - 1)
+        t_d = the first breakpoint after which the level exceeds d (+inf if it never does, -inf
+        if it already does at r = -inf). For an outcome-cost sweep, where levels only grow,
+        level(r) > d exactly for r > t_d, so t_0 is where leniency ends.
+    """
+    n = env.n
+    out = np.full((n, n_levels - 1), np.inf)
+    out[env.levels[:, :1] > np.arange(n_levels - 1)[None, :]] = -np.inf
+    for s in range(env.breaks.shape[1] - 1, -1, -1):
+        real = s < env.count
+        after = env.levels[:, s + 1]
+        before = np.maximum.accumulate(env.levels[:, : s + 1], axis=1)[:, -1]
+        for d in range(n_levels - 1):
+            crosses = real & (before <= d) & (after > d)
+            out[crosses, d] = env.breaks[crosses, s]
+    return out
+
+
+def lenient_replicates(p: np.ndarray, weights: np.ndarray, costs: Costs, axis: RatioAxis, index: np.ndarray,
+                       n_groups: int, ratios: np.ndarray) -> dict[str, np.ndarray]:
+    """Share of cases for which leniency is optimal on a grid, and each rule cell's level
+    thresholds, for a batch of risk-level replicates at once.
+
+    Parameters
+    ----------
+    p : ndarray of shape (b, n_cells, J, L)
+        Outcome probabilities of each replicate.
+    weights : ndarray of shape (b, n_cells) or (n_cells,)
+        Cases per cell in each replicate.
+    costs : Costs
+        The scenario's costs (the swept outcome's cost is replaced along the ratio).
+    axis : RatioAxis
+    index : ndarray of shape (n_cells,)
+        Rule cell of each cell; ``n_groups`` rule cells.
+    ratios : ndarray of shape (P,)
+        Grid on which the lenient share is evaluated (exactly, at each point).
+
+    Returns
+    -------
+    dict
+        ``share_lenient`` (b, P) and ``thresholds`` (b, n_groups, L - 1) (see
+        :func:`level_thresholds`): the same numbers :func:`sweep_one` gives for each replicate,
+        from one lower envelope over all replicates' rule cells.
+    """
+    p = np.asarray(p, dtype=np.float64)
+    b, n, J, L = p.shape
+    w = np.broadcast_to(np.asarray(weights, dtype=np.float64), (b, n))
+    fixed = costs.outcome.astype(np.float64).copy()
+    fixed[axis.outcome_index] = 0.0
+    base = costs.decision[None] + np.matmul(fixed, p)                 # (b, n, L)
+    slope = axis.reference_cost * p[:, :, axis.outcome_index, :]       # (b, n, L)
+    S = aggregation_matrix(index, n_groups, np.ones(n))
+    A = (S @ (w[..., None] * base).transpose(1, 0, 2).reshape(n, b * L)).reshape(n_groups, b, L)
+    B = (S @ (w[..., None] * slope).transpose(1, 0, 2).reshape(n, b * L)).reshape(n_groups, b, L)
+    env = lower_envelope(A.transpose(1, 0, 2).reshape(b * n_groups, L), B.transpose(1, 0, 2).reshape(b * n_groups, L))
+    W = (S @ w.T).T                                                    # (b, n_groups)
+    thresholds = level_thresholds(env, L).reshape(b, n_groups, L - 1)
+    lenient = env.level_at(np.asarray(ratios, dtype=np.float64)).reshape(len(ratios), b, n_groups) == 0
+    share = np.einsum("pbg,bg->bp", lenient, W) / W.sum(axis=1)[:, None]
+    return {"share_lenient": share, "thresholds": thresholds}
+
+
+class LenientReplicates:
+    """A picklable statistic for the bootstrap (:class:`policy.assessment.uncertainty.OnRiskLevels`):
+    ``(p, batch) -> lenient_replicates(...)`` with the replicate's cell weights, the thresholds
+    clipped to the range [lo, hi] (lo: harsher already at lo; hi: not harsher before hi)."""
+
+    def __init__(self, costs: Costs, axis: RatioAxis, index: np.ndarray, n_groups: int, ratios: np.ndarray,
+                 lo: float, hi: float):
+        self.costs, self.axis, self.index, self.n_groups = costs, axis, index, n_groups
+        self.ratios = np.asarray(ratios, dtype=np.float64)
+        self.lo, self.hi = float(lo), float(hi)
+
+    def __call__(self, p: np.ndarray, batch) -> dict[str, np.ndarray]:
+        out = lenient_replicates(p, batch.weights, self.costs, self.axis, self.index, self.n_groups, self.ratios)
+        out["thresholds"] = np.clip(out["thresholds"], self.lo, self.hi)
+        return out
+
+
+@dataclass(frozen=True)
+class SweepBands:
+    """Bootstrap percentile intervals of a one-ratio sweep.
+
+    Attributes
+    ----------
+    ratios : ndarray of shape (P,)
+        Display grid of the band.
+    share, lower, upper : ndarray of shape (P,)
+        Share of cases for which leniency is optimal (point estimate, exact) and its interval.
+    thresholds, thresholds_lower, thresholds_upper : ndarray of shape (n_groups, L - 1)
+        Each rule cell's level thresholds (:func:`level_thresholds`) clipped to the range, and
+        their intervals.
+    meta : dict
+        Replicates, seed, resampling, outcome draws, interval (:meth:`BootstrapResult.meta`).
+    label : str
+        E.g. "95% bootstrap percentile interval".
+    """
+
+    ratios: np.ndarray
+    share: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    thresholds: np.ndarray
+    thresholds_lower: np.ndarray
+    thresholds_upper: np.ndarray
+    meta: dict
+    label: str
+
+    def band_table(self, axis: RatioAxis) -> pd.DataFrame:
+        """``ratio``, ``cost``, ``share_lenient``, ``lower``, ``upper``."""
+        return pd.DataFrame({"ratio": self.ratios, "cost": self.ratios * axis.reference_cost,
+                             "share_lenient": self.share, "lower": self.lower, "upper": self.upper})
+
+    def threshold_table(self, sweep: "OneRatioSweep") -> pd.DataFrame:
+        """One row per rule cell and level d < L - 1: the rule columns, ``cases``,
+        ``harsher_than`` (label of level d), ``ratio`` (above it the optimal level is harsher than
+        d; clipped to the range), ``lower``, ``upper``, and the same in the cost unit."""
+        g, d = np.indices(self.thresholds.shape).reshape(2, -1)
+        out = _plain_groups(sweep.rule_cells).iloc[g].reset_index(drop=True)
+        out["cases"] = sweep.weights[g]
+        out["harsher_than"] = np.asarray(sweep.level_labels, dtype=object)[d]
+        for name, values in (("ratio", self.thresholds), ("lower", self.thresholds_lower), ("upper", self.thresholds_upper)):
+            out[name] = values.reshape(-1)
+        c = sweep.axis.reference_cost
+        out["cost"], out["cost_lower"], out["cost_upper"] = out["ratio"] * c, out["lower"] * c, out["upper"] * c
+        return out
+
+
+def sweep_bands(cells, risk_levels: RiskLevels, costs: Costs, sweep: "OneRatioSweep", estimator, replicates: int,
+                seed: int | None, method: str = "poisson", level: float = 0.95, outcomes: str = "model",
+                points: int = 200, workers: int | None = None, runner=None, progress: bool = False) -> SweepBands:
+    """Bootstrap bands on the lenient share and intervals on each rule cell's thresholds.
+
+    Each replicate resamples the cell counts (:func:`policy.assessment.uncertainty.bootstrap`),
+    re-estimates the risk levels with ``estimator``, and recomputes the exact sweep of all its
+    rule cells at once (:func:`lenient_replicates`); the intervals are percentile intervals.
+    """
+    from policy.assessment.uncertainty import OnRiskLevels, bootstrap
+
+    space = np.geomspace if sweep.scale == "log" else np.linspace
+    grid = space(sweep.lo, sweep.hi, points)
+    index, groups = risk_levels.layout.rule_index(list(sweep.rule_cells.columns))
+    statistic = OnRiskLevels(LenientReplicates(costs, sweep.axis, index, len(groups), grid, sweep.lo, sweep.hi),
+                             estimator, estimator.design(cells.layout, len(cells.levels)))
+    result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
+                       progress=progress, description="sweep: bootstrap replicates",
+                       outcome_model=risk_levels.p if outcomes == "model" else None)
+    lower, upper = result.interval("share_lenient")
+    t_lower, t_upper = result.interval("thresholds")
+    thresholds = np.clip(level_thresholds(sweep.envelope, len(sweep.level_values)), sweep.lo, sweep.hi)
+    return SweepBands(grid, sweep.lenient_share_at(grid), lower, upper, thresholds, t_lower, t_upper,
+                      result.meta(), result.interval_label)

@@ -1,0 +1,181 @@
+"""End-to-end runs of the stages for one scenario: what each command of the CLI calls.
+
+Each function takes a :class:`~policy.inputs.scenario.Scenario` (or a path to one) and returns result
+objects; writing files is separate (:meth:`Analysis.output_files` and
+:func:`policy.outputs.write_outputs`), so a notebook user gets pandas objects and the command
+line gets the same numbers on disk.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+import pandas as pd
+
+from policy.cautions import CAUTIONS, assumptions_for
+from policy.inputs.cells import CellTable, load_cell_table
+from policy.decision.costs import Costs, costs_from_scenario
+from policy.decision.evaluate import Evaluation, evaluate
+from policy.decision.rules import Rule
+from policy.inputs.scenario import Scenario, as_scenario, load_scenario
+from policy.decision.solve import optimal_rule
+from policy.estimation.from_scenario import estimate, estimate_risk_levels
+from policy.estimation.strata import RiskLevels
+
+__all__ = ["Analysis", "CheckReport", "check", "estimate", "analyze", "as_scenario", "write_demo_inputs"]
+
+
+@dataclass(frozen=True)
+class CheckReport:
+    """What a scenario and its data hold, before any estimation."""
+
+    scenario: Scenario
+    cells: CellTable | None
+    risk_levels: RiskLevels | None
+    findings: dict[str, Any]
+
+    def __str__(self) -> str:
+        lines = [f"Scenario {self.scenario.file}: {self.scenario.title}"]
+        for key, value in self.findings.items():
+            lines.append(f"  {key}: {value}")
+        return "\n".join(lines)
+
+
+def check(scenario: Scenario | str | Path) -> CheckReport:
+    """Validate a scenario and its data and say what was found.
+
+    Returns cases, cells, sparse cells and, per outcome kind, the cell-levels never observed
+    (where estimates will be borrowed from the target model).
+    """
+    scenario = as_scenario(scenario)
+    if scenario.data.kind == "risk_level_table":
+        rl = estimate_risk_levels(scenario)
+        findings = {
+            "data": rl.source,
+            "cells": rl.n_cells,
+            "cases (weight)": float(rl.weights.sum()),
+            "sparse cells": int((rl.weights < scenario.estimator.sparse_below).sum()),
+        }
+        return CheckReport(scenario, None, rl, findings)
+    cells = load_cell_table(scenario)
+    s = cells.summary(scenario.estimator.sparse_below)
+    findings = {
+        "data": s["source"],
+        "cases": s["cases"],
+        "cells": s["cells"],
+        "cases per arm": s["cases_per_arm"] if cells.has_arm else "no arm column",
+        "cases per decision level": s["cases_per_level"],
+        f"sparse cells (< {s['sparse_below']} cases)": f"{s['sparse_cells']} holding {s['cases_in_sparse_cells']} cases",
+        "median cases per cell": s["median_cases_per_cell"],
+        "cell-levels never observed, per outcome": s["cell_levels_never_observed"],
+        "share of cases with the outcome observed": {k: round(v, 4) for k, v in s["outcome_observed_share"].items()},
+    }
+    return CheckReport(scenario, cells, None, findings)
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """The foundation's answer for one scenario: risk levels, costs, the optimal rule, its evaluation."""
+
+    scenario: Scenario
+    cells: CellTable | None
+    risk_levels: RiskLevels
+    costs: Costs
+    rule: Rule
+    evaluation: Evaluation
+    extra_files: Mapping[str, Any] = field(default_factory=dict)
+    #: the constrained optimal rule (policy.decision.constrained.ConstrainedRule) when constraints were declared
+    constrained: Any = None
+
+    def output_files(self) -> dict[str, Any]:
+        """Every output file of ``solve`` by name (documented in docs/outputs.md)."""
+        files: dict[str, Any] = {}
+        if self.cells is not None:
+            files["cells.csv"] = self.cells.counts_frame(self.scenario)
+        files["risk_levels.csv"] = self.risk_levels.to_frame()
+        files["risk_level_shares.csv"] = self.risk_levels.shares()
+        files["costs.csv"] = self.costs.to_frame()
+        files["rule.csv"] = self.rule.to_frame()
+        files["by_group.csv"] = self.evaluation.by_group()
+        files["within_risk_levels.csv"] = self.evaluation.within_risk_levels()
+        files["fairness_gaps.csv"] = self.evaluation.fairness_gaps()
+        files["evaluation.json"] = {
+            "scenario": self.scenario.title,
+            "scenario_file": str(self.scenario.path) if self.scenario.path else None,
+            "seed": self.scenario.seed,
+            "data": self.risk_levels.source,
+            "cost_unit": self.costs.unit,
+            "cost_note": self.scenario.cost_note,
+            "costs": self.costs.to_frame().to_dict(orient="records"),
+            "rule": self.rule.name,
+            "rule_columns": list(self.rule.rule_cells.columns),
+            "overview": self.evaluation.overview(),
+            "misplaced": self.evaluation.misplaced().to_dict(orient="records"),
+            "assumptions": assumptions_for("rule"),
+            "cautions": list(CAUTIONS),
+        }
+        if self.constrained is not None:
+            files.update(self.constrained.output_files())
+        files.update(self.extra_files)
+        return files
+
+
+def analyze(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
+            decision_costs: Mapping[str, float] | None = None, constraints: Sequence[Any] = (),
+            scenario_constraints: bool = True, lp_settings: Any = None) -> Analysis:
+    """Estimate risk levels, build the costs, find the unconstrained optimal rule and score it.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+    outcome_costs, decision_costs : mapping, optional
+        What-if overrides of the scenario's costs (by outcome key / decision value or label).
+    constraints : sequence of dict or ConstraintSpec, optional
+        Constraints added to the scenario's ``[[constraints]]`` (dicts use the same keys).
+    scenario_constraints : bool
+        Use the scenario's own ``[[constraints]]`` (default true).
+    lp_settings : LPSettings, optional
+        How to solve the linear program (default: the scenario's ``[linear_program]``).
+
+    When any constraint applies, :attr:`Analysis.constrained` holds the constrained optimal
+    rule (:class:`policy.decision.constrained.ConstrainedRule`); an :class:`~policy.errors.InfeasibleError`
+    says which constraints conflict.
+    """
+    from policy.decision.constrained import ConstrainedProblem
+    from policy.decision.constraints import scenario_specs
+
+    scenario = as_scenario(scenario)
+    specs = scenario_specs(scenario, constraints, scenario_constraints)
+    cells, rl = estimate(scenario)
+    costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
+    rule = optimal_rule(rl, costs)
+    constrained = None
+    if specs:
+        settings = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
+        constrained = ConstrainedProblem(rl, costs, specs, settings=settings).solve()
+    return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs), constrained=constrained)
+
+
+def write_demo_inputs(folder: str | Path, cases: int | None = None) -> tuple[Path, pd.DataFrame]:
+    """Write the demo's case table and a scenario file that reads it into ``folder``.
+
+    Returns the new scenario's path and the case table. The scenario is the built-in demo's,
+    with ``[data] simulate`` replaced by ``case_table = "cases.csv"``.
+    """
+    from policy.demo.quarrow import demo_scenario_path, simulate_cases
+    from policy.outputs import write_outputs
+
+    source = demo_scenario_path()
+    base = load_scenario(source)
+    n = cases or base.data.simulate
+    frame, _ = simulate_cases(n, seed=base.seed)
+    text = source.read_text(encoding="utf-8")
+    text, count = re.subn(r"(?m)^simulate\s*=\s*\d+.*$", 'case_table = "cases.csv"   # written by `policy demo`', text)
+    if count != 1:
+        raise RuntimeError("the demo scenario's [data] simulate line was not found")
+    folder = Path(folder)
+    write_outputs(folder, {"cases.csv": frame, "scenario.toml": text})
+    return folder / "scenario.toml", frame
