@@ -1,13 +1,13 @@
 """Release-rule analysis for pretrial decisions.
 
-Stages (each a module with one job, data flowing one way):
-scenario -> cells -> strata -> costs -> solve -> evaluate -> (compare, sweep, uncertainty)
--> plots, report, cli. For analysis of rules for groups of cases, never for a decision about
-an individual.
+Stages, one folder each, data flowing one way: ``inputs`` -> ``estimation`` -> ``decision`` ->
+``assessment`` -> ``running`` -> ``presentation`` (``demo`` is a data source). For analysis of
+rules for groups of cases, never for a decision about an individual.
 """
 
 from policy.cautions import CAUTIONS
-from policy.inputs.cells import CellLayout, CellTable, load_cell_table
+from policy.inputs.cells import CellLayout, CellTable
+from policy.inputs.loading import load_cell_table
 from policy.decision.constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
 from policy.decision.constraints import ConstraintSpec
 from policy.decision.costs import Costs, costs_from_scenario, expected_cost

@@ -8,7 +8,8 @@ import pytest
 
 import policy.inputs.cells as cells_mod
 from policy import CellTable, InputError, load_scenario
-from policy.inputs.cells import aggregate_codes, code_column, load_cell_table
+from policy.inputs.loading import load_cell_table
+from policy.inputs.counting import aggregate_codes, code_column
 
 from .conftest import run_cli, write_scenario
 

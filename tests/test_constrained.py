@@ -12,7 +12,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from policy import analyze, load_scenario
-from policy.decision.constrained import ConstrainedProblem, LPSettings, _status_error, solve_constrained
+from policy.decision.constrained import ConstrainedProblem, LPSettings, solve_constrained
+from policy.decision.constrained.highs import _status_error
 from policy.decision.costs import Costs
 from policy.errors import InfeasibleError, InputError, SolverError
 from policy.decision.evaluate import evaluate

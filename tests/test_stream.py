@@ -16,7 +16,7 @@ import pytest
 
 import policy.inputs.stream as stream
 from policy import CellTable, load_scenario
-from policy.inputs.cells import _case_columns
+from policy.inputs.counting import _case_columns
 from policy.errors import InputError
 from policy.inputs.stream import id_keys, stream_cell_table
 from policy.inputs.tables import read_table
@@ -47,8 +47,8 @@ def test_blocks_give_the_table_read_whole(tmp_path, demo_scenario, cases30k, suf
     cases30k.to_parquet(path, index=False) if suffix == ".parquet" else cases30k.to_csv(path, index=False)
     whole = CellTable.from_cases(read_table(path, _case_columns(demo_scenario), "case table"), demo_scenario)
     # the in-memory path adds cost sums in chunks of CHUNK_ROWS; blocks must use the same rows
-    monkeypatch.setattr("policy.inputs.cells.CHUNK_ROWS", block_rows)
-    import policy.inputs.cells
+    monkeypatch.setattr("policy.inputs.counting.CHUNK_ROWS", block_rows)
+    import policy.inputs.counting
 
     whole_chunked = CellTable.from_cases(read_table(path, _case_columns(demo_scenario), "case table"), demo_scenario)
     streamed = stream_cell_table(path, demo_scenario, block_rows=block_rows)
@@ -57,7 +57,7 @@ def test_blocks_give_the_table_read_whole(tmp_path, demo_scenario, cases30k, suf
     for name in ("cases", "observed", "events", "recommended", "state_counts"):
         np.testing.assert_array_equal(getattr(streamed, name), getattr(whole, name))
     np.testing.assert_allclose(streamed.cell_costs["bond_cost"], whole.cell_costs["bond_cost"], rtol=1e-12)
-    assert policy.inputs.cells.CHUNK_ROWS == block_rows
+    assert policy.inputs.counting.CHUNK_ROWS == block_rows
     # reference: pandas' own groupby count of the cases per cell (common practice)
     reference = cases30k.groupby(list(demo_scenario.cell_columns), observed=True).size()
     expected = {tuple(map(str, key)): int(n) for key, n in reference.items()}
@@ -67,7 +67,7 @@ def test_blocks_give_the_table_read_whole(tmp_path, demo_scenario, cases30k, suf
 
 def test_default_blocks_match_the_in_memory_chunks(tmp_path, demo_scenario, cases30k):
     # the default block is the in-memory aggregation's chunk: the two are one computation
-    assert stream.BLOCK_ROWS == __import__("policy.inputs.cells", fromlist=["CHUNK_ROWS"]).CHUNK_ROWS
+    assert stream.BLOCK_ROWS == __import__("policy.inputs.counting", fromlist=["CHUNK_ROWS"]).CHUNK_ROWS
     path = tmp_path / "cases.parquet"
     cases30k.to_parquet(path, index=False)
     assert_same_table(stream_cell_table(path, demo_scenario),
@@ -86,16 +86,16 @@ def test_csv_cell_values_are_typed_as_for_the_whole_file(tmp_path, demo_scenario
     path = tmp_path / "cases.csv"
     frame.to_csv(path, index=False)
     scenario = load_scenario(write_scenario(tmp_path, "cases.csv"))
-    import policy.inputs.cells
+    import policy.inputs.counting
 
     whole = read_table(path, _case_columns(scenario), "t")
     assert whole["prior_record"].dtype.kind == "i" and whole["pending_case"].dtype.kind in "OT"
-    old = policy.inputs.cells.CHUNK_ROWS
-    policy.inputs.cells.CHUNK_ROWS = 4_096
+    old = policy.inputs.counting.CHUNK_ROWS
+    policy.inputs.counting.CHUNK_ROWS = 4_096
     try:
         expected = CellTable.from_cases(whole, scenario)
     finally:
-        policy.inputs.cells.CHUNK_ROWS = old
+        policy.inputs.counting.CHUNK_ROWS = old
     streamed = stream_cell_table(path, scenario, block_rows=4_096)
     assert_same_table(streamed, expected)
     assert streamed.layout.categories("prior_record") == list(range(1, 13))

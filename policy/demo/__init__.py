@@ -9,7 +9,7 @@ May import: ``policy.inputs``, ``policy.estimation`` and the shared modules.
 
 from policy.demo.quarrow import DEMO, builtin_scenarios, demo_scenario_path, simulate_cases, true_risk_levels
 
-from policy.inputs.cells import register_simulator
+from policy.inputs.loading import register_simulator
 
 
 def _simulated_cases(n_cases: int, seed: int | None):

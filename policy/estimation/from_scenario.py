@@ -15,7 +15,9 @@ import pandas as pd
 
 from policy.errors import InputError
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels, outcome_probabilities
-from policy.inputs.cells import CellLayout, CellTable, code_cell_column, load_cell_table
+from policy.inputs.cells import CellLayout, CellTable
+from policy.inputs.loading import load_cell_table
+from policy.inputs.counting import code_cell_column
 from policy.inputs.scenario import Scenario, as_scenario
 from policy.inputs.tables import read_table, require_columns
 
@@ -163,7 +165,7 @@ def estimate_risk_levels(scenario: Scenario, cells: CellTable | None = None) -> 
     ----------
     scenario : Scenario
     cells : CellTable, optional
-        An already built cell table (default: :func:`policy.inputs.cells.load_cell_table`).
+        An already built cell table (default: :func:`policy.inputs.loading.load_cell_table`).
     """
     if scenario.data.kind == "risk_level_table":
         return load_risk_level_table(scenario)

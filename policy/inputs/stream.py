@@ -40,7 +40,8 @@ from typing import Any, Callable, Iterator
 import numpy as np
 import pandas as pd
 
-from policy.inputs.cells import CHUNK_ROWS, BlockCounts, CellTable, _case_columns, _check_unique_ids, count_block
+from policy.inputs.cells import CellTable
+from policy.inputs.counting import CHUNK_ROWS, BlockCounts, _case_columns, _check_unique_ids, count_block
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
 from policy.inputs.tables import first_bad_utf8, require_columns, rows_from

@@ -16,7 +16,8 @@ from typing import Any, Mapping, Sequence
 import pandas as pd
 
 from policy.cautions import CAUTIONS, assumptions_for
-from policy.inputs.cells import CellTable, load_cell_table
+from policy.inputs.cells import CellTable
+from policy.inputs.loading import load_cell_table
 from policy.decision.costs import Costs, costs_from_scenario
 from policy.decision.evaluate import Evaluation, evaluate
 from policy.decision.rules import Rule

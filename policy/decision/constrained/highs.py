@@ -1,0 +1,220 @@
+"""The HiGHS driver: loading the LP, warm re-solves, status messages, and the most lenient
+among several optimal vertices."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import sys
+import time
+
+import numpy as np
+import scipy.sparse as sp
+
+from policy.errors import SolverError
+from policy.decision.constrained.settings import LPSettings
+from policy.decision.constrained.program import _LPData
+
+
+@contextlib.contextmanager
+def quiet_stdout():
+    """Point standard output (file descriptor 1) at the null device for a moment.
+
+    HiGHS prints a banner from C++ when a solver object is made; this keeps command output clean.
+    """
+    sys.stdout.flush()
+    saved, null = os.dup(1), os.open(os.devnull, os.O_WRONLY)
+    os.dup2(null, 1)
+    try:
+        yield
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+        os.close(null)
+
+
+def new_highs():
+    """A silent ``highspy`` solver object (made without its banner on standard output)."""
+    from highspy import _core
+
+    with quiet_stdout():
+        h = _core._Highs()
+    h.setOptionValue("output_flag", False)
+    return h
+
+
+def load_lp(h, c: np.ndarray, A: sp.spmatrix, row_lo: np.ndarray, row_hi: np.ndarray,
+            col_lo: np.ndarray, col_hi: np.ndarray) -> None:
+    """Load ``min c'x subject to row_lo <= A x <= row_hi, col_lo <= x <= col_hi`` into a HiGHS object.
+
+    The arrays go to HiGHS through highspy's array overload of ``passModel`` (filling a
+    ``HighsLp`` field by field converts them far more slowly).
+    """
+    import highspy
+
+    A = sp.csc_matrix(A)
+    n = A.shape[1]
+    status = h.passModel(
+        n, A.shape[0], A.nnz, int(highspy.MatrixFormat.kColwise), int(highspy.ObjSense.kMinimize), 0.0,
+        np.ascontiguousarray(c, dtype=np.float64), np.ascontiguousarray(col_lo, dtype=np.float64),
+        np.ascontiguousarray(col_hi, dtype=np.float64), np.ascontiguousarray(row_lo, dtype=np.float64),
+        np.ascontiguousarray(row_hi, dtype=np.float64), A.indptr[:-1].astype(np.int32), A.indices.astype(np.int32),
+        np.ascontiguousarray(A.data, dtype=np.float64), np.zeros(n, dtype=np.int32))
+    if status == highspy.HighsStatus.kError:
+        raise SolverError(f"HiGHS refused the linear program ({A.shape[0]} rows, {n} columns); no rule is reported.")
+
+
+_STOPPED = {"kTimeLimit": "it reached the time limit", "kIterationLimit": "it reached the iteration limit",
+            "kInterrupt": "it was interrupted", "kHighsInterrupt": "it was interrupted",
+            "kObjectiveBound": "it reached an objective bound", "kObjectiveTarget": "it reached an objective target",
+            "kSolutionLimit": "it reached a solution limit", "kMemoryLimit": "it ran out of memory"}
+
+
+def _highs_run(h, method: str) -> tuple[str, float]:
+    """Run HiGHS with a method; the model status name and the run time."""
+    import highspy
+
+    h.setOptionValue("solver", method)
+    start = time.perf_counter()
+    status = h.run()
+    seconds = time.perf_counter() - start
+    if status == highspy.HighsStatus.kError:
+        return "kSolveError", seconds
+    return h.getModelStatus().name, seconds
+
+
+def _highs_iterations(h) -> int:
+    info = h.getInfo()
+    return int(info.simplex_iteration_count + info.ipm_iteration_count + info.crossover_iteration_count)
+
+
+def _status_error(status: str, what: str) -> SolverError:
+    reason = _STOPPED.get(status)
+    if reason is not None:
+        return SolverError(f"{what}: the solver stopped before proving optimality ({reason}; status {status}); "
+                           "no rule is reported. Raise [linear_program] time_limit or simplify the constraints.")
+    return SolverError(f"{what}: the solver failed with status {status}; no rule is reported.")
+
+
+# ----------------------------------------------------------------------------------------------
+# The assembled data
+# ----------------------------------------------------------------------------------------------
+# ----------------------------------------------------------------------------------------------
+def dual_degenerate(c: np.ndarray, reduced: np.ndarray, row_dual: np.ndarray) -> bool:
+    """Some nonbasic column or row has a zero reduced cost: another optimal vertex may exist.
+
+    Basic columns and rows have zero reduced cost and there are exactly n_rows of them, so
+    more than n_rows zeros means a nonbasic one is zero as well.
+    """
+    tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+    zeros = int(np.count_nonzero(np.abs(reduced) <= tol) + np.count_nonzero(np.abs(row_dual) <= tol))
+    return zeros > len(row_dual)
+
+
+def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
+    """The most lenient of the optimal rules: minimize harshness over the optimal face of a loaded model.
+
+    With the optimal dual (y, reduced costs) fixed, a feasible point is optimal exactly when it
+    is zero on every column of positive reduced cost, at its upper bound on every column of
+    negative reduced cost, and on the active bound of every row with a non-zero dual
+    (complementary slackness). Those are fixed; the rest is free to move toward leniency.
+    Reduced costs and duals within 1e-9 of the largest cost count as zero, the tie tolerance of
+    the unconstrained rule. The model is restored afterwards (bounds, costs, basis).
+
+    Returns
+    -------
+    x2 : ndarray or None
+        The most lenient optimal point (None if the pass failed; the first point stands).
+    seconds, iterations
+    """
+    basis = h.getBasis()
+    n = len(c)
+    cols = np.arange(n, dtype=np.int32)
+    tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+    at_zero = np.flatnonzero(reduced > tol).astype(np.int32)
+    at_upper = np.flatnonzero((reduced < -tol) & np.isfinite(col_hi)).astype(np.int32)
+    rows = np.flatnonzero(np.abs(y) > tol).astype(np.int32)
+    values = A[rows] @ x
+    active = np.where(np.abs(values - hi[rows]) <= np.abs(values - lo[rows]), hi[rows], lo[rows])
+    h.changeColsBounds(len(at_zero), at_zero, np.zeros(len(at_zero)), np.zeros(len(at_zero)))
+    h.changeColsBounds(len(at_upper), at_upper, col_hi[at_upper], col_hi[at_upper])
+    h.changeRowsBounds(len(rows), rows, active, active)
+    h.changeColsCost(n, cols, harsh)
+    status, seconds = _highs_run(h, "simplex")
+    iterations = _highs_iterations(h)
+    x2 = None
+    if status == "kOptimal":
+        candidate = np.asarray(h.getSolution().col_value)
+        optimum = float((c * x).sum())
+        if float((c * candidate).sum()) <= optimum + 1e-9 * max(1.0, abs(optimum)):
+            x2 = candidate
+    changed = np.concatenate([at_zero, at_upper])
+    h.changeColsBounds(len(changed), changed, np.zeros(len(changed)), col_hi[changed])
+    h.changeRowsBounds(len(rows), rows, lo[rows], hi[rows])
+    h.changeColsCost(n, cols, c)
+    h.setBasis(basis)
+    return x2, seconds, iterations
+
+
+def _harshness(group_share: np.ndarray, n_levels: int) -> np.ndarray:
+    """Share of cases times level / K for every decision probability: what the lenient pass minimizes."""
+    return (group_share[:, None] * np.arange(n_levels)[None, :] / max(n_levels - 1, 1)).reshape(-1)
+
+
+class _HighsDriver:
+    """One HiGHS model kept loaded between solves so that re-solves start from the last basis."""
+
+    def __init__(self, settings: LPSettings):
+        self.settings = settings
+        self.h = None
+        self.best_basis = None
+        self.shape = None
+
+    def _load(self, data: _LPData, c, lo, hi) -> None:
+        basis = self.h.getBasis() if self.h is not None and self.shape == data.A.shape else None
+        h = new_highs()
+        if self.settings.time_limit is not None:
+            h.setOptionValue("time_limit", float(self.settings.time_limit))
+        n = data.n_cols
+        load_lp(h, c, data.A, lo, hi, np.zeros(n), np.ones(n))
+        if basis is not None and basis.valid:
+            h.setBasis(basis)
+        self.h, self.shape = h, data.A.shape
+        self.cols = np.arange(n, dtype=np.int32)
+        self.rows = np.arange(data.n_groups, data.A.shape[0], dtype=np.int32)
+
+    def solve(self, data: _LPData, c, lo, hi, dirty, lenient: bool):
+        if self.h is None or dirty["model"]:
+            self._load(data, c, lo, hi)
+        else:
+            if dirty["cost"]:
+                self.h.changeColsCost(len(self.cols), self.cols, c)
+            if dirty["bounds"] and len(self.rows):
+                G = data.n_groups
+                self.h.changeRowsBounds(len(self.rows), self.rows, lo[G:], hi[G:])
+        warm = self.h.getBasis().valid
+        status, seconds = _highs_run(self.h, "simplex" if warm else self.settings.first_method(data.n_cols))
+        iterations = _highs_iterations(self.h)
+        if status != "kOptimal":
+            return status, None, None, iterations, seconds, False
+        sol = self.h.getSolution()
+        x = np.asarray(sol.col_value)
+        y = np.asarray(sol.row_dual)
+        cumulative = np.concatenate([[0.0], np.cumsum(np.abs(y))])
+        block_duals = cumulative[data.offsets[1:]] - cumulative[data.offsets[:-1]]
+        lenient_pass = False
+        # HiGHS's reduced costs are c - A'y; computing them costs less than converting its list
+        reduced = c - data.At @ y if lenient else None
+        if lenient and dual_degenerate(c, reduced, y):
+            x2, extra_seconds, extra_iter = most_lenient(self.h, data.A, c, x, y, reduced, lo, hi,
+                                                         _harshness(data.group_share, data.n_levels), np.ones(data.n_cols))
+            seconds += extra_seconds
+            iterations += extra_iter
+            if x2 is not None:
+                x, lenient_pass = x2, True
+        self.best_basis = self.h.getBasis()
+        return status, x, block_duals, iterations, seconds, lenient_pass
+
+    def restore_best(self) -> None:
+        if self.h is not None and self.best_basis is not None and self.best_basis.valid:
+            self.h.setBasis(self.best_basis)

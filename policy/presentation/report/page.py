@@ -1,0 +1,191 @@
+"""Rendering the one-file page, and building a report for a scenario end to end."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping, Sequence
+
+from jinja2 import Environment, PackageLoader, StrictUndefined
+from markupsafe import Markup
+
+from policy.cautions import CAUTIONS
+from policy.decision.evaluate import evaluate
+from policy.running.pipeline import Analysis, analyze, as_scenario
+from policy.decision.rules import Rule
+from policy.inputs.scenario import Scenario
+from policy.presentation.report.formatting import fmt_num, fmt_pct, input_value, json_for_script
+from policy.presentation.report.model import ComparedRule, ReportResults, Section, held_rule
+from policy.presentation.report.sweep_section import report_sections
+from policy.presentation.report.live import live_data
+
+
+# Rendering
+# ----------------------------------------------------------------------------------------------
+def _environment() -> Environment:
+    env = Environment(loader=PackageLoader("policy.presentation", "templates"), autoescape=True, undefined=StrictUndefined,
+                      trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+    env.filters["pct"] = fmt_pct
+    env.filters["num"] = fmt_num
+    env.globals["zip"] = zip
+    env.filters["input_value"] = input_value
+    return env
+
+
+def _asset(env: Environment, name: str, closing: str) -> Markup:
+    """A style sheet or script of the package, inlined verbatim; it must not close its element."""
+    text = env.loader.get_source(env, name)[0]
+    if closing in text.lower():
+        raise RuntimeError(f"policy/presentation/templates/{name} contains {closing!r}, which would end its element early.")
+    return Markup(text)
+
+
+@dataclass(frozen=True)
+class Report:
+    """The committee report: the HTML page and the tidy tables written beside it.
+
+    Attributes
+    ----------
+    scenario : Scenario
+    html : str
+        The whole self-contained page.
+    sections : list of Section
+    files : dict
+        Tidy tables by file name (the stages' own output files).
+    results : ReportResults
+        The result objects the page was assembled from.
+    """
+
+    scenario: Scenario
+    html: str
+    sections: tuple[Section, ...]
+    files: Mapping[str, Any]
+    results: ReportResults | None = None
+
+    def output_files(self) -> dict[str, Any]:
+        """``report.html`` and the tables beside it, for :func:`policy.outputs.write_outputs`."""
+        return {"report.html": self.html, **self.files}
+
+    def __str__(self) -> str:
+        return (f"Report on {self.scenario.title}: {len(self.sections)} sections "
+                f"({', '.join(s.title for s in self.sections)}), {len(self.html):,} characters of HTML, "
+                f"{len(self.files)} tables beside it.")
+
+    def _repr_html_(self) -> str:
+        from html import escape
+
+        return f'<iframe srcdoc="{escape(self.html, quote=True)}" style="width:100%;height:40em;border:1px solid #999"></iframe>'
+
+
+def render_report(results: ReportResults | Analysis) -> Report:
+    """Assemble the report from result objects; compute nothing.
+
+    Parameters
+    ----------
+    results : ReportResults or Analysis
+        The analysis, and the results of later stages where available.
+    """
+    if isinstance(results, Analysis):
+        results = ReportResults(results, (held_rule(results),))
+    env = _environment()
+    sections = report_sections(results)
+    sc = results.scenario
+    figure_assumptions = [(s.title, s.key, list(s.assumptions)) for s in sections if s.assumptions]
+    files: dict[str, Any] = {}
+    for s in sections:
+        files.update(s.files)
+    page = env.get_template("report.html.j2").render(
+        title=sc.title,
+        cautions=list(CAUTIONS),
+        sections=sections,
+        figure_assumptions=figure_assumptions,
+        files=sorted(files),
+        data=json_for_script({"live": live_data(results)}),
+        style=_asset(env, "report.css", "</style"),
+        script=_asset(env, "report.js", "</script"),
+    )
+    return Report(sc, page, tuple(sections), files, results)
+
+
+#: what each kind of compared rule is, in the live table
+KIND_NOTES = {
+    "optimal": "the cost-minimizing rule at the scenario's own costs, held fixed while the costs move",
+    "aid": "what the aid recommended",
+    "candidate": "a candidate rule written in the scenario",
+    "observed": "what courts did (decisions observed in the data)",
+}
+
+
+def compared_rules(comparison) -> list[ComparedRule]:
+    """The rules of a comparison, each with its point evaluation, as rules compared live."""
+    out = []
+    for rule, evaluation in zip(comparison.rules, comparison.evaluations):
+        note = KIND_NOTES["optimal"] if rule.kind == "optimal" else (rule.note or KIND_NOTES.get(rule.kind, rule.kind))
+        out.append(ComparedRule(rule, evaluation, note))
+    return out
+
+
+def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
+                 decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
+                 progress: bool = False) -> Report:
+    """Run the stages for a scenario and assemble their results into the committee report.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+    outcome_costs, decision_costs : mapping, optional
+        What-if overrides of the scenario's costs, as for :func:`policy.running.pipeline.analyze`;
+        the page's controls start from these costs.
+    replicates : int, optional
+        Bootstrap replicates of the comparison and of the sweeps' bands (default: the scenario's
+        ``[uncertainty]``).
+    progress : bool
+        Show the bootstrap's progress bar.
+
+    Returns
+    -------
+    Report
+    """
+    from policy.assessment.compare import compare
+
+    scenario = as_scenario(scenario)
+    analysis = analyze(scenario, outcome_costs, decision_costs)
+    comparison, why = None, ""
+    if scenario.data.kind == "risk_level_table":
+        why = ("The risk levels came from a table estimated elsewhere: it holds no observed decisions and no counts, "
+               "so there is nothing courts did to compare and no bootstrap interval.")
+        compared = [held_rule(analysis)]
+    else:
+        comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
+                             decision_costs=decision_costs, progress=progress)
+        compared = compared_rules(comparison)
+    if analysis.constrained is not None:
+        compared.append(held_constrained_rule(analysis))
+    sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
+                                      replicates, progress)
+    points = tuple(res.constrained for res in sweeps if res.constrained is not None)
+    return render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map))
+
+
+def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mapping[str, float] | None = None,
+                decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
+                progress: bool = False) -> tuple[list, Any]:
+    """One exact sweep per outcome kind's cost ratio, with the compared rules' regret, bootstrap
+    bands where the data hold counts and, with constraints, the constrained optimum re-solved
+    along it; and the lenient map of the first two outcome kinds (:func:`policy.assessment.sweep.sweep_scenario`)."""
+    from policy.assessment.sweep import sweep_scenario
+
+    keys = list(scenario.outcome_keys)
+    bands = replicates if scenario.data.kind != "risk_level_table" else 0
+    sweeps = [sweep_scenario(scenario, [k], rules=list(rules), outcome_costs=outcome_costs,
+                             decision_costs=decision_costs, replicates=bands, progress=progress) for k in keys]
+    lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs)
+                   if len(keys) >= 2 else None)
+    return sweeps, lenient_map
+
+
+def held_constrained_rule(analysis: Analysis) -> ComparedRule:
+    """The constrained optimal rule at the scenario's costs, compared while the costs move."""
+    con = analysis.constrained
+    return ComparedRule(con.rule, evaluate(con.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule),
+                        "the constrained optimal rule at the scenario's own costs, held fixed while the costs move")
