@@ -30,7 +30,7 @@ from .test_report import HOSTILE, hostile_scenario
 CHROMIUM = os.environ.get("POLICY_TEST_CHROMIUM", "/usr/bin/chromium")
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync"]
-INSTALL = "install Debian's browser with `apt-get install -y chromium` (.ci/run does) and the test extra (playwright)"
+INSTALL = "run `sh scripts/test-setup.sh` (installs Debian's chromium package; the README's test command runs it) and install the test extra (playwright)"
 #: bootstrap replicates of the reports built here (the comparison's own tests check its intervals)
 REPLICATES = 20
 

@@ -1,4 +1,4 @@
-"""Cost-ratio sweeps and lenient maps (policy/assessment/sweep.py)."""
+"""Cost-ratio sweeps and lenient maps (policy/assessment/sweep/)."""
 
 from __future__ import annotations
 

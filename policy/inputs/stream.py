@@ -3,7 +3,7 @@
 A statewide case table may hold tens of millions of cases: far more than fit in memory as
 Python objects, yet every figure depends on them only through their counts per cell. This
 module reads a Parquet or CSV case table in blocks of :data:`BLOCK_ROWS` rows, counts each
-block with the same code as an in-memory table (:func:`policy.inputs.cells.count_block`: integer
+block with the same code as an in-memory table (:func:`policy.inputs.counting.count_block`: integer
 codes, one mixed-radix key, one ``numpy.bincount``) and merges the blocks' counts by their cell
 values. Memory is bounded by the number of cells, plus eight bytes per case for the check that
 case ids are unique (below), never by the case rows themselves.
@@ -15,7 +15,7 @@ case ids are unique (below), never by the case rows themselves.
   from their distinct values by pandas' own parser, so a column such as ``1, 2, ..., 12`` gets
   integer categories (sorted 1, 2, ..., 12) exactly as when the whole file is read at once,
   whatever the values of one chunk.
-- **Blocks are aligned with the in-memory aggregation's chunks** (:data:`policy.inputs.cells.CHUNK_ROWS`
+- **Blocks are aligned with the in-memory aggregation's chunks** (:data:`policy.inputs.counting.CHUNK_ROWS`
   rows), so per-cell cost sums are added in the same order and the cell table is identical, to
   the bit, to :meth:`policy.inputs.cells.CellTable.from_cases` on the whole table (tested).
 - **Case ids** are checked for duplicates over the whole file with bounded memory: each id
