@@ -480,6 +480,17 @@ def _comparison_table(comparison) -> Table:
     return table
 
 
+def _print_ranges(frame, unit: str) -> None:
+    """Each rule's expected cost range at Gamma = 2 and under the monotone bounds (all in comparison_ranges.csv)."""
+    console.print(f"Expected cost per 1,000 cases ({unit}) if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
+                  "regret ranges in comparison_regret_ranges.csv):", style="bold")
+    for name, rows in frame.groupby("rule", sort=False):
+        parts = [f"{label} {r['cost_per_1000_cases_lower']:,.0f} to {r['cost_per_1000_cases_upper']:,.0f}"
+                 for key, label in (("gamma=2", "Gamma = 2:"), ("bounds", "monotone bounds:"))
+                 for _, r in rows[rows["assumption"] == key].iterrows()]
+        console.print(f"  - {name}: " + "; ".join(parts))
+
+
 @command
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -510,6 +521,8 @@ def compare(
             console.print(line)
         console.print("The table below is model-based: it assumes what is listed under it.")
     console.print(_comparison_table(comparison))
+    if comparison.ranges is not None:
+        _print_ranges(comparison.ranges[0], comparison.costs.unit)
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")
     for a in assumptions_for("observed_rule"):
