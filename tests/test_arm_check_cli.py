@@ -76,3 +76,13 @@ def test_sweep_adds_the_datas_gamma(tmp_path, capsys):
     assert meta["gamma_lower_from_arm_check"] in meta["gammas"]
     assert max(meta["gammas"]) >= 5
     assert _after_cautions(out).startswith("WARNING")
+
+
+def test_report_page_shows_the_verdict_under_the_cautions():
+    from policy.presentation.report import render_report
+    from policy.running.pipeline import analyze
+
+    html = render_report(analyze(CONFOUNDED)).html
+    cautions, arm, contents = html.find('id="cautions"'), html.find('id="arm-check"'), html.find('aria-label="contents"')
+    assert 0 < cautions < arm < contents
+    assert "<strong>WARNING: the randomized arm contradicts unconfoundedness" in html
