@@ -86,3 +86,18 @@ def test_report_page_shows_the_verdict_under_the_cautions():
     cautions, arm, contents = html.find('id="cautions"'), html.find('id="arm-check"'), html.find('aria-label="contents"')
     assert 0 < cautions < arm < contents
     assert "<strong>WARNING: the randomized arm contradicts unconfoundedness" in html
+
+
+def test_report_comparison_opens_with_the_assumption_free_figure():
+    from policy.assessment.compare import compare
+    from policy.presentation.report import render_report
+    from policy.presentation.report.model import ReportResults
+    from policy.presentation.report.page import compared_rules
+    from policy.running.pipeline import analyze
+
+    comparison = compare(CONFOUNDED, replicates=0)
+    html = render_report(ReportResults(analyze(CONFOUNDED), tuple(compared_rules(comparison)), (), comparison)).html
+    section = html[html.find('<section id="comparison"'):]
+    assert section.find("Assumption-free comparison of the arms") < section.find("<table")
+    assert "difference (shown - not shown)" in section
+

@@ -334,6 +334,7 @@ def comparison_section(results: ReportResults) -> Section:
             "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
             "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
             "observed_assumptions": assumptions_for("observed_rule"),
+            "assumption_free": cmp.arm_costs.lines() if getattr(cmp, "arm_costs", None) is not None else [],
         },
         assumptions=tuple(assumptions_for("evaluation")),
         files=cmp.output_files(),
