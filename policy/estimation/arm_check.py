@@ -252,8 +252,7 @@ class ArmCheck:
         and the direction in words.
     cells : DataFrame
         Every stratum used: cell columns, outcome, level, records and events per arm, rates,
-        the difference a - E a, the stratum's contribution to CMH_d and its reconciling Gamma
-        (lower confidence value).
+        the difference a - E a and the stratum's contribution to CMH_d.
     alpha : float
     p_value : float
         Bonferroni-adjusted smallest p-value over outcome kinds.
@@ -284,7 +283,7 @@ class ArmCheck:
         """The strata contributing most to the statistics of the outcome kinds that reject (or
         to all, when none rejects), largest contribution first."""
         n = self.top if n is None else n
-        rejecting = set(self.tests.loc[self.tests["p_value"] * len(self.tests) < self.alpha, "outcome"])
+        rejecting = set(self.tests.loc[self.tests["rejects"], "outcome"])
         frame = self.cells if not rejecting else self.cells[self.cells["outcome"].isin(rejecting)]
         return frame.sort_values("contribution", ascending=False, kind="stable").head(n)
 
@@ -298,7 +297,8 @@ class ArmCheck:
                     f"restriction): within cells and decision levels, outcome rates differ with and without the aid "
                     f"(worst: {worst['outcome']}, p = {worst['p_value']:.2g}; Bonferroni-adjusted p = "
                     f"{self.p_value:.2g} < {self.alpha:g}). The data show confounding of at least Gamma = "
-                    f"{_fmt_gamma(self.gamma_lower)} ({1 - self.alpha:.0%} confidence; sensitivity results below that Gamma are contradicted by the data). Point figures may be wrong: "
+                    f"{_fmt_gamma(self.gamma_lower)} ({1 - self.alpha:.0%} confidence; sensitivity results below "
+                    "that Gamma are contradicted by the data). Point figures may be wrong: "
                     "rely on the monotone-response bounds and the sensitivity results at Gamma of at least that value.")
         return (f"Arm check: within cells and decision levels, outcome rates with and without the aid agree "
                 f"(smallest p = {worst['p_value']:.2g}, Bonferroni-adjusted {self.p_value:.2g} >= {self.alpha:g}). "
@@ -362,6 +362,8 @@ _STRATUM_COLUMNS = ("outcome", "level", "records_not_shown", "events_not_shown",
 
 
 def _fmt_gamma(g: float) -> str:
+    if np.isnan(g):
+        return "(not computed)"
     return "infinity" if not np.isfinite(g) else f"{g:.2f}"
 
 
