@@ -100,4 +100,5 @@ def test_report_comparison_opens_with_the_assumption_free_figure():
     section = html[html.find('<section id="comparison"'):]
     assert section.find("Assumption-free comparison of the arms") < section.find("<table")
     assert "difference (shown - not shown)" in section
+    assert "if unconfoundedness fails" in section and "monotone bounds" in section
 
