@@ -447,7 +447,8 @@ def test_cli_sweep_writes_tables_and_figures(tmp_path, capsys):
     files = sorted(p.name for p in (tmp_path / "one").iterdir())
     assert files == sorted(["sweep.json", "sweep_breakpoints.csv", "sweep_lenient.csv", "sweep_lenient_shares.csv",
                             "sweep_regret.csv", "sweep_segments.csv", "sweep_shares.csv", "sweep_shares.svg",
-                            "sweep_regret.svg", "sweep_bands.csv", "sweep_threshold_intervals.csv"])
+                            "sweep_regret.svg", "sweep_bands.csv", "sweep_threshold_intervals.csv",
+                            "arm_check.json", "arm_check_cells.csv"])
     bands = pd.read_csv(tmp_path / "one" / "sweep_bands.csv")
     assert (bands["lower"] <= bands["upper"] + 1e-12).all() and bands["ratio"].between(0, 120).all()
     assert json.loads((tmp_path / "one" / "sweep.json").read_text())["uncertainty"]["replicates"] == 20

@@ -311,6 +311,13 @@ class Comparison:
     evaluations: list
     result: BootstrapResult
     notes: tuple[str, ...] = field(default_factory=tuple)
+    #: the randomized arm's test of unconfoundedness (policy.estimation.arm_check), when the data have an arm
+    arm_check: Any = None
+    #: realized cost of each arm, assumption-free (policy.assessment.arm_costs.ArmCosts), when the data have an arm
+    arm_costs: Any = None
+    #: each rule's cost and rates, and its regret against each other rule, under each Gamma and the bounds
+    #: (policy.assessment.rule_ranges): two DataFrames, or None
+    ranges: Any = None
 
     # -- helpers -------------------------------------------------------------------------------
     def _fig(self, name: str):
@@ -499,6 +506,13 @@ class Comparison:
             },
             "cautions": list(CAUTIONS),
         }
+        if self.arm_check is not None:
+            files.update(self.arm_check.output_files())
+        if self.ranges is not None:
+            files["comparison_ranges.csv"], files["comparison_regret_ranges.csv"] = self.ranges
+        if self.arm_costs is not None:
+            files["arm_costs.csv"] = self.arm_costs.to_frame()
+            files["compare.json"]["assumption_free"] = self.arm_costs.summary()
         return files
 
     def __str__(self) -> str:
@@ -603,4 +617,21 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         if failed is not None and failed.shape[0] and failed[:, k].any():
             notes.append(f"{rule.name}: no solution in {int(failed[:, k].sum())} of {result.n_replicates} replicates "
                          "(left out of its intervals)")
-    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes))
+    from policy.assessment.arm_costs import realized_arm_costs
+    from policy.assessment.rule_ranges import regret_ranges, rule_ranges
+    from policy.estimation.arm_check import arm_check
+    from policy.estimation.bounds import robust_assumptions
+    from policy.estimation.bounds_table import SENSITIVITY_GAMMAS
+
+    arm_costs = check = None
+    gammas = SENSITIVITY_GAMMAS
+    if cells.has_arm:
+        arm_costs = realized_arm_costs(cells, costs, settings.replicates, scenario.seed if seed is None else seed,
+                                       settings.resampling, settings.interval, runner=runner, workers=workers,
+                                       arm_labels=tuple(r.name for r in observed))
+        check = arm_check(cells)
+        if 1 < check.gamma_lower < np.inf:
+            gammas = gammas + (round(check.gamma_lower, 2),)
+    intervals = robust_assumptions(rl, cells, gammas, True)
+    ranges = (rule_ranges(all_rules, rl, costs, intervals), regret_ranges(all_rules, rl, costs, intervals))
+    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), check, arm_costs, ranges)

@@ -4,9 +4,10 @@ Everything here is made up for demonstration: the county, its risk aid (the Quar
 Screen, 0-12 points in five tiers) and its recommendation table, the courts' habits and the
 people. The simulator draws each case's risk levels (principal strata) from a known model that
 satisfies monotonicity, draws the court's decision from the cell (so unconfoundedness given the
-cell holds by construction), with the aid shown to a random half of the hearings, and records
+cell holds by construction; in :data:`CONFOUNDED` the courts also act on a factor that neither the
+cells nor the screen record), with the aid shown to a random half of the hearings, and records
 the outcome of the decision actually made. :func:`true_risk_levels` gives the exact per-cell
-truth for recovery and coverage tests.
+truth for recovery and coverage tests, :func:`true_arm_rates` the exact rate per cell, arm and level.
 """
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ from scipy.special import expit
 from policy.inputs.cells import CellLayout
 from policy.estimation.strata import RiskLevels
 
-__all__ = ["simulate_cases", "true_risk_levels", "DEMO", "builtin_scenarios", "demo_scenario_path"]
+__all__ = ["simulate_cases", "true_risk_levels", "true_arm_rates", "DEMO", "CONFOUNDED", "builtin_scenarios", "demo_scenario_path"]
 
 LEVELS = ("recognizance", "supervision", "bond")
 OUTCOMES = ("missed_court", "new_offense", "new_violent")
@@ -75,6 +76,14 @@ class DemoModel:
     court_race_with_aid: tuple = (0.0, 0.12, 0.06)
     court_tier_with_aid: float = 0.45  # per tier above 3, when the aid is shown
     court_sex: tuple = (-0.25, 0.0)
+    # a factor neither the cells nor the screen record: ties to the community that the court hears
+    # about at the hearing (share of cases that have them, their effect on the log-odds of missed
+    # court and new offense, and the court's reaction without and with the screen shown). Absent
+    # in the demo (share 0: unconfoundedness given the cell holds); see CONFOUNDED.
+    ties_p: float = 0.0
+    ties_eff: tuple = (0.0, 0.0)
+    court_ties: float = 0.0
+    court_ties_with_aid: float = 0.0
     # days held if a secured bond is set, by charge class; cost per day
     bond_days: tuple = (6.0, 21.0, 40.0)
     cost_per_day: float = 96.0  # 85 jail + 11 liberty (see scenarios/demo.toml for sources)
@@ -84,6 +93,9 @@ class DemoModel:
 
 
 DEMO = DemoModel()
+#: A confounded variant: courts hear of each person's ties to the community, which lower the risk and
+#: which neither the cells nor the screen record, and lean on them less when the screen is shown.
+CONFOUNDED = DemoModel(ties_p=0.5, ties_eff=(-1.6, -1.3), court_ties=-2.6, court_ties_with_aid=-0.4)
 CELL_COLUMNS = ("age_band", "charge_class", "prior_record", "pending_case", "aid_tier", "sex", "race_group")
 
 
@@ -98,13 +110,14 @@ def _recommendation(tier: np.ndarray, charge: np.ndarray) -> np.ndarray:
     return np.where((tier == 4) & (charge == 2), 2, rec)
 
 
-def _p_recognizance(age, charge, prior, pending, missed, sex, m: DemoModel) -> np.ndarray:
+def _p_recognizance(age, charge, prior, pending, missed, sex, ties, m: DemoModel) -> np.ndarray:
     """P(outcome | recognizance) for missed court and new offense, shape (..., 2)."""
     out = []
     for j in range(2):
         eta = (m.base[j] + np.take([a[j] for a in m.age_eff], age) + np.take([c[j] for c in m.charge_eff], charge)
                + np.take([p[j] for p in m.prior_eff], prior) + m.pending_eff[j] * pending
-               + np.take([e[j] for e in m.missed_eff], missed) + np.take([s[j] for s in m.sex_eff], sex))
+               + np.take([e[j] for e in m.missed_eff], missed) + np.take([s[j] for s in m.sex_eff], sex)
+               + m.ties_eff[j] * ties)
         out.append(expit(eta))
     return np.stack(out, axis=-1)
 
@@ -118,11 +131,12 @@ def _p_all(p0: np.ndarray, charge: np.ndarray, m: DemoModel) -> np.ndarray:
     return np.stack([p_mc, p_no, p_v], axis=-2)
 
 
-def _court_probabilities(age, charge, prior, pending, tier, sex, race, arm, m: DemoModel) -> np.ndarray:
+def _court_probabilities(age, charge, prior, pending, tier, sex, race, arm, ties, m: DemoModel) -> np.ndarray:
     eta = (np.take(m.court_age, age) + np.take(m.court_charge, charge) + np.take(m.court_prior, prior)
            + m.court_pending * pending + np.take(m.court_sex, sex)
-           + np.where(arm == 1, np.take(m.court_race_with_aid, race) + m.court_tier_with_aid * (tier - 3),
-                      np.take(m.court_race, race)))
+           + np.where(arm == 1, np.take(m.court_race_with_aid, race) + m.court_tier_with_aid * (tier - 3)
+                      + m.court_ties_with_aid * ties,
+                      np.take(m.court_race, race) + m.court_ties * ties))
     c1, c2 = m.court_cuts
     f1, f2 = expit(eta - c1), expit(eta - c2)  # P(D >= 1), P(D >= 2)
     return np.stack([1 - f1, f1 - f2, f2], axis=-1)
@@ -164,7 +178,9 @@ def simulate_cases(n: int = 20_000, seed: int | np.random.Generator | None = 202
     points = (np.take(m.points_age, age) + np.take(m.points_charge, charge) + np.take(m.points_prior, prior)
               + m.points_pending * pending + np.take(m.points_missed, missed))
     tier = _tier(points, m)
-    p = _p_all(_p_recognizance(age, charge, prior, pending, missed, sex, m), charge, m)  # (n, 3, 3)
+    # drawn only when the model has the factor, so the demo's own draws stay as they were
+    ties = (rng.random(n) < m.ties_p).astype(np.int64) if m.ties_p > 0 else np.zeros(n, dtype=np.int64)
+    p = _p_all(_p_recognizance(age, charge, prior, pending, missed, sex, ties, m), charge, m)  # (n, 3, 3)
     # risk level R_j = number of levels under which the outcome occurs: P(R > d) = p_d
     u = rng.random(n)
     risk = np.empty((n, 3), dtype=np.int64)
@@ -175,7 +191,7 @@ def simulate_cases(n: int = 20_000, seed: int | np.random.Generator | None = 202
     violent = rng.random(n) < np.take(m.violent_share, charge)
     risk[:, 2] = np.where(violent, risk[:, 1], 0)
     arm = (rng.random(n) < m.aid_share).astype(np.int64)
-    probs = _court_probabilities(age, charge, prior, pending, tier, sex, race, arm, m)
+    probs = _court_probabilities(age, charge, prior, pending, tier, sex, race, arm, ties, m)
     decision = (rng.random(n)[:, None] > np.cumsum(probs, axis=1)[:, :2]).sum(axis=1)
     outcome = (decision[:, None] < risk).astype(np.float64)
     record_missing = rng.random(n) < m.missing_share
@@ -203,11 +219,46 @@ def simulate_cases(n: int = 20_000, seed: int | np.random.Generator | None = 202
     return frame, truth
 
 
+def _enumerate(m: DemoModel) -> dict:
+    """Every combination of the cell columns and the factors the cell does not hold, with its
+    probability, outcome probabilities, court decision probabilities per arm and cell position."""
+    ties_values = range(2) if m.ties_p > 0 else range(1)
+    combos = np.array(list(itertools.product(range(3), range(3), range(3), range(2), range(3), range(2), range(3),
+                                             ties_values)))
+    age, charge, prior, pending, missed, sex, race, ties = combos.T
+    prob = (np.take(m.age_p, age) * np.take(m.charge_p, charge) * np.take(m.race_p, race) * np.take(m.sex_p, sex)
+            * np.asarray(m.prior_p_by_race)[race, prior] * np.where(pending == 1, m.pending_p, 1 - m.pending_p)
+            * np.asarray(m.missed_before_p_by_age)[age, missed] * np.where(ties == 1, m.ties_p, 1 - m.ties_p))
+    points = (np.take(m.points_age, age) + np.take(m.points_charge, charge) + np.take(m.points_prior, prior)
+              + m.points_pending * pending + np.take(m.points_missed, missed))
+    tier = _tier(points, m)
+    p = _p_all(_p_recognizance(age, charge, prior, pending, missed, sex, ties, m), charge, m)
+    court = np.stack([_court_probabilities(age, charge, prior, pending, tier, sex, race, np.full_like(age, a), ties, m)
+                      for a in (0, 1)], axis=1)
+    cell_codes = [age, charge, prior, pending, tier - 1, sex, race]
+    sizes = [3, 3, 3, 2, 5, 2, 3]
+    key = np.ravel_multi_index(cell_codes, sizes)
+    cells, pos = np.unique(key, return_inverse=True)
+    parts = np.unravel_index(cells, sizes)
+    cats = [list(m.ages), list(m.charges), list(m.priors), ["no", "yes"], [1, 2, 3, 4, 5], list(m.sexes), list(m.races)]
+    frame = pd.DataFrame({c: pd.Categorical.from_codes(part.astype(np.int64), categories=k, ordered=True)
+                          for c, part, k in zip(CELL_COLUMNS, parts, cats)})
+    return {"prob": prob, "p": p, "court": court, "pos": pos, "frame": frame}
+
+
+def _cell_sum(pos: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Sum of ``values`` (n_combos, ...) over the combinations of each cell."""
+    flat = values.reshape(len(pos), -1)
+    out = np.stack([np.bincount(pos, weights=flat[:, k]) for k in range(flat.shape[1])], axis=1)
+    return out.reshape((-1,) + values.shape[1:])
+
+
 def true_risk_levels(model: DemoModel = DEMO) -> tuple[RiskLevels, np.ndarray]:
     """The exact population truth of the simulator per cell.
 
-    Enumerates every combination of the cell columns and the factor the cell does not hold
-    (earlier missed appearances), with its probability, and mixes within cells.
+    Enumerates every combination of the cell columns and the factors the cell does not hold
+    (earlier missed appearances; ties to the community where the model has them), with its
+    probability, and mixes within cells.
 
     Returns
     -------
@@ -217,30 +268,11 @@ def true_risk_levels(model: DemoModel = DEMO) -> tuple[RiskLevels, np.ndarray]:
         The court's exact decision distribution per cell and arm.
     """
     m = model
-    combos = np.array(list(itertools.product(range(3), range(3), range(3), range(2), range(3), range(2), range(3))))
-    age, charge, prior, pending, missed, sex, race = combos.T
-    prob = (np.take(m.age_p, age) * np.take(m.charge_p, charge) * np.take(m.race_p, race) * np.take(m.sex_p, sex)
-            * np.asarray(m.prior_p_by_race)[race, prior] * np.where(pending == 1, m.pending_p, 1 - m.pending_p)
-            * np.asarray(m.missed_before_p_by_age)[age, missed])
-    points = (np.take(m.points_age, age) + np.take(m.points_charge, charge) + np.take(m.points_prior, prior)
-              + m.points_pending * pending + np.take(m.points_missed, missed))
-    tier = _tier(points, m)
-    p = _p_all(_p_recognizance(age, charge, prior, pending, missed, sex, m), charge, m)
-    court = np.stack([_court_probabilities(age, charge, prior, pending, tier, sex, race, np.full_like(age, a), m)
-                      for a in (0, 1)], axis=1)
-    cell_codes = [age, charge, prior, pending, tier - 1, sex, race]
-    sizes = [3, 3, 3, 2, 5, 2, 3]
-    key = np.ravel_multi_index(cell_codes, sizes)
-    cells, pos = np.unique(key, return_inverse=True)
+    e = _enumerate(m)
+    prob, pos, frame = e["prob"], e["pos"], e["frame"]
     w = np.bincount(pos, weights=prob)
-    p_cell = np.stack([np.bincount(pos, weights=prob * p[:, j, d]) for j in range(3) for d in range(3)], axis=1)
-    p_cell = (p_cell / w[:, None]).reshape(-1, 3, 3)
-    court_cell = np.stack([np.bincount(pos, weights=prob * court[:, a, d]) for a in range(2) for d in range(3)], axis=1)
-    court_cell = (court_cell / w[:, None]).reshape(-1, 2, 3)
-    parts = np.unravel_index(cells, sizes)
-    cats = [list(m.ages), list(m.charges), list(m.priors), ["no", "yes"], [1, 2, 3, 4, 5], list(m.sexes), list(m.races)]
-    frame = pd.DataFrame({c: pd.Categorical.from_codes(part.astype(np.int64), categories=k, ordered=True)
-                          for c, part, k in zip(CELL_COLUMNS, parts, cats)})
+    p_cell = _cell_sum(pos, prob[:, None, None] * e["p"]) / w[:, None, None]
+    court_cell = _cell_sum(pos, prob[:, None, None] * e["court"]) / w[:, None, None]
     layout = CellLayout(frame, ("sex", "race_group"), ("aid_tier", "charge_class"), "aid_tier")
     truth = RiskLevels(
         layout=layout,
@@ -256,6 +288,26 @@ def true_risk_levels(model: DemoModel = DEMO) -> tuple[RiskLevels, np.ndarray]:
         source="the simulator's exact population truth",
     )
     return truth, court_cell
+
+
+def true_arm_rates(model: DemoModel = DEMO) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
+    """The exact outcome rate of every cell x arm x decision level, as the data would show it.
+
+    Returns
+    -------
+    cells : DataFrame
+        The cell columns (same cells and order as :func:`true_risk_levels`).
+    rates : ndarray of shape (n_cells, 2 arms, 3 outcome kinds, 3 levels)
+        P(Y_j = 1 | D = d, x, arm): equal across arms exactly when the court acts on the cell alone.
+    decision_probabilities : ndarray of shape (n_cells, 2 arms, 3 levels)
+    """
+    e = _enumerate(model)
+    prob, pos = e["prob"], e["pos"]
+    w = np.bincount(pos, weights=prob)
+    mass = prob[:, None, None] * e["court"]  # (combos, arm, level)
+    both = _cell_sum(pos, mass[:, :, None, :] * e["p"][:, None, :, :])  # (cells, arm, J, L)
+    at = _cell_sum(pos, mass)  # (cells, arm, L)
+    return e["frame"], both / at[:, :, None, :], at / w[:, None, None]
 
 
 def builtin_scenarios() -> Path:

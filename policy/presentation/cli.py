@@ -114,6 +114,16 @@ def show_assumptions(figure: str) -> None:
         console.print(f"  - {a}")
 
 
+def show_arm_check(check) -> None:
+    """The randomized arm's verdict on unconfoundedness (printed right after the cautions)."""
+    if check is None:
+        return
+    lines = check.lines()
+    console.print(lines[0], style="bold red" if check.rejects else "green")
+    for line in lines[1:]:
+        console.print(line)
+
+
 def show_written(paths) -> None:
     console.print(f"Wrote {len(paths)} files to {paths[0].parent if paths else '?'}: "
                   + ", ".join(p.name for p in paths))
@@ -185,23 +195,32 @@ def check(scenario: Path = typer.Argument(..., help="Scenario file (TOML).")):
         table.add_row(key, str(value))
     console.print(table)
     console.print("The scenario and its data are valid.", style="green")
+    show_arm_check(report.arm_check)
 
 
 @command
 def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption):
-    """Estimate risk levels per cell and write the cell table and risk-level tables."""
+    """Estimate risk levels per cell and write the cell table, risk-level tables and their bounds under weaker assumptions."""
     from policy.outputs import write_outputs
     from policy.running.pipeline import as_scenario, estimate as run_estimate
+
+    from policy.estimation.arm_check import arm_check
+    from policy.estimation.bounds_table import SENSITIVITY_GAMMAS, bounds_table
 
     sc = as_scenario(scenario)
     cells, rl = run_estimate(sc)
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
+    check = arm_check(cells) if cells is not None and cells.has_arm else None
     if cells is not None:
-        files = {"cells.csv": cells.counts_frame(sc), **files}
+        gammas = SENSITIVITY_GAMMAS + ((round(check.gamma_lower, 2),) if check is not None and 1 < check.gamma_lower < float("inf") else ())
+        files = {"cells.csv": cells.counts_frame(sc), **files, "risk_bounds.csv": bounds_table(rl, cells, gammas)}
+    if check is not None:
+        files.update(check.output_files())
     paths = write_outputs(out, files)
     console.print(_risk_table(rl))
     show_assumptions("risk_levels")
     show_cautions()
+    show_arm_check(check)
     show_written(paths)
 
 
@@ -214,6 +233,7 @@ def _print_analysis(analysis) -> None:
         _print_constrained(analysis.constrained)
     show_assumptions("rule")
     show_cautions()
+    show_arm_check(getattr(analysis, "arm_check", None))
 
 
 def _constraint_table(constrained) -> Table:
@@ -350,7 +370,7 @@ def sweep(
     range_: Optional[List[str]] = typer.Option(None, "--range", help="LOW:HIGH of each ratio, in --ratio order (default 0 to 4x the scenario's)."),
     scale: str = typer.Option("linear", "--scale", help="linear or log."),
     per: Optional[str] = typer.Option(None, "--per", help="Decision level whose mean cost divides the swept cost (default the harshest)."),
-    gamma: Optional[List[float]] = typer.Option(None, "--gamma", help="Sensitivity parameter of a robust region (repeatable; default 1.1, 1.25, 1.5)."),
+    gamma: Optional[List[float]] = typer.Option(None, "--gamma", help="Sensitivity parameter of a robust region (repeatable; default 1.1, 1.25, 1.5, 2, 3, 5 and, with a randomized arm, the data's own lower bound Gamma_low)."),
     no_bounds: bool = typer.Option(False, "--no-bounds", help="Leave out the monotone-response bounds."),
     missing: str = typer.Option("worst_case", "--missing", help="Missing outcome records in the bounds: worst_case or ignore."),
     share: float = typer.Option(0.5, "--share", help="Share of cases in 'lenient stays optimal for this share up to ratio Y'."),
@@ -405,6 +425,8 @@ def sweep(
             vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
             interval=interval, outcomes=outcomes, workers=workers, progress=progress, runner=runner)
     files = sweep_files(result, formats, table_points)
+    if result.arm_check is not None:
+        files.update(result.arm_check.output_files())
     drawn = [name for name, content in files.items() if callable(content)]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
                    TimeElapsedColumn(), console=err_console, transient=True, disable=not progress)
@@ -424,6 +446,7 @@ def sweep(
     for line in assumption_lines("robust_sweep" if len(result.assumptions) > 1 else "sweep", result.assumptions)[:-1]:
         console.print(f"  - {line}")
     show_cautions()
+    show_arm_check(result.arm_check)
     show_written(paths)
 
 
@@ -457,6 +480,17 @@ def _comparison_table(comparison) -> Table:
     return table
 
 
+def _print_ranges(frame, unit: str) -> None:
+    """Each rule's expected cost range at Gamma = 2 and under the monotone bounds (all in comparison_ranges.csv)."""
+    console.print(f"Expected cost per 1,000 cases ({unit}) if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
+                  "regret ranges in comparison_regret_ranges.csv):", style="bold")
+    for name, rows in frame.groupby("rule", sort=False):
+        parts = [f"{label} {r['cost_per_1000_cases_lower']:,.0f} to {r['cost_per_1000_cases_upper']:,.0f}"
+                 for key, label in (("gamma=2", "Gamma = 2:"), ("bounds", "monotone bounds:"))
+                 for _, r in rows[rows["assumption"] == key].iterrows()]
+        console.print(f"  - {name}: " + "; ".join(parts))
+
+
 @command
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -482,7 +516,13 @@ def compare(
     console.print(comparison.scenario.title, style="bold")
     console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
                   f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
+    if comparison.arm_costs is not None:
+        for line in comparison.arm_costs.lines():
+            console.print(line)
+        console.print("The table below is model-based: it assumes what is listed under it.")
     console.print(_comparison_table(comparison))
+    if comparison.ranges is not None:
+        _print_ranges(comparison.ranges[0], comparison.costs.unit)
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")
     for a in assumptions_for("observed_rule"):
@@ -496,6 +536,7 @@ def compare(
     for note in comparison.notes:
         console.print(f"Note: {note}")
     show_cautions()
+    show_arm_check(comparison.arm_check)
     show_written(paths)
 
 

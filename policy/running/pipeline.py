@@ -23,6 +23,7 @@ from policy.decision.evaluate import Evaluation, evaluate
 from policy.decision.rules import Rule
 from policy.inputs.scenario import Scenario, as_scenario, load_scenario
 from policy.decision.solve import optimal_rule
+from policy.estimation.arm_check import ArmCheck, arm_check
 from policy.estimation.from_scenario import estimate, estimate_risk_levels
 from policy.estimation.strata import RiskLevels
 
@@ -37,6 +38,8 @@ class CheckReport:
     cells: CellTable | None
     risk_levels: RiskLevels | None
     findings: dict[str, Any]
+    #: the randomized arm's test of unconfoundedness, when the data have an arm
+    arm_check: ArmCheck | None = None
 
     def __str__(self) -> str:
         lines = [f"Scenario {self.scenario.file}: {self.scenario.title}"]
@@ -74,7 +77,10 @@ def check(scenario: Scenario | str | Path) -> CheckReport:
         "cell-levels never observed, per outcome": s["cell_levels_never_observed"],
         "share of cases with the outcome observed": {k: round(v, 4) for k, v in s["outcome_observed_share"].items()},
     }
-    return CheckReport(scenario, cells, None, findings)
+    check_arms = arm_check(cells) if cells.has_arm else None
+    if check_arms is not None:
+        findings["arm check (unconfoundedness)"] = "rejected" if check_arms.rejects else "not rejected"
+    return CheckReport(scenario, cells, None, findings, check_arms)
 
 
 @dataclass(frozen=True)
@@ -90,6 +96,8 @@ class Analysis:
     extra_files: Mapping[str, Any] = field(default_factory=dict)
     #: the constrained optimal rule (policy.decision.constrained.ConstrainedRule) when constraints were declared
     constrained: Any = None
+    #: the randomized arm's test of unconfoundedness, when the data have an arm
+    arm_check: ArmCheck | None = None
 
     def output_files(self) -> dict[str, Any]:
         """Every output file of ``solve`` by name (documented in docs/outputs.md)."""
@@ -120,6 +128,8 @@ class Analysis:
         }
         if self.constrained is not None:
             files.update(self.constrained.output_files())
+        if self.arm_check is not None:
+            files.update(self.arm_check.output_files())
         files.update(self.extra_files)
         return files
 
@@ -157,7 +167,9 @@ def analyze(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] 
     if specs:
         settings = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
         constrained = ConstrainedProblem(rl, costs, specs, settings=settings).solve()
-    return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs), constrained=constrained)
+    check_arms = arm_check(cells) if cells is not None and cells.has_arm else None
+    return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs), constrained=constrained,
+                    arm_check=check_arms)
 
 
 def write_demo_inputs(folder: str | Path, cases: int | None = None) -> tuple[Path, pd.DataFrame]:

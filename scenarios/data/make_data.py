@@ -20,7 +20,7 @@ COARSE_CELLS = ["charge_class", "prior_record", "aid_tier", "sex", "race_group"]
 
 def build(folder: Path) -> list[Path]:
     from policy import CellTable, estimate_risk_levels, load_scenario
-    from policy.demo.quarrow import simulate_cases
+    from policy.demo.quarrow import CONFOUNDED, simulate_cases
 
     folder.mkdir(parents=True, exist_ok=True)
     written = []
@@ -55,6 +55,15 @@ def build(folder: Path) -> list[Path]:
     table = CellTable.from_cases(frame, obs_scenario)
     path = folder / "quarrow_detention_counts.csv"
     table.counts_frame(obs_scenario).to_csv(path, index=False)
+    written.append(path)
+
+    # 4. 20,000 hearings of a confounded Quarrow County: its courts also act on the person's ties to
+    #    the community, which lower the risk and which neither the cells nor the screen record
+    confounded_scenario = load_scenario(HERE.parent / "demo_confounded.toml")
+    frame, _ = simulate_cases(20_000, seed=303, model=CONFOUNDED)
+    table = CellTable.from_cases(frame, confounded_scenario)
+    path = folder / "quarrow_confounded_counts.csv"
+    table.counts_frame(confounded_scenario).to_csv(path, index=False)
     written.append(path)
     return written
 

@@ -10,13 +10,17 @@ import pandas as pd
 
 from policy.decision.costs import Costs
 from policy.errors import InputError
+from policy.estimation.bounds_table import SENSITIVITY_GAMMAS
 from policy.estimation.strata import RiskLevels
 
 
 #: relative tolerance under which two crossings of lines count as one point
 CONCURRENT_TOLERANCE = 1e-9
-#: Gamma values of the robust regions when none are given
-DEFAULT_GAMMAS = (1.1, 1.25, 1.5)
+#: Gamma values of the robust regions when none are given: from slight confounding to odds that
+#: differ five-fold, beyond which the intervals are close to the monotone-response bounds that
+#: follow them. With a randomized arm the sweep adds the data's own lower bound Gamma_low
+#: (policy.estimation.arm_check) to these.
+DEFAULT_GAMMAS = SENSITIVITY_GAMMAS
 SCALES = ("linear", "log")
 
 

@@ -8,6 +8,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
+from policy.estimation.arm_check import ArmCheck, arm_check
 from policy.estimation.bounds import MISSING_TREATMENTS, RiskBounds, robust_assumptions
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.decision.costs import Costs, costs_from_scenario
@@ -41,6 +42,8 @@ class SweepResult:
     constrained: Any = None
     #: bootstrap intervals of the one-ratio sweep (SweepBands), when replicates were asked for
     bands: SweepBands | None = None
+    #: the randomized arm's test of unconfoundedness (policy.estimation.arm_check), when the data have an arm
+    arm_check: ArmCheck | None = None
 
     def __str__(self) -> str:
         text = str(self.sweep if self.sweep is not None else self.map)
@@ -172,7 +175,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         Reference decision level of the ratios (default: the harshest).
     gammas : sequence of float, optional
         Sensitivity parameters of the robust regions (1 is the point estimate itself). Default
-        :data:`DEFAULT_GAMMAS` when the data hold counts, none for a risk-level table.
+        :data:`DEFAULT_GAMMAS` when the data hold counts, with the randomized arm's lower bound
+        Gamma_low (:func:`policy.estimation.arm_check.arm_check`) added where it is above 1;
+        none for a risk-level table.
     bounds : bool, optional
         Add the monotone-response bounds (default: when the data hold counts).
     missing : {'worst_case', 'ignore'}
@@ -253,14 +258,19 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     if len(ranges) != len(axes):
         raise InputError(f"give one range per ratio: {len(axes)} ratios, {len(ranges)} ranges.")
     box = [tuple(map(float, r)) if r is not None else default_range(a, scale) for a, r in zip(axes, ranges)]
+    check = arm_check(cells) if cells is not None and cells.has_arm else None
     if gammas is None:
         gammas = DEFAULT_GAMMAS if cells is not None else ()
+        if check is not None and 1 < check.gamma_lower < np.inf:
+            gammas = tuple(gammas) + (round(check.gamma_lower, 2),)
     if bounds is None:
         bounds = cells is not None
     assumptions = robust_assumptions(rl, cells, gammas, bounds, missing)
     step("bounds and sensitivity intervals")
     settings = {"scale": scale, "ranges": [list(b) for b in box], "gammas": [b.gamma for b in assumptions if b.figure == "sensitivity"],
-                "bounds": bool(bounds), "missing_records": missing, "grid_points": grid_points, "share": float(share)}
+                "bounds": bool(bounds), "missing_records": missing, "grid_points": grid_points, "share": float(share),
+                "gamma_lower_from_arm_check": (None if check is None or not np.isfinite(check.gamma_lower)
+                                               else round(check.gamma_lower, 2))}
     if len(axes) == 1:
         if rules is None:
             base_rule = optimal_rule(rl, costs, name="rule optimal at the scenario's costs")
@@ -293,9 +303,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                                 scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,
                                 grid_points, workers, runner, progress)
             step("bootstrap bands")
-        return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained, bands)
+        return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained, bands, check)
     if specs:
         settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"
     m = lenient_map(rl, costs, axes, box, assumptions=assumptions, scale=scale)
     step("exact lenient map")
-    return SweepResult(scenario, rl, costs, None, m, assumptions, settings)
+    return SweepResult(scenario, rl, costs, None, m, assumptions, settings, arm_check=check)

@@ -97,6 +97,8 @@ def render_report(results: ReportResults | Analysis) -> Report:
     page = env.get_template("report.html.j2").render(
         title=sc.title,
         cautions=list(CAUTIONS),
+        arm_check=getattr(results.analysis, "arm_check", None),
+        arm_costs=getattr(results.comparison, "arm_costs", None),
         sections=sections,
         figure_assumptions=figure_assumptions,
         files=sorted(files),

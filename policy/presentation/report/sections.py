@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from policy.cautions import ASSUMPTIONS, assumptions_for
+from policy.presentation.report.ranges_view import ranges_view
 from policy.presentation.report.formatting import DIGITS, TableView, fmt_interval, fmt_num, fmt_pct, level_colours, risk_level_colours
 from policy.presentation.report.model import Bar, ReportResults, Section
 from policy.presentation.report.live import _constant, controls
@@ -334,6 +335,8 @@ def comparison_section(results: ReportResults) -> Section:
             "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
             "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
             "observed_assumptions": assumptions_for("observed_rule"),
+            "assumption_free": cmp.arm_costs.lines() if getattr(cmp, "arm_costs", None) is not None else [],
+            "ranges": ranges_view(cmp),
         },
         assumptions=tuple(assumptions_for("evaluation")),
         files=cmp.output_files(),

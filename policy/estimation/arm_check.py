@@ -1,0 +1,452 @@
+"""Test unconfoundedness with the randomized arm, and the least confounding the data show.
+
+Where the aid was shown at a random part of the hearings (arm Z), unconfoundedness given the
+cell within each arm, randomization of Z and the exclusion restriction imply (method notes,
+section 10)
+
+    P(Y_j = 1 | D = d, x, Z = 1) = P(Y_j(d) = 1 | x) = P(Y_j = 1 | D = d, x, Z = 0),
+
+so within every cell x decision level the outcome rate must not differ by arm.
+
+**The test** (:func:`arm_check`), per outcome kind j: for every decision level d, the
+Cochran-Mantel-Haenszel statistic of the 2 x 2 tables (arm x outcome recorded as 1 / 0) over
+the cells where both arms have a recorded outcome at d,
+
+    CMH_d = (sum_x (a_x - E a_x))^2 / sum_x V_x,
+    E a_x = n1_x m_x / N_x,   V_x = n1_x n0_x m_x (N_x - m_x) / (N_x^2 (N_x - 1)),
+
+(a_x events where the aid was shown, n1_x / n0_x records with / without the aid, m_x events,
+N_x records), and the statistic Q_j = sum_d CMH_d, chi-square with one degree of freedom per
+level that has information, under the hypothesis. The levels are separate because selection on
+an unrecorded factor pushes the rates in opposite directions at the lenient and the harsh end
+(a court that holds the riskier cases leaves safer ones at release on recognizance); a single
+common odds ratio over all levels would let those cancel. Within a level, the direction of a
+confounded selection is shared by the cells, which is where a one-degree-of-freedom pooled
+statistic has its power. Outcome records that are missing are left out (missing at random given
+cell, arm and level). The verdict over outcome kinds is Bonferroni's: reject when the smallest
+p-value times the number of kinds tested is below the level.
+
+**The least confounding the data show** (:func:`gamma_lower_bound`). Under the sensitivity
+model of :mod:`policy.estimation.bounds` applied within each arm (the odds of Y_j(d) = 1 differ
+between the arm's cases given different decisions by at most a factor Gamma), p_jd(x) is a
+mixture of the arm's groups, so its odds lie within a factor Gamma of the arm's rate at (x, d);
+both arms' rates then have odds within Gamma of the same p_jd(x), and their odds ratio lies in
+[Gamma^-2, Gamma^2]. For a given Gamma the statistic
+
+    T(Gamma) = sum_d max(Z_d(Gamma^2), -Z_d(Gamma^-2), 0)^2,
+
+where Z_d(psi) standardizes sum_x a_x by its mean and variance with every stratum's odds ratio
+at psi (Fisher's noncentral hypergeometric law given the table's margins), is bounded by a
+chi-square with one degree of freedom per level under that hypothesis; T(1) is Q_j. Gamma_low
+is the smallest Gamma at which T(Gamma) no longer exceeds the critical value the test uses (the
+largest such value over outcome kinds). It is 1 exactly when the test does not reject, and
+every Gamma below it is contradicted by the data at the test's level: a lower confidence bound
+on the confounding present (or a sign that the exclusion restriction fails). The bound uses the
+odds-ratio consequence of the model only, so it is conservative.
+
+References
+----------
+Mantel, N. and Haenszel, W. (1959). Statistical aspects of the analysis of data from
+retrospective studies of disease. Journal of the National Cancer Institute 22(4), 719-748.
+Rosenbaum, P. R. (2002). Observational Studies, 2nd ed. Springer (the odds-ratio sensitivity
+parameter Gamma).
+Birch, M. W. (1964). The detection of partial association, I: the 2 x 2 case. Journal of the
+Royal Statistical Society B 26(2), 313-324 (the conditional law of a 2 x 2 table at a given odds
+ratio).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from policy.errors import InputError
+from policy.inputs.cells import CellTable
+
+__all__ = ["ArmCheck", "arm_check", "cmh_by_level", "discrepancy_at", "gamma_lower_bound"]
+
+#: the largest Gamma searched; a stratum needing more is reported as infinite
+GAMMA_CEILING = 1e6
+
+
+# ----------------------------------------------------------------------------------------------
+# Array functions
+# ----------------------------------------------------------------------------------------------
+def cmh_by_level(events: np.ndarray, observed: np.ndarray) -> dict[str, np.ndarray]:
+    """Cochran-Mantel-Haenszel statistics per decision level, pooled over cells.
+
+    Parameters
+    ----------
+    events, observed : ndarray of shape (n_cells, 2, L)
+        Events and recorded outcomes of one outcome kind; arm axis (not shown, shown).
+
+    Returns
+    -------
+    dict of ndarray
+        ``difference`` (n_cells, L): a_x - E a_x (events where the aid was shown, minus those
+        expected with equal rates); ``variance`` (n_cells, L): V_x (0 outside the strata used);
+        ``used`` (n_cells, L): both arms have a record; ``statistic`` (L,): CMH_d (NaN where no
+        stratum has information); ``odds_ratio`` (L,): the Mantel-Haenszel common odds ratio,
+        shown against not shown; ``contribution`` (n_cells, L): each stratum's share of CMH_d,
+        (a_x - E a_x) sum(a - E a) / sum V, which adds up to CMH_d over the cells.
+    """
+    e = np.asarray(events, dtype=np.float64)
+    n = np.asarray(observed, dtype=np.float64)
+    n0, n1 = n[:, 0], n[:, 1]
+    a, c = e[:, 1], e[:, 0]
+    used = (n0 > 0) & (n1 > 0)
+    N = n0 + n1
+    m = a + c
+    with np.errstate(invalid="ignore", divide="ignore"):
+        expected = np.where(used, n1 * m / N, 0.0)
+        var = np.where(used & (N > 1), n1 * n0 * m * (N - m) / (N * N * (N - 1)), 0.0)
+        diff = np.where(used, a - expected, 0.0)
+        total_diff = diff.sum(axis=0)
+        total_var = var.sum(axis=0)
+        statistic = np.where(total_var > 0, total_diff ** 2 / total_var, np.nan)
+        contribution = np.where(total_var > 0, diff * total_diff / total_var, 0.0)
+        b, d = n1 - a, n0 - c  # non-events shown, not shown
+        num = np.where(used, a * d / N, 0.0).sum(axis=0)
+        den = np.where(used, b * c / N, 0.0).sum(axis=0)
+        odds_ratio = np.where(total_var > 0, num / den, np.nan)
+    return {"difference": diff, "variance": var, "used": used & (var > 0), "statistic": statistic,
+            "odds_ratio": odds_ratio, "contribution": contribution}
+
+
+def _z_at(events: np.ndarray, observed: np.ndarray, used: np.ndarray, odds_ratio: float) -> np.ndarray:
+    """Per decision level, (sum a - sum E_psi a) / sqrt(sum Var_psi a) with every stratum's 2 x 2
+    table at the common odds ratio psi (Fisher's noncentral hypergeometric law of a given the
+    margins; psi = 1 gives the Mantel-Haenszel mean and variance). Shape (L,); NaN without
+    information."""
+    e = np.asarray(events, dtype=np.float64)
+    n = np.asarray(observed, dtype=np.float64)
+    n0, n1 = n[:, 0], n[:, 1]
+    a = e[:, 1]
+    m = e.sum(axis=1)
+    N = n0 + n1
+    ok = used & (m > 0) & (m < N)
+    mean = np.zeros_like(a)
+    var = np.zeros_like(a)
+    if ok.any():
+        mu, v = stats.nchypergeom_fisher.stats(N[ok].astype(np.int64), n1[ok].astype(np.int64),
+                                               m[ok].astype(np.int64), odds_ratio, moments="mv")
+        mean[ok], var[ok] = mu, v
+    total_var = var.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total_var > 0, np.where(ok, a - mean, 0.0).sum(axis=0) / np.sqrt(total_var), np.nan)
+
+
+def discrepancy_at(events: np.ndarray, observed: np.ndarray, gamma: float) -> tuple[float, int]:
+    """The arm discrepancy left over at sensitivity value ``gamma``, for one outcome kind.
+
+    Parameters
+    ----------
+    events, observed : ndarray of shape (n_cells, 2, L)
+        Arm axis (not shown, shown).
+    gamma : float
+        Gamma >= 1.
+
+    Returns
+    -------
+    statistic : float
+        T(Gamma) = sum over levels of max(Z_d(Gamma^2), -Z_d(Gamma^-2), 0)^2, where Z_d(psi) is
+        the standardized excess of events where the aid was shown over their expectation with
+        every stratum's odds ratio at psi. T(1) is the sum of the levels' Cochran-Mantel-Haenszel
+        statistics; T falls as Gamma grows.
+    df : int
+        Levels with information (the chi-square degrees of freedom bounding T under the
+        hypothesis that every stratum's odds ratio lies in [Gamma^-2, Gamma^2]).
+    """
+    observed = np.asarray(observed)
+    used = (observed[:, 0] > 0) & (observed[:, 1] > 0)
+    up = _z_at(events, observed, used, gamma ** 2)
+    down = _z_at(events, observed, used, gamma ** -2)
+    informative = np.isfinite(up)
+    excess = np.maximum(np.maximum(np.where(informative, up, 0.0), np.where(informative, -down, 0.0)), 0.0)
+    return float(np.sum(excess ** 2)), int(informative.sum())
+
+
+def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3) -> dict[str, Any]:
+    """The smallest Gamma that reconciles the two arms, from below with confidence 1 - alpha.
+
+    Parameters
+    ----------
+    cells : CellTable
+        With a randomized arm (arms 0 = not shown, 1 = shown).
+    alpha : float
+        Level; Bonferroni over the outcome kinds with information, as the test's verdict.
+    tol : float
+        Precision of the search on log Gamma.
+
+    Returns
+    -------
+    dict
+        ``gamma_lower``: the largest over outcome kinds of the smallest Gamma at which
+        T(Gamma) <= the chi-square (1 - alpha / kinds) quantile (1 where the test does not
+        reject; inf where even :data:`GAMMA_CEILING` is rejected); ``per_outcome``: each kind's
+        value.
+
+    Notes
+    -----
+    Under the sensitivity model with parameter Gamma in each arm, every group of the arm's
+    cases has odds of Y(d) = 1 within a factor Gamma of the others, so p_d(x), a mixture of
+    them, has odds within Gamma of each arm's rate at (x, d), and the two arms' odds ratio at
+    (x, d) lies in [Gamma^-2, Gamma^2]. T(Gamma) tests that consequence (the one-sided
+    statistics at the ends of the interval are the least favourable points, as in Rosenbaum's
+    sensitivity analysis of stratified 2 x 2 tables), so every Gamma it rejects is contradicted
+    by the data. The sharper intervals of :mod:`policy.estimation.bounds` would reject more:
+    the value found is conservative.
+    """
+    _require_arm(cells)
+    J = len(cells.outcomes)
+    at_one = [discrepancy_at(cells.events[:, :, j, :], cells.observed[:, :, j, :], 1.0) for j in range(J)]
+    tested = [j for j in range(J) if at_one[j][1] > 0]
+    per_outcome = {key: 1.0 for key in cells.outcomes}
+    for j in tested:
+        t1, df = at_one[j]
+        crit = stats.chi2.ppf(1 - alpha / len(tested), df)
+        if t1 <= crit:
+            continue
+        ev, obs = cells.events[:, :, j, :], cells.observed[:, :, j, :]
+
+        def rejected(g):
+            return discrepancy_at(ev, obs, g)[0] > crit
+
+        if rejected(GAMMA_CEILING):
+            per_outcome[cells.outcomes[j]] = np.inf
+            continue
+        lo, hi = 0.0, np.log(GAMMA_CEILING)
+        while hi - lo > tol:
+            mid = 0.5 * (lo + hi)
+            lo, hi = (mid, hi) if rejected(np.exp(mid)) else (lo, mid)
+        per_outcome[cells.outcomes[j]] = float(np.exp(hi))
+    return {"gamma_lower": max(per_outcome.values()), "per_outcome": per_outcome}
+
+
+def _require_arm(cells: CellTable) -> None:
+    if not cells.has_arm or len(cells.arms) != 2:
+        raise InputError("the arm check needs a randomized arm (the [columns] arm key, with values 0 and 1); "
+                         f"{cells.source} has none.")
+
+
+# ----------------------------------------------------------------------------------------------
+# Result
+# ----------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class ArmCheck:
+    """Whether the two arms agree within every cell x decision level, per outcome kind.
+
+    Attributes
+    ----------
+    tests : DataFrame
+        One row per outcome kind: ``outcome``, ``statistic`` (Q_j), ``df``, ``p_value``,
+        ``strata`` (cell x level tables used), ``levels`` (levels with information),
+        ``rejects`` (at ``alpha`` after Bonferroni over kinds).
+    levels : DataFrame
+        One row per outcome kind x decision level: CMH_d, the Mantel-Haenszel odds ratio (shown
+        against not shown), strata used, events observed and expected where the aid was shown,
+        and the direction in words.
+    cells : DataFrame
+        Every stratum used: cell columns, outcome, level, records and events per arm, rates,
+        the difference a - E a and the stratum's contribution to CMH_d.
+    alpha : float
+    p_value : float
+        Bonferroni-adjusted smallest p-value over outcome kinds.
+    gamma_lower : float
+        See :func:`gamma_lower_bound`.
+    gamma_by_outcome : dict
+        The same per outcome kind.
+    """
+
+    tests: pd.DataFrame
+    levels: pd.DataFrame
+    cells: pd.DataFrame
+    alpha: float
+    p_value: float
+    gamma_lower: float
+    gamma_by_outcome: dict
+    top: int = 5
+
+    @property
+    def rejects(self) -> bool:
+        return bool(self.p_value < self.alpha)
+
+    @property
+    def tested(self) -> bool:
+        return bool((self.tests["df"] > 0).any()) if len(self.tests) else False
+
+    def top_cells(self, n: int | None = None) -> pd.DataFrame:
+        """The strata contributing most to the statistics of the outcome kinds that reject (or
+        to all, when none rejects), largest contribution first."""
+        n = self.top if n is None else n
+        rejecting = set(self.tests.loc[self.tests["rejects"], "outcome"])
+        frame = self.cells if not rejecting else self.cells[self.cells["outcome"].isin(rejecting)]
+        return frame.sort_values("contribution", ascending=False, kind="stable").head(n)
+
+    def verdict(self) -> str:
+        """One sentence: what the test found."""
+        if not self.tested:
+            return "The arm check could not be run: no cell x decision level has recorded outcomes in both arms."
+        worst = self.tests.sort_values("p_value", kind="stable").iloc[0]
+        if self.rejects:
+            return (f"WARNING: the randomized arm contradicts unconfoundedness given the cell (or the exclusion "
+                    f"restriction): within cells and decision levels, outcome rates differ with and without the aid "
+                    f"(worst: {worst['outcome']}, p = {worst['p_value']:.2g}; Bonferroni-adjusted p = "
+                    f"{self.p_value:.2g} < {self.alpha:g}). The data show confounding of at least Gamma = "
+                    f"{_fmt_gamma(self.gamma_lower)} ({1 - self.alpha:.0%} confidence; sensitivity results below "
+                    "that Gamma are contradicted by the data). Point figures may be wrong: "
+                    "rely on the monotone-response bounds and the sensitivity results at Gamma of at least that value.")
+        return (f"Arm check: within cells and decision levels, outcome rates with and without the aid agree "
+                f"(smallest p = {worst['p_value']:.2g}, Bonferroni-adjusted {self.p_value:.2g} >= {self.alpha:g}). "
+                "No contradiction of unconfoundedness found; the test has power only where the aid moved decisions.")
+
+    def lines(self) -> list[str]:
+        """The verdict, then one line per outcome kind and the cells contributing most."""
+        out = [self.verdict()]
+        for _, row in self.tests.iterrows():
+            if row["df"] == 0:
+                out.append(f"  {row['outcome']}: no stratum with information")
+                continue
+            out.append(f"  {row['outcome']}: Q = {row['statistic']:.2f} on {row['df']} df, p = {row['p_value']:.2g}, "
+                       f"{row['strata']} cell x level strata")
+        if self.rejects:
+            for _, row in self.levels[self.levels["outcome"].isin(self.tests.loc[self.tests["rejects"], "outcome"])].iterrows():
+                if row["statistic"] == row["statistic"]:
+                    out.append(f"  {row['outcome']} at {row['level']}: {row['direction']} "
+                               f"(odds ratio {row['odds_ratio']:.2f}, CMH {row['statistic']:.1f})")
+            cols = [c for c in self.cells.columns if c not in _STRATUM_COLUMNS]
+            out.append("  cells contributing most:")
+            for _, row in self.top_cells().iterrows():
+                where = ", ".join(f"{c}={row[c]}" for c in cols)
+                out.append(f"    {where}; {row['outcome']} at {row['level']}: rate {row['rate_shown']:.1%} shown "
+                           f"vs {row['rate_not_shown']:.1%} not shown ({row['records_shown']:.0f} / "
+                           f"{row['records_not_shown']:.0f} records), contribution {row['contribution']:.1f}")
+        return out
+
+    def __str__(self) -> str:
+        return "\n".join(self.lines())
+
+    def summary(self) -> dict[str, Any]:
+        """What the JSON output holds."""
+        return {
+            "test": "Cochran-Mantel-Haenszel per decision level, pooled over cells, summed over levels (one test per outcome kind)",
+            "alpha": self.alpha,
+            "rejects": self.rejects,
+            "p_value_bonferroni": self.p_value,
+            "verdict": self.verdict(),
+            "per_outcome": self.tests.to_dict(orient="records"),
+            "per_level": self.levels.to_dict(orient="records"),
+            "top_cells": self.top_cells().to_dict(orient="records"),
+            "gamma_lower": self.gamma_lower if np.isfinite(self.gamma_lower) else None,
+            "gamma_lower_by_outcome": self.gamma_by_outcome,
+            "gamma_confidence": 1 - self.alpha,
+            "gamma_definition": ("smallest sensitivity value Gamma at which the data no longer reject (at the test's "
+                                 "level) that in every cell x decision level the odds ratio of the outcome between the "
+                                 "arms lies in [1/Gamma^2, Gamma^2], as the sensitivity model with that Gamma implies: "
+                                 "a lower confidence bound on the confounding present (docs/method.md)"),
+            "assumes": ["the aid was shown or withheld at random",
+                        "missing outcome records are missing at random given cell, arm and decision level"],
+        }
+
+    def output_files(self) -> dict[str, Any]:
+        """``arm_check.json`` (verdict and tests) and ``arm_check_cells.csv`` (every stratum)."""
+        return {"arm_check.json": _jsonable(self.summary()), "arm_check_cells.csv": self.cells}
+
+
+_STRATUM_COLUMNS = ("outcome", "level", "records_not_shown", "events_not_shown", "records_shown", "events_shown",
+                    "rate_not_shown", "rate_shown", "difference", "contribution")
+
+
+def _fmt_gamma(g: float) -> str:
+    if np.isnan(g):
+        return "(not computed)"
+    return "infinity" if not np.isfinite(g) else f"{g:.2f}"
+
+
+def _jsonable(value):
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        return v if np.isfinite(v) else None
+    return value
+
+
+def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool = True) -> ArmCheck:
+    """Test, per outcome kind, that outcome rates agree with and without the aid within every
+    cell x decision level, and bound from below the confounding the arms show.
+
+    Parameters
+    ----------
+    cells : CellTable
+        With a randomized arm (raises :class:`~policy.errors.InputError` without one).
+    alpha : float
+        Level of the test (after Bonferroni over outcome kinds) and 1 - confidence of Gamma_low.
+    top : int
+        Number of cells listed as contributing most.
+    gamma : bool
+        Also search for Gamma_low (:func:`gamma_lower_bound`); without it, ``gamma_lower`` is NaN.
+
+    Returns
+    -------
+    ArmCheck
+    """
+    if not 0 < alpha < 1:
+        raise InputError(f"the arm check's level must be between 0 and 1; got {alpha!r}.")
+    _require_arm(cells)
+    J, L = len(cells.outcomes), len(cells.levels)
+    gam = gamma_lower_bound(cells, alpha) if gamma else {"gamma_lower": np.nan, "per_outcome": {}}
+    rows, level_rows, strata = [], [], []
+    layout = cells.layout.frame.reset_index(drop=True)
+    for j, key in enumerate(cells.outcomes):
+        res = cmh_by_level(cells.events[:, :, j, :], cells.observed[:, :, j, :])
+        informative = np.isfinite(res["statistic"])
+        q = float(np.nansum(res["statistic"]))
+        df = int(informative.sum())
+        p = float(stats.chi2.sf(q, df)) if df else np.nan
+        rows.append({"outcome": key, "statistic": q, "df": df, "p_value": p, "strata": int(res["used"].sum()),
+                     "levels": df})
+        for d, level in enumerate(cells.levels):
+            diff = float(res["difference"][:, d].sum())
+            expected_shown = float((cells.events[:, 1, j, d] * res["used"][:, d]).sum() - diff)
+            if not informative[d]:
+                direction = "no information"
+            elif diff > 0:
+                direction = "more outcomes where the aid was shown than equal rates would give"
+            else:
+                direction = "fewer outcomes where the aid was shown than equal rates would give"
+            level_rows.append({"outcome": key, "level": level, "statistic": float(res["statistic"][d]),
+                               "odds_ratio": float(res["odds_ratio"][d]), "strata": int(res["used"][:, d].sum()),
+                               "events_shown": float((cells.events[:, 1, j, d] * res["used"][:, d]).sum()),
+                               "expected_shown": expected_shown, "direction": direction})
+        x, d = np.nonzero(res["used"])
+        part = layout.iloc[x].reset_index(drop=True).astype(object)
+        obs, ev = cells.observed[x, :, j, d], cells.events[x, :, j, d]
+        part["outcome"] = key
+        part["level"] = np.asarray(cells.levels, dtype=object)[d]
+        part["records_not_shown"], part["events_not_shown"] = obs[:, 0], ev[:, 0]
+        part["records_shown"], part["events_shown"] = obs[:, 1], ev[:, 1]
+        part["rate_not_shown"] = ev[:, 0] / obs[:, 0]
+        part["rate_shown"] = ev[:, 1] / obs[:, 1]
+        part["difference"] = res["difference"][x, d]
+        part["contribution"] = res["contribution"][x, d]
+        strata.append(part)
+    tests = pd.DataFrame(rows)
+    tested = tests["df"] > 0
+    n_tested = int(tested.sum())
+    p_min = float(tests.loc[tested, "p_value"].min()) if n_tested else np.nan
+    p_adj = min(1.0, p_min * n_tested) if n_tested else np.nan
+    tests["rejects"] = tested & (tests["p_value"] * max(n_tested, 1) < alpha)
+    cells_frame = pd.concat(strata, ignore_index=True) if strata else pd.DataFrame()
+    return ArmCheck(tests, pd.DataFrame(level_rows), cells_frame, alpha, p_adj, gam["gamma_lower"],
+                    gam["per_outcome"], top)

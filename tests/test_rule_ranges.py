@@ -1,0 +1,92 @@
+"""Ranges of compared rules' costs, rates and regret under each assumption
+(policy/assessment/rule_ranges.py)."""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from policy import load_scenario
+from policy.assessment.rule_ranges import regret_ranges, rule_ranges
+from policy.decision.candidates import observed_rules
+from policy.decision.costs import costs_from_scenario
+from policy.decision.evaluate import evaluate
+from policy.decision.solve import optimal_rule
+from policy.demo.quarrow import demo_scenario_path
+from policy.estimation.bounds import robust_assumptions
+from policy.running.pipeline import estimate
+
+
+@pytest.fixture(scope="module")
+def setup():
+    scenario = load_scenario(demo_scenario_path())
+    scenario = replace(scenario, data=replace(scenario.data, simulate=6_000))
+    cells, rl = estimate(scenario)
+    costs = costs_from_scenario(scenario, rl)
+    rules = [optimal_rule(rl, costs)] + observed_rules(cells, "the aid")
+    intervals = robust_assumptions(rl, cells, [2.0], True)
+    return cells, rl, costs, rules, intervals
+
+
+def test_point_ranges_collapse_to_the_evaluation(setup):
+    _, rl, costs, rules, intervals = setup
+    frame = rule_ranges(rules, rl, costs, intervals)
+    point = frame[frame["assumption"] == "point"]
+    for rule, (_, row) in zip(rules, point.iterrows()):
+        ev = evaluate(rule, rl, costs)
+        assert row["cost_per_1000_cases_lower"] == pytest.approx(ev.cost_per_1000, rel=1e-12)
+        assert row["cost_per_1000_cases_upper"] == pytest.approx(ev.cost_per_1000, rel=1e-12)
+        for j, key in enumerate(rl.outcome_keys):
+            assert row[f"rate_{key}_lower"] == pytest.approx(ev.outcome_rates[j], rel=1e-12)
+    regret = regret_ranges(rules, rl, costs, intervals)
+    first = regret[(regret["assumption"] == "point") & (regret["against"] == rules[0].name)]
+    for rule, (_, row) in zip(rules[1:], first.iterrows()):
+        gap = 1000 * (evaluate(rule, rl, costs).cost_per_case - evaluate(rules[0], rl, costs).cost_per_case)
+        assert row["regret_per_1000_cases_lower"] == pytest.approx(gap, rel=1e-9, abs=1e-6)
+        assert row["regret_per_1000_cases_upper"] == pytest.approx(gap, rel=1e-9, abs=1e-6)
+
+
+def test_ranges_widen_from_the_point_and_regret_is_antisymmetric(setup):
+    _, rl, costs, rules, intervals = setup
+    frame = rule_ranges(rules, rl, costs, intervals).set_index(["rule", "assumption"])
+    for rule in rules:
+        p = frame.loc[(rule.name, "point")]
+        g = frame.loc[(rule.name, "gamma=2")]
+        assert g["cost_per_1000_cases_lower"] <= p["cost_per_1000_cases_lower"] + 1e-9
+        assert g["cost_per_1000_cases_upper"] >= p["cost_per_1000_cases_upper"] - 1e-9
+    regret = regret_ranges(rules, rl, costs, intervals).set_index(["rule", "against", "assumption"])
+    a, b = rules[0].name, rules[1].name
+    for key in ("point", "gamma=2", "bounds"):
+        assert regret.loc[(a, b, key), "regret_per_1000_cases_lower"] == pytest.approx(
+            -regret.loc[(b, a, key), "regret_per_1000_cases_upper"])
+
+
+def test_regret_range_equals_brute_force_over_the_box_vertices(setup):
+    # Common practice: a linear function over a box attains its extremes at vertices. Free 8
+    # interval entries (the rest held at a point) and enumerate all 2^8 vertices.
+    _, rl, costs, rules, intervals = setup
+    rng = np.random.default_rng(0)
+    box = intervals[1]
+    lower, upper = rl.p.copy(), rl.p.copy()
+    picks = [tuple(rng.integers(0, s) for s in rl.p.shape) for _ in range(8)]
+    for idx in picks:
+        lower[idx], upper[idx] = box.lower[idx], box.upper[idx]
+    small = replace(box, key="small", lower=lower, upper=upper)
+    got = regret_ranges(rules[:2], rl, costs, [small]).iloc[0]
+    got_cost = rule_ranges(rules[:1], rl, costs, [small]).iloc[0]
+    values, costs_a = [], []
+    for corner in itertools.product((0, 1), repeat=len(picks)):
+        p = rl.p.copy()
+        for c, idx in zip(corner, picks):
+            p[idx] = upper[idx] if c else lower[idx]
+        probe = replace(rl, p=p)
+        ca = evaluate(rules[0], probe, costs).cost_per_case
+        values.append(ca - evaluate(rules[1], probe, costs).cost_per_case)
+        costs_a.append(ca)
+    assert got["regret_per_1000_cases_lower"] == pytest.approx(1000 * min(values), rel=1e-9, abs=1e-6)
+    assert got["regret_per_1000_cases_upper"] == pytest.approx(1000 * max(values), rel=1e-9, abs=1e-6)
+    assert got_cost["cost_per_1000_cases_lower"] == pytest.approx(1000 * min(costs_a), rel=1e-12)
+    assert got_cost["cost_per_1000_cases_upper"] == pytest.approx(1000 * max(costs_a), rel=1e-12)
