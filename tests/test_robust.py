@@ -325,19 +325,42 @@ def test_safe_rule_true_regret_is_never_positive_on_confounded_data(strength):
         assert len(sets) == 2 and improved >= 1                    # a guarantee that is not always zero
 
 
-def test_safe_rule_on_coarser_rule_cells_than_a_per_cell_baseline_says_when_it_is_not_certified():
-    truth, naive, bounds, pi = confounded_quarrow(0.9)
+@pytest.mark.parametrize("specs", [[], [{"kind": "capacity", "at_least": "bond", "max_share": 0.6}]])
+def test_safe_rule_on_coarser_rule_cells_keeps_a_per_cell_baseline_where_it_cannot_do_better(specs):
+    truth, naive, bounds, pi = confounded_quarrow(0.5)
     costs = quarrow_costs(truth)
     courts = Rule.per_cell("courts", "observed", truth.layout, pi, truth.level_values, truth.level_labels)
-    safe = safe_rule(naive, costs, bounds, courts)                 # rule cells: aid tier x charge class
-    if safe.certified:
-        true_regret = (rule_cost(safe.rule.cell_delta, truth.p, truth.weights, costs)
-                       - rule_cost(courts.cell_delta, truth.p, truth.weights, costs))
-        assert true_regret <= 1e-9
-    else:
-        assert safe.guaranteed_improvement_per_1000 == 0.0
-        assert any("not" in n or "no rule" in n for n in safe.notes)
-        assert "NOT certified" in str(safe)
+    around = sensitivity_bounds(naive, pi, 3.0)
+    for the_set in (bounds, around):
+        safe = safe_rule(naive, costs, the_set, courts, specs)     # rule cells: aid tier x charge class
+        assert safe.certified and safe.keep.max() > 0
+        assert len(safe.rule_cells) == len(naive.layout.rule_index()[1])
+        baseline_cost = rule_cost(courts.cell_delta, truth.p, truth.weights, costs)
+        if the_set is bounds or around.contains(truth.p).all():
+            assert rule_cost(safe.rule.cell_delta, truth.p, truth.weights, costs) <= baseline_cost * (1 + 1e-9)
+        # its reported worst case is the worst case of the rule it returns (the dual with the rule fixed)
+        again = worst_case_regret(safe.rule, courts, naive, costs, the_set)
+        assert again.total == pytest.approx(safe.worst_case_regret_per_case, rel=1e-6, abs=1e-6)
+        frame = safe.to_frame()
+        shares = frame[[c for c in frame.columns if c.startswith("share_")]].sum(axis=1) + frame["keep_baseline"]
+        np.testing.assert_allclose(shares, 1.0, atol=1e-9)
+        if specs:
+            problem = ConstrainedProblem(naive, costs, specs, list(naive.layout.frame.columns))
+            A, lo, hi = problem.rows()
+            assert feasible(problem, safe.rule.cell_delta)
+
+
+def test_safe_rule_with_rule_cell_constraints_says_it_cannot_keep_a_per_cell_baseline():
+    rl, costs, columns, bounds = instance(2, 3, 2, "gamma", 2.0)
+    rng = np.random.default_rng(2)
+    courts = Rule.per_cell("courts", "observed", rl.layout, rng.dirichlet(np.ones(3), size=rl.n_cells),
+                           rl.level_values, rl.level_labels)
+    # rule cells by score x bucket: the per-cell baseline varies within them, and the rows of a
+    # monotone-in-score constraint differ between a rule-cell and a cell-level problem
+    safe = safe_rule(rl, costs, bounds, courts, [{"kind": "monotone"}], ["score", "bucket"])
+    assert any("cannot leave cases" in n for n in safe.notes)
+    if not safe.certified:
+        assert safe.guaranteed_improvement_per_1000 == 0.0 and "NOT certified" in str(safe)
 
 
 # ----------------------------------------------------------------------------------------------

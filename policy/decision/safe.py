@@ -47,7 +47,7 @@ Operations Research Letters 25(1), 1-13.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Mapping, Sequence
 
 import numpy as np
@@ -84,11 +84,16 @@ class RegretProgram:
         Rule cell of each cell; ``n_groups`` rule cells.
     monotone : bool
         Intersect the box with monotonicity in d (default true).
+    keep : bool
+        Add one column per rule cell, lambda_g in [0, 1]: the share of the rule cell's cases left
+        to the baseline's own practice, so that a cell's decision probabilities are
+        nu(d | g) + lambda_g b(d | x) (the delta columns then hold nu; each rule cell's nu and
+        lambda sum to 1). Lets a rule on coarse rule cells keep a per-cell baseline.
 
     Attributes
     ----------
-    n_delta, n_cols : int
-        Decision-probability columns (G * L, first) and all columns.
+    n_delta, n_keep, n_cols : int
+        Decision-probability columns (G * L, first), keep columns (G or 0, next) and all columns.
     c : ndarray of shape (n_cols,)
         Objective (per case): decision-cost and point-interval parts on delta, c_j w / W on t.
     constant : ndarray of shape (G,)
@@ -97,7 +102,7 @@ class RegretProgram:
     """
 
     def __init__(self, risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baseline: np.ndarray,
-                 index: np.ndarray, n_groups: int, monotone: bool = True):
+                 index: np.ndarray, n_groups: int, monotone: bool = True, keep: bool = False):
         check_bounds(bounds, risk_levels)
         b = np.asarray(baseline, dtype=np.float64)
         n, J, L = risk_levels.p.shape
@@ -122,11 +127,15 @@ class RegretProgram:
         m = len(xs)
         self.pairs = (xs, js)
         self.n_delta = G * L
+        self.n_keep = G if keep else 0
         self.n_t = m * L
         self.n_mu = m * (L - 1) if monotone else 0
-        self.n_cols = self.n_delta + self.n_t + self.n_mu
+        self.n_cols = self.n_delta + self.n_keep + self.n_t + self.n_mu
+        T0 = self.n_delta + self.n_keep
+        M0 = T0 + self.n_t
         scale = oc[js] * w[xs] / W  # (m,)
-        self.c = np.concatenate([obj_delta.reshape(-1), np.repeat(scale, L), np.zeros(self.n_mu)])
+        keep_obj = -self.constant if keep else np.zeros(0)
+        self.c = np.concatenate([obj_delta.reshape(-1), keep_obj, np.repeat(scale, L), np.zeros(self.n_mu)])
         self.t_scale = scale
         # rows: for v in (u, l), k, d
         k = np.repeat(np.arange(m), L)
@@ -137,16 +146,20 @@ class RegretProgram:
             v = v_all[xs[k], js[k], d]
             r = side * m * L + np.arange(m * L)
             rows += [r, r]
-            cols += [self.n_delta + k * L + d, g * L + d]
+            cols += [T0 + k * L + d, g * L + d]
             vals += [np.ones(m * L), -v]
+            if keep:
+                rows.append(r)
+                cols.append(self.n_delta + g)
+                vals.append(-v * b[xs[k], d])
             if monotone and L > 1:
                 has_prev = d >= 1
                 rows.append(r[has_prev])
-                cols.append(self.n_delta + self.n_t + k[has_prev] * (L - 1) + d[has_prev] - 1)
+                cols.append(M0 + k[has_prev] * (L - 1) + d[has_prev] - 1)
                 vals.append(v[has_prev])
                 has_next = d <= L - 2
                 rows.append(r[has_next])
-                cols.append(self.n_delta + self.n_t + k[has_next] * (L - 1) + d[has_next])
+                cols.append(M0 + k[has_next] * (L - 1) + d[has_next])
                 vals.append(-v[has_next])
             rlo.append(-v * b[xs[k], d])
         n_rows = 2 * m * L
@@ -154,8 +167,8 @@ class RegretProgram:
                                shape=(n_rows, self.n_cols))
         self.lo = np.concatenate(rlo) if rlo else np.zeros(0)
         self.hi = np.full(n_rows, np.inf)
-        self.col_lo = np.concatenate([np.zeros(self.n_delta), np.full(self.n_t, -np.inf), np.zeros(self.n_mu)])
-        self.col_hi = np.concatenate([np.ones(self.n_delta), np.full(self.n_t, np.inf), np.full(self.n_mu, np.inf)])
+        self.col_lo = np.concatenate([np.zeros(self.n_delta + self.n_keep), np.full(self.n_t, -np.inf), np.zeros(self.n_mu)])
+        self.col_hi = np.concatenate([np.ones(self.n_delta + self.n_keep), np.full(self.n_t, np.inf), np.full(self.n_mu, np.inf)])
 
     def per_rule_cell(self, x: np.ndarray) -> np.ndarray:
         """Worst-case regret per case contributed by each rule cell at a solution x, shape (G,).
@@ -165,7 +178,10 @@ class RegretProgram:
         """
         G, L = self.G, self.L
         delta_part = (self.c[:self.n_delta] * x[:self.n_delta]).reshape(G, L).sum(axis=1)
-        t = x[self.n_delta:self.n_delta + self.n_t].reshape(-1, L).sum(axis=1) * self.t_scale
+        if self.n_keep:
+            delta_part = delta_part + self.c[self.n_delta:self.n_delta + G] * x[self.n_delta:self.n_delta + G]
+        T0 = self.n_delta + self.n_keep
+        t = x[T0:T0 + self.n_t].reshape(-1, L).sum(axis=1) * self.t_scale
         g_of_pair = self.index[self.pairs[0]]
         return delta_part + self.constant + np.bincount(g_of_pair, weights=t, minlength=G)
 
@@ -173,21 +189,26 @@ class RegretProgram:
               settings: LPSettings | None = None) -> tuple[str, np.ndarray | None, float]:
         """Minimize the worst-case regret; returns (HiGHS status name, x, seconds).
 
-        ``extra_rows`` (A, lower, upper) over the delta columns adds the rule's own rows (the
-        simplex rows first); ``fixed_delta`` (G, L) fixes delta, leaving the inner worst case.
+        ``extra_rows`` (A, lower, upper) over the delta and keep columns adds the rule's own rows
+        (the simplex rows first); ``fixed_delta`` (G, L) fixes delta (and no keep column may be
+        used), leaving the inner worst case.
         """
         settings = settings or LPSettings()
         col_lo, col_hi = self.col_lo.copy(), self.col_hi.copy()
         if fixed_delta is not None:
             col_lo[:self.n_delta] = col_hi[:self.n_delta] = np.asarray(fixed_delta, dtype=np.float64).reshape(-1)
+            col_lo[self.n_delta:self.n_delta + self.n_keep] = col_hi[self.n_delta:self.n_delta + self.n_keep] = 0.0
             blocks, lo, hi = [self.A], [self.lo], [self.hi]
         else:
             if extra_rows is None:
                 simplex = sp.csr_matrix((np.ones(self.n_delta), (np.repeat(np.arange(self.G), self.L), np.arange(self.n_delta))),
                                         shape=(self.G, self.n_delta))
+                if self.n_keep:
+                    simplex = sp.hstack([simplex, sp.identity(self.G, format="csr")], format="csr")
                 extra_rows = (simplex, np.ones(self.G), np.ones(self.G))
             E, elo, ehi = extra_rows
-            E = sp.hstack([sp.csr_matrix(E), sp.csr_matrix((E.shape[0], self.n_cols - self.n_delta))], format="csr")
+            E = sp.csr_matrix(E)
+            E = sp.hstack([E, sp.csr_matrix((E.shape[0], self.n_cols - E.shape[1]))], format="csr")
             blocks, lo, hi = [E, self.A], [elo, self.lo], [ehi, self.hi]
         A = sp.vstack(blocks, format="csc")
         h = new_highs()
@@ -247,27 +268,39 @@ class SafeRule:
     Attributes
     ----------
     rule : Rule
+        The safe rule as scored (per cell where it keeps a per-cell baseline's practice).
     baseline : Rule
     bounds : RiskBounds
+    rule_cells : DataFrame
+        The rule cells it was chosen on.
+    levels : ndarray of shape (n_rule_cells, L)
+        Share of each rule cell's cases given each level by the rule itself.
+    keep : ndarray of shape (n_rule_cells,)
+        Share of each rule cell's cases left to the baseline's practice (0 without that option).
+    cases : ndarray of shape (n_rule_cells,)
+    per_rule_cell : ndarray of shape (n_rule_cells,)
+        Each rule cell's part of the worst-case regret (per case of all cases); they sum to it.
     worst_case_regret_per_case : float
         R*: the largest amount per case by which the rule can cost more than the baseline under
         any distribution in the set (<= 0 when certified).
-    per_rule_cell : ndarray of shape (n_rule_cells,)
-        Each rule cell's part of R* (per case of all cases).
     point_regret_per_case : float
         cost(rule) - cost(baseline) under the point estimate.
-    monotone : bool
-        The set includes monotonicity in d.
-    constrained : bool
+    monotone, constrained : bool
     unit : str
     notes : tuple of str
+    seconds : float
+        Time in the solver.
     """
 
     rule: Rule
     baseline: Rule
     bounds: RiskBounds
-    worst_case_regret_per_case: float
+    rule_cells: pd.DataFrame
+    levels: np.ndarray
+    keep: np.ndarray
+    cases: np.ndarray
     per_rule_cell: np.ndarray
+    worst_case_regret_per_case: float
     point_regret_per_case: float
     monotone: bool = True
     constrained: bool = False
@@ -276,19 +309,23 @@ class SafeRule:
     seconds: float = 0.0
 
     @property
+    def _tol(self) -> float:
+        return CERTIFY_TOLERANCE * max(1.0, abs(self.point_regret_per_case))
+
+    @property
     def certified(self) -> bool:
         """No distribution in the set makes the rule costlier than the baseline."""
         return self.worst_case_regret_per_case <= self._tol
 
     @property
-    def _tol(self) -> float:
-        return CERTIFY_TOLERANCE * max(1.0, abs(self.point_regret_per_case))
-
-    @property
     def guaranteed_improvement_per_1000(self) -> float:
-        """-1000 R* where certified, else 0: saving per 1,000 cases under every distribution in the set."""
+        """-1000 R* where that is positive, else 0: the saving per 1,000 cases under every distribution in the set."""
         gain = -self.worst_case_regret_per_case
         return 1000.0 * gain if gain > self._tol else 0.0
+
+    @property
+    def improved_rule_cells(self) -> int:
+        return int((self.per_rule_cell < -self._tol).sum())
 
     def overview(self) -> dict:
         return {
@@ -303,15 +340,25 @@ class SafeRule:
             "worst_case_regret_per_1000_cases": 1000.0 * self.worst_case_regret_per_case,
             "guaranteed_improvement_per_1000_cases": self.guaranteed_improvement_per_1000,
             "point_regret_per_1000_cases": 1000.0 * self.point_regret_per_case,
-            "rule_cells_with_certified_improvement": int((self.per_rule_cell < -self._tol).sum()),
+            "rule_cells": int(len(self.per_rule_cell)),
+            "rule_cells_with_certified_improvement": self.improved_rule_cells,
+            "share_of_cases_left_to_baseline": float((self.keep * self.cases).sum() / self.cases.sum()),
             "cost_unit": self.unit,
         }
 
     def to_frame(self) -> pd.DataFrame:
-        """The rule per rule cell (as :meth:`Rule.to_frame`) with ``worst_case_regret_per_1000_cases``
-        (this rule cell's part of the worst-case regret, per 1,000 cases of all cases) and
-        ``guaranteed_improvement_per_1000_cases`` (its negative where below zero, else 0)."""
-        out = self.rule.to_frame()
+        """One row per rule cell: its columns, ``cases``, ``keep_baseline`` (share of its cases left to
+        the baseline's practice), ``share_<level>`` (share given each level by the rule),
+        ``worst_case_regret_per_1000_cases`` (its part of the worst-case regret, per 1,000 cases of
+        all cases) and ``guaranteed_improvement_per_1000_cases`` (the negative of that part where
+        below zero, else 0)."""
+        out = self.rule_cells.reset_index(drop=True).copy()
+        for c in out.columns:
+            out[c] = out[c].astype(object)
+        out["cases"] = self.cases
+        out["keep_baseline"] = self.keep
+        for d, value in enumerate(self.rule.level_values):
+            out[f"share_{value}"] = self.levels[:, d]
         part = 1000.0 * self.per_rule_cell
         out["worst_case_regret_per_1000_cases"] = part
         out["guaranteed_improvement_per_1000_cases"] = np.where(part < -1000.0 * self._tol, -part, 0.0)
@@ -326,17 +373,19 @@ class SafeRule:
     def summary(self) -> str:
         head = (f"{self.rule.name}: least worst-case regret against {self.baseline.name} over {self.bounds.label}"
                 f"{' and monotonicity' if self.monotone else ''}.")
+        kept = self.overview()["share_of_cases_left_to_baseline"]
         if self.certified:
             body = (f"  certified no worse than the baseline under every distribution in the set; guaranteed saving "
                     f"{self.guaranteed_improvement_per_1000:,.0f} {self.unit} per 1,000 cases "
-                    f"({int((self.per_rule_cell < -self._tol).sum())} rule cells improve for certain); "
+                    f"({self.improved_rule_cells} of {len(self.per_rule_cell)} rule cells improve for certain"
+                    + (f"; {kept:.1%} of cases left to the baseline's practice" if self.keep.any() else "") + "); "
                     f"under the point estimate it saves {max(0.0, -1000 * self.point_regret_per_case):,.0f}"
                     + ("" if self.point_regret_per_case <= self._tol else
                        f" (it costs {1000 * self.point_regret_per_case:,.0f} more: the price of the guarantee)") + ".")
         else:
             body = (f"  NOT certified: under some distribution in the set it costs up to "
                     f"{1000 * self.worst_case_regret_per_case:,.0f} {self.unit} per 1,000 cases more than the baseline "
-                    "(the rule's constraints or rule cells exclude the baseline itself).")
+                    "(the constraints exclude the baseline itself).")
         return head + "\n" + body
 
     __str__ = summary
@@ -345,9 +394,43 @@ class SafeRule:
         return "<pre>" + self.summary() + "</pre>" + self.to_frame().to_html(index=False)
 
 
+def _keep_rows(problem, baseline: np.ndarray, risk_levels: RiskLevels) -> sp.csr_matrix | None:
+    """Coefficients of the keep columns in the rule's rows, or None where the rows cannot take them.
+
+    A row's value is linear in the per-cell decision probabilities; a cell-level problem (every
+    cell its own rule cell) with the same constraints gives the per-cell coefficients, valid when
+    its rows are those of the rule-cell problem (A_cell P = A_rule, P spreading each rule cell's
+    probabilities over its cells); rows that depend on the rule cells themselves (a group-blind
+    or monotone-in-score constraint) fail that check. Column g of the result is
+    sum_{x in g} sum_d A_cell[:, x L + d] b(d | x), with the simplex rows' identity.
+    """
+    from policy.decision.constrained import ConstrainedProblem
+
+    G, L, n = problem.n_rule_cells, risk_levels.n_levels, risk_levels.n_cells
+    A_rule, _, _ = problem.rows()
+    if A_rule.shape[0] == G:   # no constraint rows: the simplex rows only
+        return sp.identity(G, format="csr")
+    try:
+        cell_problem = ConstrainedProblem(risk_levels, problem.base_costs, problem.specs,
+                                          list(risk_levels.layout.frame.columns), problem.settings)
+    except InputError:
+        return None
+    A_cell, _, _ = cell_problem.rows()
+    if A_cell.shape[0] - n != A_rule.shape[0] - G:
+        return None
+    spread = sp.csr_matrix((np.ones(n * L), (np.arange(n * L), (problem.index[:, None] * L + np.arange(L)).reshape(-1))),
+                           shape=(n * L, G * L))
+    rows_cell = A_cell[n:] @ spread
+    if abs(rows_cell - A_rule[G:]).max() > 1e-12 * max(1.0, abs(A_rule).max()):
+        return None
+    keep_cell = sp.csr_matrix((baseline.reshape(-1), (np.arange(n * L), np.repeat(problem.index, L))), shape=(n * L, G))
+    return sp.vstack([sp.identity(G, format="csr"), A_cell[n:] @ keep_cell], format="csr")
+
+
 def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baseline: Rule,
               constraints: Sequence[Any | Mapping] = (), columns: Sequence[str] | None = None,
-              settings: LPSettings | None = None, monotone: bool = True, name: str | None = None) -> SafeRule:
+              settings: LPSettings | None = None, monotone: bool = True, keep_baseline: bool | None = None,
+              name: str | None = None) -> SafeRule:
     """The rule that minimizes the worst-case regret against ``baseline`` over the set ``bounds``.
 
     Parameters
@@ -364,6 +447,11 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     monotone : bool
         Intersect the box with monotonicity in d (default true; it still contains every
         distribution consistent with the data, and certifies more).
+    keep_baseline : bool, optional
+        Let each rule cell leave a share of its cases to the baseline's own practice (see
+        :class:`RegretProgram`). Default: where the baseline varies within the rule cells (a
+        per-cell observed rule), so that keeping it is always possible and the rule is certified
+        whenever the baseline meets the constraints.
     name : str, optional
 
     Raises
@@ -377,41 +465,67 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     check_bounds(bounds, risk_levels)
     if not isinstance(baseline, Rule):
         raise InputError(f"the baseline of a safe rule must be a Rule; got {type(baseline).__name__}.")
+    if baseline.cell_delta.shape != (risk_levels.n_cells, risk_levels.n_levels):
+        raise InputError(f"the baseline {baseline.name!r} covers {baseline.cell_delta.shape[0]} cells; the estimates have "
+                         f"{risk_levels.n_cells}.")
     name = name or f"safe rule against {baseline.name} ({bounds.label})"
     problem = ConstrainedProblem(risk_levels, costs, constraints, columns, settings)
-    program = RegretProgram(risk_levels, costs, bounds, baseline.cell_delta, problem.index, problem.n_rule_cells, monotone)
-    status, x, seconds = program.solve(extra_rows=problem.rows(), settings=problem.settings)
+    G, L = problem.n_rule_cells, risk_levels.n_levels
+    b = baseline.cell_delta
+    if keep_baseline is None:
+        w = risk_levels.weights
+        mean = np.stack([np.bincount(problem.index, weights=w * b[:, d], minlength=G) for d in range(L)], axis=1)
+        mean /= np.maximum(np.bincount(problem.index, weights=w, minlength=G), 1e-300)[:, None]
+        keep_baseline = bool(np.abs(mean[problem.index] - b).max() > 1e-9)
+    notes = []
+    keep_rows = _keep_rows(problem, b, risk_levels) if keep_baseline else None
+    if keep_baseline and keep_rows is None:
+        notes.append("the constraints depend on the rule cells (group-blind or monotone in score), so the rule cannot "
+                     "leave cases to the baseline's per-cell practice")
+    keep = keep_rows is not None
+    program = RegretProgram(risk_levels, costs, bounds, b, problem.index, G, monotone, keep)
+    A, lo, hi = problem.rows()
+    extra = (sp.hstack([A, keep_rows], format="csr") if keep else A, lo, hi)
+    status, x, seconds = program.solve(extra_rows=extra, settings=problem.settings)
     if status in ("kInfeasible", "kUnboundedOrInfeasible"):
         problem.solve_lp()  # the ordinary program has the same rows: it names the conflicting constraints
         raise SolverError(f"the safe rule's linear program was reported {status}, though the constraints can hold.")
     if x is None:
         raise _status_error(status, "the safe rule's linear program")
-    G, L = problem.n_rule_cells, risk_levels.n_levels
-    raw = x[:G * L].reshape(G, L)
-    if raw.min() < -FEASIBILITY_TOLERANCE or np.abs(raw.sum(axis=1) - 1).max() > FEASIBILITY_TOLERANCE:
+    nu = x[:G * L].reshape(G, L)
+    lam = x[G * L:G * L + G] if keep else np.zeros(G)
+    total = nu.sum(axis=1) + lam
+    if nu.min() < -FEASIBILITY_TOLERANCE or (lam.size and lam.min() < -FEASIBILITY_TOLERANCE) \
+            or np.abs(total - 1).max() > FEASIBILITY_TOLERANCE:
         raise SolverError("the safe rule's solver returned decision probabilities that are not a distribution; no rule is reported.")
-    delta = np.maximum(raw, 0.0)
-    delta /= delta.sum(axis=1, keepdims=True)
+    nu, lam = np.maximum(nu, 0.0), np.clip(lam, 0.0, 1.0)
+    scale = nu.sum(axis=1) + lam
+    nu, lam = nu / scale[:, None], lam / scale
+    lam = np.where(lam < 1e-9, 0.0, lam)
     per_group = program.per_rule_cell(x)
-    rule = problem.present(delta, name)
-    rule = Rule(rule.name, "safe", rule.rule_cells, rule.index, rule.delta, rule.level_values, rule.level_labels,
-                rule.weights, rule.note)
-    if len(rule.rule_cells) != G:  # coarsened by a group-blind constraint: parts summed over the merged rule cells
-        fine_to_coarse = np.zeros(G, dtype=np.int64)
-        fine_to_coarse[problem.index] = rule.index
-        per_group = np.bincount(fine_to_coarse, weights=per_group, minlength=rule.n_rule_cells)
+    cases = np.bincount(problem.index, weights=risk_levels.weights, minlength=G)
+    rule_cells = problem.rule_cells
+    if keep:
+        cell_delta = nu[problem.index] + lam[problem.index, None] * b
+        rule = Rule.per_cell(name, "safe", risk_levels.layout, cell_delta, risk_levels.level_values, risk_levels.level_labels,
+                             risk_levels.weights, "leaves some cases to the baseline's practice" if lam.any() else "")
+    else:
+        rule = problem.present(nu, name)
+        rule = Rule(rule.name, "safe", rule.rule_cells, rule.index, rule.delta, rule.level_values, rule.level_labels,
+                    rule.weights, rule.note)
+        if len(rule.rule_cells) != G:  # coarsened by a group-blind constraint: parts summed over the merged rule cells
+            fine_to_coarse = np.zeros(G, dtype=np.int64)
+            fine_to_coarse[problem.index] = rule.index
+            per_group = np.bincount(fine_to_coarse, weights=per_group, minlength=rule.n_rule_cells)
+            rule_cells, nu, lam, cases = rule.rule_cells, rule.delta, np.zeros(rule.n_rule_cells), rule.weights
     w = risk_levels.weights
-    point = rule_cost(rule.cell_delta, risk_levels.p, w, costs) - rule_cost(baseline.cell_delta, risk_levels.p, w, costs)
-    notes = []
+    point = rule_cost(rule.cell_delta, risk_levels.p, w, costs) - rule_cost(b, risk_levels.p, w, costs)
     if constraints:
         notes.append("the constraints are evaluated under the point estimate, as for the ordinary constrained optimum")
-    result = SafeRule(rule, baseline, bounds, float(per_group.sum()), per_group, point, monotone, bool(constraints),
-                      costs.unit, tuple(notes), seconds)
+    result = SafeRule(rule, baseline, bounds, rule_cells, nu, lam, cases, per_group, float(per_group.sum()), point, monotone,
+                      bool(constraints), costs.unit, tuple(notes), seconds)
     if not result.certified:
-        result = SafeRule(rule, baseline, bounds, result.worst_case_regret_per_case, per_group, point, monotone,
-                          bool(constraints), costs.unit,
-                          result.notes + ("no rule on these rule cells within the constraints is certified no worse than "
-                                          "the baseline: the baseline varies within rule cells or breaks a constraint",),
-                          seconds)
+        why = ("the baseline breaks a constraint" if keep or not keep_baseline else
+               "the baseline varies within rule cells and breaks a constraint or the constraints depend on the rule cells")
+        result = replace(result, notes=result.notes + (f"no rule within the constraints is certified no worse than the baseline: {why}",))
     return result
-
