@@ -406,3 +406,59 @@ def test_output_files_hold_the_figures_and_the_cautions():
     frame = safe.output_files()["safe_rule.csv"]
     assert frame["worst_case_regret_per_1000_cases"].sum() == pytest.approx(1000 * safe.worst_case_regret_per_case)
     assert (frame["guaranteed_improvement_per_1000_cases"] >= 0).all()
+
+
+# ----------------------------------------------------------------------------------------------
+# The command line
+# ----------------------------------------------------------------------------------------------
+def test_solve_writes_the_robust_and_safe_rules(small_case_table, tmp_path, capsys):
+    import json
+
+    import pandas as pd
+
+    from .conftest import run_cli
+
+    scenario, _ = small_case_table
+    out = tmp_path / "out"
+    code, stdout, err = run_cli(["solve", scenario, "-o", out, "--robust-gamma", "2", "--safe-against", "courts-not-shown"], capsys)
+    assert code == 0, err
+    assert "Rules that hold under doubt" in stdout and "certified no worse" in stdout
+    meta = json.loads((out / "safe_rule.json").read_text())
+    assert meta["certified"] and meta["gamma"] == 2 and meta["guaranteed_improvement_per_1000_cases"] >= 0
+    robust = json.loads((out / "robust_rule.json").read_text())
+    assert robust["reference_rule"] == "cost-minimizing rule" and robust["protection_per_1000_cases"] >= -1e-6
+    frame = pd.read_csv(out / "safe_rule.csv")
+    assert {"keep_baseline", "worst_case_regret_per_1000_cases", "guaranteed_improvement_per_1000_cases"} <= set(frame.columns)
+    assert (out / "robust_rule.csv").exists() and (out / "rule.csv").exists()
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["--safe-against", "courts-shown"], "--safe-against needs a set"),
+    (["--robust-gamma", "0.5"], "--robust-gamma must be"),
+    (["--robust-gamma", "2", "--robust-bounds"], "not both"),
+    (["--robust-bounds", "--safe-against", "the mayor's rule"], "names no rule of this scenario"),
+])
+def test_solve_refuses_bad_doubt_options_and_writes_nothing(small_case_table, tmp_path, capsys, argv, message):
+    from .conftest import run_cli
+
+    scenario, _ = small_case_table
+    out = tmp_path / "out"
+    code, _, err = run_cli(["solve", scenario, "-o", out] + argv, capsys)
+    assert code == 2 and message in err
+    assert not out.exists()
+
+
+def test_compare_adds_the_robust_and_safe_rules(small_case_table, tmp_path, capsys):
+    import pandas as pd
+
+    from .conftest import run_cli
+
+    scenario, _ = small_case_table
+    out = tmp_path / "out"
+    code, stdout, err = run_cli(["compare", scenario, "-o", out, "--replicates", "5", "--no-progress",
+                                 "--robust-bounds", "--safe-against", "aid"], capsys)
+    assert code == 0, err
+    rules = pd.read_csv(out / "comparison.csv")["rule"].tolist()
+    assert any(r.startswith("robust rule (monotone bounds)") for r in rules)
+    assert any(r.startswith("safe rule against") for r in rules)
+    assert (out / "safe_rule.json").exists() and (out / "robust_rule.json").exists()

@@ -511,14 +511,20 @@ def compare(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    robust_gamma: Optional[float] = RobustGammaOption,
+    robust_bounds: bool = RobustBoundsOption,
+    safe_against: Optional[str] = SafeAgainstOption,
 ):
-    """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
+    """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals.
+
+    With --robust-gamma or --robust-bounds the robust rule (and with --safe-against the safe rule) joins them."""
     from policy.assessment.compare import compare as run_compare
     from policy.outputs import write_outputs
 
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner)
+                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner,
+                                 doubt=_doubt(robust_gamma, robust_bounds, safe_against))
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
@@ -535,6 +541,8 @@ def compare(
         for line in readings:
             console.print(f"  - {line}")
         show_assumptions("aid_effect")
+    if comparison.under_doubt is not None:
+        _print_doubt(comparison.under_doubt)
     for note in comparison.notes:
         console.print(f"Note: {note}")
     show_cautions()
