@@ -95,10 +95,12 @@ class RegretProgram:
     n_delta, n_keep, n_cols : int
         Decision-probability columns (G * L, first), keep columns (G or 0, next) and all columns.
     c : ndarray of shape (n_cols,)
-        Objective (per case): decision-cost and point-interval parts on delta, c_j w / W on t.
+        Objective (per case): decision-cost and point-interval parts on delta; c_j w / W times the
+        upper ends on s+ and minus the lower ends on s-.
     constant : ndarray of shape (G,)
         The baseline's share of the regret of each rule cell (enters no column).
-    A, lo, hi : the dual rows t_d - v_d (delta_d - mu_{d-1} + mu_d) >= -v_d b_d, v in {u, l}.
+    A, lo, hi : the dual rows s+_d - s-_d - delta_d + mu_{d-1} - mu_d = -b_d (equalities), one per
+        uncertain (cell, outcome kind) and level.
     """
 
     def __init__(self, risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baseline: np.ndarray,
@@ -128,47 +130,46 @@ class RegretProgram:
         self.pairs = (xs, js)
         self.n_delta = G * L
         self.n_keep = G if keep else 0
-        self.n_t = m * L
+        self.n_t = 2 * m * L
         self.n_mu = m * (L - 1) if monotone else 0
         self.n_cols = self.n_delta + self.n_keep + self.n_t + self.n_mu
         T0 = self.n_delta + self.n_keep
         M0 = T0 + self.n_t
         scale = oc[js] * w[xs] / W  # (m,)
-        keep_obj = -self.constant if keep else np.zeros(0)
-        self.c = np.concatenate([obj_delta.reshape(-1), keep_obj, np.repeat(scale, L), np.zeros(self.n_mu)])
-        self.t_scale = scale
-        # rows: for v in (u, l), k, d
         k = np.repeat(np.arange(m), L)
         d = np.tile(np.arange(L), m)
+        u = hi_p[xs[k], js[k], d]
+        low = lo_p[xs[k], js[k], d]
+        keep_obj = -self.constant if keep else np.zeros(0)
+        # s+ priced at the upper end, s- credited at the lower end
+        self.c = np.concatenate([obj_delta.reshape(-1), keep_obj, scale[k] * u, -scale[k] * low, np.zeros(self.n_mu)])
+        # one equality row per (pair k, level d): s+ - s- - delta(d|g) [- lambda_g b] + mu_{d-1} - mu_d = -b(d|x)
         g = self.index[xs][k]
-        rows, cols, vals, rlo = [], [], [], []
-        for side, v_all in enumerate((hi_p, lo_p)):
-            v = v_all[xs[k], js[k], d]
-            r = side * m * L + np.arange(m * L)
-            rows += [r, r]
-            cols += [T0 + k * L + d, g * L + d]
-            vals += [np.ones(m * L), -v]
-            if keep:
-                rows.append(r)
-                cols.append(self.n_delta + g)
-                vals.append(-v * b[xs[k], d])
-            if monotone and L > 1:
-                has_prev = d >= 1
-                rows.append(r[has_prev])
-                cols.append(M0 + k[has_prev] * (L - 1) + d[has_prev] - 1)
-                vals.append(v[has_prev])
-                has_next = d <= L - 2
-                rows.append(r[has_next])
-                cols.append(M0 + k[has_next] * (L - 1) + d[has_next])
-                vals.append(-v[has_next])
-            rlo.append(-v * b[xs[k], d])
-        n_rows = 2 * m * L
+        r = np.arange(m * L)
+        rows = [r, r, r]
+        cols = [T0 + k * L + d, T0 + m * L + k * L + d, g * L + d]
+        vals = [np.ones(m * L), -np.ones(m * L), -np.ones(m * L)]
+        bx = b[xs[k], d]
+        if keep:
+            rows.append(r)
+            cols.append(self.n_delta + g)
+            vals.append(-bx)
+        if monotone and L > 1:
+            has_prev = d >= 1
+            rows.append(r[has_prev])
+            cols.append(M0 + k[has_prev] * (L - 1) + d[has_prev] - 1)
+            vals.append(np.ones(int(has_prev.sum())))
+            has_next = d <= L - 2
+            rows.append(r[has_next])
+            cols.append(M0 + k[has_next] * (L - 1) + d[has_next])
+            vals.append(-np.ones(int(has_next.sum())))
+        n_rows = m * L
         self.A = sp.csr_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
                                shape=(n_rows, self.n_cols))
-        self.lo = np.concatenate(rlo) if rlo else np.zeros(0)
-        self.hi = np.full(n_rows, np.inf)
-        self.col_lo = np.concatenate([np.zeros(self.n_delta + self.n_keep), np.full(self.n_t, -np.inf), np.zeros(self.n_mu)])
-        self.col_hi = np.concatenate([np.ones(self.n_delta + self.n_keep), np.full(self.n_t, np.inf), np.full(self.n_mu, np.inf)])
+        self.lo = -bx
+        self.hi = -bx.copy()
+        self.col_lo = np.zeros(self.n_cols)
+        self.col_hi = np.concatenate([np.ones(self.n_delta + self.n_keep), np.full(self.n_t + self.n_mu, np.inf)])
 
     def per_rule_cell(self, x: np.ndarray) -> np.ndarray:
         """Worst-case regret per case contributed by each rule cell at a solution x, shape (G,).
@@ -181,7 +182,8 @@ class RegretProgram:
         if self.n_keep:
             delta_part = delta_part + self.c[self.n_delta:self.n_delta + G] * x[self.n_delta:self.n_delta + G]
         T0 = self.n_delta + self.n_keep
-        t = x[T0:T0 + self.n_t].reshape(-1, L).sum(axis=1) * self.t_scale
+        m = len(self.pairs[0])
+        t = (self.c[T0:T0 + self.n_t] * x[T0:T0 + self.n_t]).reshape(2, m, L).sum(axis=(0, 2))
         g_of_pair = self.index[self.pairs[0]]
         return delta_part + self.constant + np.bincount(g_of_pair, weights=t, minlength=G)
 
