@@ -19,12 +19,13 @@ with a_d = c_j w(x) delta(d | g(x)) / W >= 0 (costs and decision probabilities a
 negative). Its LP dual (multipliers alpha, beta >= 0 on p <= u and p >= l, mu_d >= 0 on
 p_{d+1} - p_d <= 0) is
 
-    min u'alpha - l'beta  subject to  alpha_d - beta_d + mu_{d-1} - mu_d = a_d,
+    min u'alpha - l'beta  subject to  alpha_d - beta_d + mu_{d-1} - mu_d = a_d.
 
-whose optimum for a >= 0 is alpha = a at the point p*_d = min_{d' <= d} u_d' (the running
-minimum of the upper ends, which is feasible since l is non-increasing and l <= u; the
-intervals of :mod:`policy.estimation.bounds` are already non-increasing, so p* = u). Primal and
-dual values agree at p*, so the worst case of EVERY rule is attained at the same p*, and the
+For a >= 0 every feasible p has p_d <= p_d' <= u_d' for d' <= d, so p_d <= p*_d = min_{d' <= d}
+u_d' (the running minimum of the upper ends), and p* is feasible (non-increasing, and >= l since
+l is non-increasing and l <= u): a'p <= a'p*. The intervals of :mod:`policy.estimation.bounds`
+are non-increasing, so p* = u, and alpha = a, beta = mu = 0 is a dual point of the same value,
+certifying the maximum. So the worst case of EVERY rule is attained at the same p*, and the
 robust rule is the ordinary (constrained) optimum with the outcomes priced at p*: one linear
 program of the ordinary size. With coefficients of either sign (the regret against a baseline,
 :mod:`policy.decision.safe`) the dual does not collapse and the program grows by the dual's

@@ -6,11 +6,12 @@ rule solves
 
     R* = min_delta max_{p in U} [cost(delta, p) - cost(b, p)]
 
-subject to the rule's constraints. If b itself satisfies them (always so without constraints
-when b is a rule on the same rule cells), delta = b is feasible and R* <= 0: the safe rule is no
-worse than the baseline under every distribution in U, and -R* is the improvement guaranteed
-under all of them (zero where none can be certified). The worst case separates over cells, so
-R* is the sum of per-rule-cell worst-case regrets, each reported on its own.
+subject to the rule's constraints. If b itself satisfies them, delta = b is feasible (a
+per-cell baseline that varies within the rule cells is reached by letting each rule cell leave
+a share of its cases to the baseline's practice, see :class:`RegretProgram`) and R* <= 0: the
+safe rule is no worse than the baseline under every distribution in U, and -R* is the
+improvement guaranteed under all of them (zero where none can be certified). The worst case
+separates over cells, so R* is the sum of per-rule-cell worst-case regrets, each reported.
 
 Notes
 -----
@@ -21,17 +22,17 @@ l <= p <= u, p_d >= p_{d+1} has the dual (see :mod:`policy.decision.robust`)
     min_{alpha, beta, mu >= 0} u'alpha - l'beta  s.t.  alpha_d - beta_d = a_d - mu_{d-1} + mu_d.
 
 For given mu the best alpha, beta are the positive and negative parts of s_d = a_d - mu_{d-1} +
-mu_d, with value sum_d max(u_d s_d, l_d s_d) (u >= l). Scaling mu by c_j w(x) / W and writing
-the maximum with one epigraph variable t_d per level gives, for each uncertain (x, j),
+mu_d, with value sum_d (u_d s_d^+ - l_d s_d^-) (u >= l). Scaling mu by c_j w(x) / W and
+splitting s = s+ - s- (both >= 0) gives, for each uncertain (x, j), the columns s+, s-, mu >= 0,
+the objective c_j w(x) / W sum_d (u_d s+_d - l_d s-_d) and the equality rows
 
-    c_j w(x) / W * sum_d t_d,   t_d >= u_d s_d,  t_d >= l_d s_d,
-    s_d = delta(d | g(x)) - b(d | x) - mu_{d-1} + mu_d,  mu >= 0,
+    s+_d - s-_d - delta(d | g(x)) + mu_{d-1} - mu_d = -b(d | x),
 
-linear in (delta, t, mu) jointly; by LP duality its minimum over (t, mu) is the inner maximum,
-so minimizing over (delta, t, mu) together is one linear program (solved with HiGHS). Pairs
-(x, j) whose interval is a point (Gamma = 1, structural zeros) or whose cost c_j is zero enter
-the objective directly. Without monotonicity (``monotone=False``) mu is dropped and the set is
-the box alone.
+linear in (delta, s+, s-, mu) jointly; by LP duality its minimum over (s+, s-, mu) is the inner
+maximum, so minimizing over all of them together is one linear program (solved with HiGHS).
+Pairs (x, j) whose interval is a point (Gamma = 1, structural zeros) or whose cost c_j is zero
+enter the objective directly. Without monotonicity (``monotone=False``) mu is dropped and the
+set is the box alone.
 
 References
 ----------
