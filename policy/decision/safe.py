@@ -67,6 +67,9 @@ from policy.estimation.strata import RiskLevels
 
 __all__ = ["RegretProgram", "worst_case_regret", "SafeRule", "safe_rule"]
 
+#: how the note saying why a safe rule is not certified begins
+NOT_CERTIFIED = "no rule within the constraints is certified no worse than the baseline"
+
 #: a worst-case regret within this of zero (cost units per case, relative to the costs' scale) counts as zero
 CERTIFY_TOLERANCE = 1e-7
 
@@ -386,9 +389,10 @@ class SafeRule:
                     + ("" if self.point_regret_per_case <= self._tol else
                        f" (it costs {1000 * self.point_regret_per_case:,.0f} more: the price of the guarantee)") + ".")
         else:
+            why = [n.split(": ", 1)[1] for n in self.notes if n.startswith(NOT_CERTIFIED)]
             body = (f"  NOT certified: under some distribution in the set it costs up to "
-                    f"{1000 * self.worst_case_regret_per_case:,.0f} {self.unit} per 1,000 cases more than the baseline "
-                    "(the constraints exclude the baseline itself).")
+                    f"{1000 * self.worst_case_regret_per_case:,.0f} {self.unit} per 1,000 cases more than the baseline"
+                    + (f" ({why[0]})." if why else "."))
         return head + "\n" + body
 
     __str__ = summary
@@ -529,6 +533,6 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
                       bool(constraints), costs.unit, tuple(notes), seconds)
     if not result.certified:
         why = ("the baseline breaks a constraint" if keep or not keep_baseline else
-               "the baseline varies within rule cells and breaks a constraint or the constraints depend on the rule cells")
-        result = replace(result, notes=result.notes + (f"no rule within the constraints is certified no worse than the baseline: {why}",))
+               "the baseline varies within the rule cells and a constraint depends on the rule cells themselves")
+        result = replace(result, notes=result.notes + (f"{NOT_CERTIFIED}: {why}",))
     return result
