@@ -132,6 +132,22 @@ def test_worst_case_regret_lp_equals_brute_force_over_extreme_points(seed, level
     assert got.per_rule_cell.sum() == pytest.approx(got.total)
 
 
+@pytest.mark.slow
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10**6), levels=st.integers(2, 4), outcomes=st.integers(1, 3),
+       kind=st.sampled_from(["gamma", "box"]), gamma=st.floats(1.0, 20.0), monotone=st.booleans())
+def test_many_worst_case_regrets_equal_brute_force(seed, levels, outcomes, kind, gamma, monotone):
+    # the long version of the check above: more instances, up to 4 levels and 3 outcome kinds
+    rl, costs, columns, bounds = instance(seed, levels, outcomes, kind, gamma)
+    rng = np.random.default_rng(seed)
+    delta, index = random_rule_cells(rng, rl, columns, deterministic=bool(seed % 2))
+    base = rng.dirichlet(np.ones(levels), size=rl.n_cells)
+    expected = brute_worst_regret(delta[index], base, rl, costs, bounds, monotone)
+    assert worst_case_regret(delta[index], base, rl, costs, bounds, monotone).total == pytest.approx(expected, rel=1e-7, abs=1e-7)
+    assert worst_case_cost(delta[index], rl, costs, bounds) == pytest.approx(brute_worst_cost(delta[index], rl, costs, bounds),
+                                                                             rel=1e-9, abs=1e-9)
+
+
 def test_joint_enumeration_of_a_tiny_set_agrees():
     # the full product of extreme points (not factor by factor) on 2 cells x 1 outcome x 3 levels
     rl, costs, columns, bounds = instance(3, 3, 1, "box", scores=1, buckets=1)
