@@ -67,11 +67,14 @@ from policy.estimation.strata import RiskLevels
 
 __all__ = ["RegretProgram", "worst_case_regret", "SafeRule", "safe_rule"]
 
+#: primal and dual feasibility tolerance of the HiGHS solves of the regret program
+FEASIBILITY = 1e-9
+
 #: how the note saying why a safe rule is not certified begins
 NOT_CERTIFIED = "no rule within the constraints is certified no worse than the baseline"
 
-#: a worst-case regret within this of zero (cost units per case, relative to the costs' scale) counts as zero
-CERTIFY_TOLERANCE = 1e-7
+#: a worst-case regret within this share of the baseline's expected cost per case counts as zero
+CERTIFY_TOLERANCE = 1e-9
 
 
 class RegretProgram:
@@ -147,6 +150,11 @@ class RegretProgram:
         keep_obj = -self.constant if keep else np.zeros(0)
         # s+ priced at the upper end, s- credited at the lower end
         self.c = np.concatenate([obj_delta.reshape(-1), keep_obj, scale[k] * u, -scale[k] * low, np.zeros(self.n_mu)])
+        # the regret under the point estimate (the tie-break among minimax-regret rules)
+        point = w[:, None] * costs.expected(risk_levels.p) / W
+        point_delta = np.stack([np.bincount(self.index, weights=point[:, d], minlength=G) for d in range(L)], axis=1)
+        point_keep = np.bincount(self.index, weights=(point * b).sum(axis=1), minlength=G) if keep else np.zeros(0)
+        self.point_c = np.concatenate([point_delta.reshape(-1), point_keep, np.zeros(self.n_cols - self.n_delta - self.n_keep)])
         # one equality row per (pair k, level d): s+ - s- - delta(d|g) [- lambda_g b] + mu_{d-1} - mu_d = -b(d|x)
         g = self.index[xs][k]
         r = np.arange(m * L)
@@ -191,19 +199,23 @@ class RegretProgram:
         g_of_pair = self.index[self.pairs[0]]
         return delta_part + self.constant + np.bincount(g_of_pair, weights=t, minlength=G)
 
-    def solve(self, extra_rows: tuple | None = None, fixed_delta: np.ndarray | None = None,
-              settings: LPSettings | None = None) -> tuple[str, np.ndarray | None, float]:
+    def solve(self, extra_rows: tuple | None = None, fixed: np.ndarray | None = None,
+              settings: LPSettings | None = None, tie_break: bool = False) -> tuple[str, np.ndarray | None, float]:
         """Minimize the worst-case regret; returns (HiGHS status name, x, seconds).
 
         ``extra_rows`` (A, lower, upper) over the delta and keep columns adds the rule's own rows
-        (the simplex rows first); ``fixed_delta`` (G, L) fixes delta (and no keep column may be
-        used), leaving the inner worst case.
+        (the simplex rows first); ``fixed`` fixes the delta columns (G * L values, keep columns
+        then 0) or the delta and keep columns (G * L + G values), leaving the inner worst case.
+        ``tie_break``: a second pass keeps the worst-case regret at its minimum (within 1e-9
+        relative) and minimizes the regret under the point estimate among those rules.
         """
         settings = settings or LPSettings()
         col_lo, col_hi = self.col_lo.copy(), self.col_hi.copy()
-        if fixed_delta is not None:
-            col_lo[:self.n_delta] = col_hi[:self.n_delta] = np.asarray(fixed_delta, dtype=np.float64).reshape(-1)
-            col_lo[self.n_delta:self.n_delta + self.n_keep] = col_hi[self.n_delta:self.n_delta + self.n_keep] = 0.0
+        if fixed is not None:
+            values = np.asarray(fixed, dtype=np.float64).reshape(-1)
+            n_fixed = self.n_delta + self.n_keep
+            values = np.concatenate([values, np.zeros(n_fixed - len(values))])
+            col_lo[:n_fixed] = col_hi[:n_fixed] = values
             blocks, lo, hi = [self.A], [self.lo], [self.hi]
         else:
             if extra_rows is None:
@@ -220,12 +232,30 @@ class RegretProgram:
         h = new_highs()
         if settings.time_limit is not None:
             h.setOptionValue("time_limit", float(settings.time_limit))
+        # the certificate compares a worst case with 0: tighter than HiGHS's default 1e-7
+        h.setOptionValue("primal_feasibility_tolerance", FEASIBILITY)
+        h.setOptionValue("dual_feasibility_tolerance", FEASIBILITY)
         load_lp(h, self.c, A, np.concatenate(lo), np.concatenate(hi), col_lo, col_hi)
         status, seconds = _highs_run(h, settings.first_method(self.n_cols))
         if status != "kOptimal":
             return status, None, seconds
         self.iterations = _highs_iterations(h)
-        return status, np.asarray(h.getSolution().col_value), seconds
+        x = np.asarray(h.getSolution().col_value)
+        self.tie_broken = False
+        self.first_x = x
+        if tie_break and fixed is None:
+            best = float(self.c @ x)
+            cap = best + 1e-9 * max(1.0, abs(best))
+            cols = np.flatnonzero(self.c).astype(np.int32)
+            h.addRow(-np.inf, cap, len(cols), cols, self.c[cols])
+            h.changeColsCost(self.n_cols, np.arange(self.n_cols, dtype=np.int32), self.point_c)
+            status2, more = _highs_run(h, "simplex")
+            seconds += more
+            if status2 == "kOptimal":
+                x2 = np.asarray(h.getSolution().col_value)
+                if float(self.c @ x2) <= cap + 1e-9 * max(1.0, abs(best)):
+                    x, self.tie_broken = x2, True
+        return status, x, seconds
 
 
 @dataclass(frozen=True)
@@ -256,7 +286,7 @@ def worst_case_regret(rule: Rule | np.ndarray, baseline: Rule | np.ndarray, risk
     b = baseline.cell_delta if isinstance(baseline, Rule) else np.asarray(baseline, dtype=np.float64)
     n = risk_levels.n_cells
     program = RegretProgram(risk_levels, costs, bounds, b, np.arange(n), n, monotone)
-    status, x, _ = program.solve(fixed_delta=delta)
+    status, x, _ = program.solve(fixed=delta)
     if x is None:
         raise _status_error(status, "the worst-case regret's linear program")
     per_cell = program.per_rule_cell(x)
@@ -296,6 +326,9 @@ class SafeRule:
     notes : tuple of str
     seconds : float
         Time in the solver.
+    cost_scale : float
+        The baseline's expected cost per case under the point estimate: worst-case regrets within
+        :data:`CERTIFY_TOLERANCE` of it count as zero (solver tolerance).
     """
 
     rule: Rule
@@ -313,10 +346,11 @@ class SafeRule:
     unit: str = ""
     notes: tuple[str, ...] = ()
     seconds: float = 0.0
+    cost_scale: float = 1.0
 
     @property
     def _tol(self) -> float:
-        return CERTIFY_TOLERANCE * max(1.0, abs(self.point_regret_per_case))
+        return CERTIFY_TOLERANCE * max(1.0, self.cost_scale)
 
     @property
     def certified(self) -> bool:
@@ -437,7 +471,7 @@ def _keep_rows(problem, baseline: np.ndarray, risk_levels: RiskLevels) -> sp.csr
 def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baseline: Rule,
               constraints: Sequence[Any | Mapping] = (), columns: Sequence[str] | None = None,
               settings: LPSettings | None = None, monotone: bool = True, keep_baseline: bool | None = None,
-              name: str | None = None) -> SafeRule:
+              tie_break: bool = True, name: str | None = None) -> SafeRule:
     """The rule that minimizes the worst-case regret against ``baseline`` over the set ``bounds``.
 
     Parameters
@@ -459,6 +493,10 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
         :class:`RegretProgram`). Default: where the baseline varies within the rule cells (a
         per-cell observed rule), so that keeping it is always possible and the rule is certified
         whenever the baseline meets the constraints.
+    tie_break : bool
+        Among the rules of least worst-case regret, take one with the least regret under the
+        point estimate (a second, warm-started pass; default true). Without it the solver's
+        vertex stands.
     name : str, optional
 
     Raises
@@ -493,22 +531,51 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     program = RegretProgram(risk_levels, costs, bounds, b, problem.index, G, monotone, keep)
     A, lo, hi = problem.rows()
     extra = (sp.hstack([A, keep_rows], format="csr") if keep else A, lo, hi)
-    status, x, seconds = program.solve(extra_rows=extra, settings=problem.settings)
+    status, x, seconds = program.solve(extra_rows=extra, settings=problem.settings, tie_break=tie_break)
     if status in ("kInfeasible", "kUnboundedOrInfeasible"):
         problem.solve_lp()  # the ordinary program has the same rows: it names the conflicting constraints
         raise SolverError(f"the safe rule's linear program was reported {status}, though the constraints can hold.")
     if x is None:
         raise _status_error(status, "the safe rule's linear program")
-    nu = x[:G * L].reshape(G, L)
-    lam = x[G * L:G * L + G] if keep else np.zeros(G)
-    total = nu.sum(axis=1) + lam
-    if nu.min() < -FEASIBILITY_TOLERANCE or (lam.size and lam.min() < -FEASIBILITY_TOLERANCE) \
-            or np.abs(total - 1).max() > FEASIBILITY_TOLERANCE:
-        raise SolverError("the safe rule's solver returned decision probabilities that are not a distribution; no rule is reported.")
-    nu, lam = np.maximum(nu, 0.0), np.clip(lam, 0.0, 1.0)
-    scale = nu.sum(axis=1) + lam
-    nu, lam = nu / scale[:, None], lam / scale
-    lam = np.where(lam < 1e-9, 0.0, lam)
+    n_rule = program.n_delta + program.n_keep
+    baseline_cost = rule_cost(b, risk_levels.p, risk_levels.weights, costs)
+
+    def rounded(point: np.ndarray):
+        """The rule's probabilities of a solution, checked, with solver dust (below 1e-9) set to 0."""
+        nu = point[:G * L].reshape(G, L)
+        lam = point[G * L:n_rule] if keep else np.zeros(G)
+        total = nu.sum(axis=1) + lam
+        if nu.min() < -FEASIBILITY_TOLERANCE or (keep and lam.min() < -FEASIBILITY_TOLERANCE) \
+                or np.abs(total - 1).max() > FEASIBILITY_TOLERANCE:
+            raise SolverError("the safe rule's solver returned decision probabilities that are not a distribution; "
+                              "no rule is reported.")
+        nu, lam = np.maximum(nu, 0.0), np.clip(lam, 0.0, 1.0)
+        nu, lam = np.where(nu < 1e-9, 0.0, nu), np.where(lam < 1e-9, 0.0, lam)
+        scale = nu.sum(axis=1) + lam
+        nu, lam = nu / scale[:, None], lam / scale
+        return nu, lam, np.concatenate([nu.reshape(-1), lam if keep else np.zeros(0)])
+
+    def exact(point: np.ndarray, chosen: np.ndarray, optimal_duals: bool) -> np.ndarray:
+        """A solution whose dual variables are the inner program's optimum for the rule ``chosen``."""
+        nonlocal seconds
+        if optimal_duals and np.array_equal(chosen, point[:n_rule]):
+            return point
+        status, out, more = program.solve(fixed=chosen, settings=problem.settings)
+        if out is None:
+            raise _status_error(status, "the safe rule's worst case")
+        seconds += more
+        return out
+
+    nu, lam, chosen = rounded(x)
+    x = exact(x, chosen, not program.tie_broken)
+    if program.tie_broken:
+        # the second pass keeps the worst case within solver tolerance of the least; where the
+        # rule it picks is measurably worse in the worst case, the first pass's rule stands
+        first = program.first_x
+        best = float(program.c @ first)
+        if float(program.c @ x) > best + CERTIFY_TOLERANCE * max(1.0, abs(best), baseline_cost):
+            nu, lam, chosen = rounded(first)
+            x = exact(first, chosen, True)
     per_group = program.per_rule_cell(x)
     cases = np.bincount(problem.index, weights=risk_levels.weights, minlength=G)
     rule_cells = problem.rule_cells
@@ -530,7 +597,7 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     if constraints:
         notes.append("the constraints are evaluated under the point estimate, as for the ordinary constrained optimum")
     result = SafeRule(rule, baseline, bounds, rule_cells, nu, lam, cases, per_group, float(per_group.sum()), point, monotone,
-                      bool(constraints), costs.unit, tuple(notes), seconds)
+                      bool(constraints), costs.unit, tuple(notes), seconds, baseline_cost)
     if not result.certified:
         why = ("the baseline breaks a constraint" if keep or not keep_baseline else
                "the baseline varies within the rule cells and a constraint depends on the rule cells themselves")
