@@ -200,6 +200,21 @@ def test_robust_rule_worst_case_is_never_above_another_feasible_rule(seed, level
     assert robust.worst_case_cost_per_case == pytest.approx(brute_worst_cost(robust.rule.cell_delta, rl, costs, bounds), rel=1e-9)
 
 
+@pytest.mark.parametrize("seed", range(4))
+def test_constrained_robust_rule_matches_an_independent_linprog_at_the_worst_case(seed):
+    # reference: scipy.optimize.linprog(method="highs") on the LP written out cell by cell in
+    # tests/constrained_reference.py, with every p replaced by the worst case p* (common practice:
+    # check an LP against a separately built formulation). The constraints chosen here do not
+    # depend on p, so pricing at p* and constraining at the point estimate is the same program.
+    from .constrained_reference import reference_solve
+
+    rl, costs, columns, bounds = instance(seed, 3, 2, "gamma", 2.0, scores=3, buckets=2)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.4}, {"kind": "statistical_parity", "tolerance": 0.1}]
+    expected, _ = reference_solve(rl.with_p(worst_case_p(bounds)), costs, columns, specs)
+    robust = robust_rule(rl, costs, bounds, specs, columns)
+    assert robust.worst_case_cost_per_case == pytest.approx(expected, rel=1e-7)
+
+
 @pytest.mark.parametrize("seed", range(6))
 @pytest.mark.parametrize("constrained", [False, True])
 def test_robust_and_safe_rules_against_every_deterministic_rule(seed, constrained):
