@@ -16,7 +16,7 @@ from policy.decision.constrained import ConstrainedProblem
 from policy.decision.costs import Costs
 from policy.decision.robust import robust_rule, rule_cost, uncertainty_set, worst_case_cost, worst_case_p
 from policy.decision.rules import Rule
-from policy.decision.safe import safe_rule, worst_case_regret
+from policy.decision.safe import regret_parts, safe_rule, worst_case_regret
 from policy.decision.solve import optimal_rule
 from policy.estimation.bounds import RiskBounds, monotone_response_bounds, sensitivity_bounds, sensitivity_interval
 from policy.errors import InputError
@@ -130,6 +130,10 @@ def test_worst_case_regret_lp_equals_brute_force_over_extreme_points(seed, level
     got = worst_case_regret(delta[index], base, rl, costs, bounds, monotone)
     assert got.total == pytest.approx(expected, rel=1e-7, abs=1e-7)
     assert got.per_rule_cell.sum() == pytest.approx(got.total)
+    # the closed form (dynamic programming along the chain) the safe rule reports with
+    parts = regret_parts(delta[index], base, rl, costs, bounds, monotone)
+    assert parts.sum() == pytest.approx(expected, rel=1e-9, abs=1e-9)
+    np.testing.assert_allclose(parts, got.per_rule_cell, rtol=1e-6, atol=1e-7)
 
 
 @pytest.mark.slow
@@ -372,7 +376,7 @@ def test_safe_rule_on_coarser_rule_cells_keeps_a_per_cell_baseline_where_it_cann
             assert rule_cost(safe.rule.cell_delta, truth.p, truth.weights, costs) <= baseline_cost * (1 + 1e-9)
         # its reported worst case is the worst case of the rule it returns (the dual with the rule fixed)
         again = worst_case_regret(safe.rule, courts, naive, costs, the_set)
-        assert again.total == pytest.approx(safe.worst_case_regret_per_case, rel=1e-6, abs=1e-6)
+        assert again.total == pytest.approx(safe.worst_case_regret_per_case, rel=1e-6, abs=1e-9 * baseline_cost)
         frame = safe.to_frame()
         shares = frame[[c for c in frame.columns if c.startswith("share_")]].sum(axis=1) + frame["keep_baseline"]
         np.testing.assert_allclose(shares, 1.0, atol=1e-9)

@@ -42,7 +42,7 @@ Operations Research Letters 25(1), 1-13. (Dualizing the inner maximum of a robus
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
 import numpy as np
