@@ -380,6 +380,9 @@ def test_safe_rule_on_coarser_rule_cells_keeps_a_per_cell_baseline_where_it_cann
         frame = safe.to_frame()
         shares = frame[[c for c in frame.columns if c.startswith("share_")]].sum(axis=1) + frame["keep_baseline"]
         np.testing.assert_allclose(shares, 1.0, atol=1e-9)
+        # where no improvement is certain, practice stays as it was
+        uncertified = frame["guaranteed_improvement_per_1000_cases"] == 0
+        assert (frame.loc[uncertified, "keep_baseline"] == 1.0).all()
         if specs:
             problem = ConstrainedProblem(naive, costs, specs, list(naive.layout.frame.columns))
             A, lo, hi = problem.rows()

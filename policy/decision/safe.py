@@ -150,11 +150,6 @@ class RegretProgram:
         keep_obj = -self.constant if keep else np.zeros(0)
         # s+ priced at the upper end, s- credited at the lower end
         self.c = np.concatenate([obj_delta.reshape(-1), keep_obj, scale[k] * u, -scale[k] * low, np.zeros(self.n_mu)])
-        # the regret under the point estimate (the tie-break among minimax-regret rules)
-        point = w[:, None] * costs.expected(risk_levels.p) / W
-        point_delta = np.stack([np.bincount(self.index, weights=point[:, d], minlength=G) for d in range(L)], axis=1)
-        point_keep = np.bincount(self.index, weights=(point * b).sum(axis=1), minlength=G) if keep else np.zeros(0)
-        self.point_c = np.concatenate([point_delta.reshape(-1), point_keep, np.zeros(self.n_cols - self.n_delta - self.n_keep)])
         # one equality row per (pair k, level d): s+ - s- - delta(d|g) [- lambda_g b] + mu_{d-1} - mu_d = -b(d|x)
         g = self.index[xs][k]
         r = np.arange(m * L)
@@ -200,14 +195,12 @@ class RegretProgram:
         return delta_part + self.constant + np.bincount(g_of_pair, weights=t, minlength=G)
 
     def solve(self, extra_rows: tuple | None = None, fixed: np.ndarray | None = None,
-              settings: LPSettings | None = None, tie_break: bool = False) -> tuple[str, np.ndarray | None, float]:
+              settings: LPSettings | None = None) -> tuple[str, np.ndarray | None, float]:
         """Minimize the worst-case regret; returns (HiGHS status name, x, seconds).
 
         ``extra_rows`` (A, lower, upper) over the delta and keep columns adds the rule's own rows
         (the simplex rows first); ``fixed`` fixes the delta columns (G * L values, keep columns
         then 0) or the delta and keep columns (G * L + G values), leaving the inner worst case.
-        ``tie_break``: a second pass keeps the worst-case regret at its minimum (within 1e-9
-        relative) and minimizes the regret under the point estimate among those rules.
         """
         settings = settings or LPSettings()
         col_lo, col_hi = self.col_lo.copy(), self.col_hi.copy()
@@ -241,20 +234,6 @@ class RegretProgram:
             return status, None, seconds
         self.iterations = _highs_iterations(h)
         x = np.asarray(h.getSolution().col_value)
-        self.tie_broken = False
-        self.first_x = x
-        if tie_break and fixed is None:
-            best = float(self.c @ x)
-            cap = best + 1e-9 * max(1.0, abs(best))
-            cols = np.flatnonzero(self.c).astype(np.int32)
-            h.addRow(-np.inf, cap, len(cols), cols, self.c[cols])
-            h.changeColsCost(self.n_cols, np.arange(self.n_cols, dtype=np.int32), self.point_c)
-            status2, more = _highs_run(h, "simplex")
-            seconds += more
-            if status2 == "kOptimal":
-                x2 = np.asarray(h.getSolution().col_value)
-                if float(self.c @ x2) <= cap + 1e-9 * max(1.0, abs(best)):
-                    x, self.tie_broken = x2, True
         return status, x, seconds
 
 
@@ -523,7 +502,7 @@ def _keep_rows(problem, baseline: np.ndarray, risk_levels: RiskLevels) -> sp.csr
 def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baseline: Rule,
               constraints: Sequence[Any | Mapping] = (), columns: Sequence[str] | None = None,
               settings: LPSettings | None = None, monotone: bool = True, keep_baseline: bool | None = None,
-              tie_break: bool = True, name: str | None = None) -> SafeRule:
+              keep_where_uncertified: bool = True, name: str | None = None) -> SafeRule:
     """The rule that minimizes the worst-case regret against ``baseline`` over the set ``bounds``.
 
     Parameters
@@ -545,10 +524,12 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
         :class:`RegretProgram`). Default: where the baseline varies within the rule cells (a
         per-cell observed rule), so that keeping it is always possible and the rule is certified
         whenever the baseline meets the constraints.
-    tie_break : bool
-        Among the rules of least worst-case regret, take one with the least regret under the
-        point estimate (a second, warm-started pass; default true). Without it the solver's
-        vertex stands.
+    keep_where_uncertified : bool
+        In every rule cell where no improvement can be certified (its part of the worst-case
+        regret is not below 0), decide as the baseline does, where the constraints allow it
+        (default true). Such a rule cell's part is 0 either way, so the worst-case regret does
+        not change; without it the solver's vertex stands, which may change practice there
+        without any certain gain.
     name : str, optional
 
     Raises
@@ -569,11 +550,12 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     problem = ConstrainedProblem(risk_levels, costs, constraints, columns, settings)
     G, L = problem.n_rule_cells, risk_levels.n_levels
     b = baseline.cell_delta
+    w = risk_levels.weights
+    mean = np.stack([np.bincount(problem.index, weights=w * b[:, d], minlength=G) for d in range(L)], axis=1)
+    mean /= np.maximum(np.bincount(problem.index, weights=w, minlength=G), 1e-300)[:, None]
+    varies = bool(np.abs(mean[problem.index] - b).max() > 1e-9)
     if keep_baseline is None:
-        w = risk_levels.weights
-        mean = np.stack([np.bincount(problem.index, weights=w * b[:, d], minlength=G) for d in range(L)], axis=1)
-        mean /= np.maximum(np.bincount(problem.index, weights=w, minlength=G), 1e-300)[:, None]
-        keep_baseline = bool(np.abs(mean[problem.index] - b).max() > 1e-9)
+        keep_baseline = varies
     notes = []
     keep_rows = _keep_rows(problem, b, risk_levels) if keep_baseline else None
     if keep_baseline and keep_rows is None:
@@ -583,7 +565,7 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
     program = RegretProgram(risk_levels, costs, bounds, b, problem.index, G, monotone, keep)
     A, lo, hi = problem.rows()
     extra = (sp.hstack([A, keep_rows], format="csr") if keep else A, lo, hi)
-    status, x, seconds = program.solve(extra_rows=extra, settings=problem.settings, tie_break=tie_break)
+    status, x, seconds = program.solve(extra_rows=extra, settings=problem.settings)
     if status in ("kInfeasible", "kUnboundedOrInfeasible"):
         problem.solve_lp()  # the ordinary program has the same rows: it names the conflicting constraints
         raise SolverError(f"the safe rule's linear program was reported {status}, though the constraints can hold.")
@@ -615,13 +597,19 @@ def safe_rule(risk_levels: RiskLevels, costs: Costs, bounds: RiskBounds, baselin
 
     nu, lam, _ = rounded(x)
     per_group = parts(nu, lam)
-    if program.tie_broken:
-        # the second pass keeps the worst case within solver tolerance of the least; where the
-        # rule it picks is measurably worse in the worst case, the first pass's rule stands
-        nu1, lam1, _ = rounded(program.first_x)
-        first = parts(nu1, lam1)
-        if per_group.sum() > first.sum() + CERTIFY_TOLERANCE * max(1.0, baseline_cost):
-            nu, lam, per_group = nu1, lam1, first
+    tol = CERTIFY_TOLERANCE * max(1.0, baseline_cost)
+    uncertain = per_group > -tol
+    if keep_where_uncertified and uncertain.any():
+        nu2, lam2 = nu.copy(), lam.copy()
+        if keep:
+            nu2[uncertain], lam2[uncertain] = 0.0, 1.0
+        else:  # the baseline's own levels, where it is constant within each rule cell
+            nu2[uncertain] = mean[uncertain]
+        values = A @ nu2.reshape(-1) + (keep_rows @ lam2 if keep else 0.0)
+        if (keep or not varies) and ((values >= lo - FEASIBILITY_TOLERANCE) & (values <= hi + FEASIBILITY_TOLERANCE)).all():
+            again = parts(nu2, lam2)
+            if again.sum() <= per_group.sum() + tol:
+                nu, lam, per_group = nu2, lam2, again
     cases = np.bincount(problem.index, weights=risk_levels.weights, minlength=G)
     rule_cells = problem.rule_cells
     if keep:
