@@ -501,3 +501,16 @@ def test_compare_adds_the_robust_and_safe_rules(small_case_table, tmp_path, caps
     assert any(r.startswith("robust rule (monotone bounds)") for r in rules)
     assert any(r.startswith("safe rule against") for r in rules)
     assert (out / "safe_rule.json").exists() and (out / "robust_rule.json").exists()
+
+
+@HYP
+@given(seed=st.integers(0, 10_000), levels=st.integers(2, 5), gamma=st.floats(1.0, 50.0))
+def test_sensitivity_intervals_are_non_increasing_so_the_worst_case_is_their_upper_end(seed, levels, gamma):
+    # the claim of docs/method.md that the set U is a chain of intervals whose ends fall with the
+    # level (so U is never empty and p* = u)
+    rng = np.random.default_rng(seed)
+    p = np.sort(rng.uniform(0, 1, size=(20, 2, levels)), axis=-1)[..., ::-1]
+    shares = rng.dirichlet(np.ones(levels), size=20)
+    lo, hi = sensitivity_interval(p, shares, gamma)
+    assert (np.diff(lo, axis=-1) <= 1e-12).all() and (np.diff(hi, axis=-1) <= 1e-12).all()
+    np.testing.assert_allclose(worst_case_p(RiskBounds("g", "g", lo, hi, gamma, "sensitivity")), hi, rtol=0, atol=1e-12)
