@@ -318,6 +318,8 @@ class Comparison:
     #: each rule's cost and rates, and its regret against each other rule, under each Gamma and the bounds
     #: (policy.assessment.rule_ranges): two DataFrames, or None
     ranges: Any = None
+    #: the robust and safe rules (policy.decision.doubt.RulesUnderDoubt) when asked for; they are among ``rules``
+    under_doubt: Any = None
 
     # -- helpers -------------------------------------------------------------------------------
     def _fig(self, name: str):
@@ -513,6 +515,8 @@ class Comparison:
         if self.arm_costs is not None:
             files["arm_costs.csv"] = self.arm_costs.to_frame()
             files["compare.json"]["assumption_free"] = self.arm_costs.summary()
+        if self.under_doubt is not None:
+            files.update(self.under_doubt.output_files())
         return files
 
     def __str__(self) -> str:
@@ -532,7 +536,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
-            decision_costs: Mapping[str, float] | None = None) -> Comparison:
+            decision_costs: Mapping[str, float] | None = None, doubt: Any = None) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -555,6 +559,10 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         (:mod:`policy.decision.constrained`), re-solved in every replicate (default true).
     outcome_costs, decision_costs : mapping, optional
         What-if cost overrides, as for ``solve``.
+    doubt : DoubtSettings, optional
+        Also compare the robust rule (and the safe rule against a baseline) of
+        :mod:`policy.decision.doubt`, solved once on the estimates with the scenario's constraints
+        and held fixed across replicates.
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -591,6 +599,13 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         raise InputError("a solver given to compare must return a Rule for the point estimates.")
     aid = aid_rule(cells, scenario.aid.name, scenario.level_labels)
     fixed = ([aid] if aid is not None else []) + candidate_rules(scenario, rl.layout, rl.weights) + list(rules)
+    under_doubt = None
+    if doubt is not None:
+        from policy.decision.doubt import rules_under_doubt
+
+        under_doubt = rules_under_doubt(scenario, cells, rl, costs, doubt, specs, scenario.sections.get("linear_program"),
+                                        solved[-1] if specs else optimum, where="--safe-against")
+        fixed += under_doubt.rules
     observed = observed_rules(cells, scenario.aid.name, scenario.level_labels)
     all_rules = [optimum] + solved + fixed + observed
     names = [r.name for r in all_rules]
@@ -612,6 +627,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     elif not result.joint_states:
         notes.append("counts-table input: outcome kinds of one case were resampled independently given cell, arm and level")
     notes.append("the optimum is re-solved in each replicate; its estimated cost is optimistic (chosen on the same data)")
+    if under_doubt is not None:
+        notes.append("the robust and safe rules are solved once on the estimates and held fixed across replicates")
     failed = result.replicates.get("solver_failed")
     for k, rule in enumerate(solved):
         if failed is not None and failed.shape[0] and failed[:, k].any():
@@ -634,4 +651,5 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             gammas = gammas + (round(check.gamma_lower, 2),)
     intervals = robust_assumptions(rl, cells, gammas, True)
     ranges = (rule_ranges(all_rules, rl, costs, intervals), regret_ranges(all_rules, rl, costs, intervals))
-    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), check, arm_costs, ranges)
+    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), arm_check=check,
+                      arm_costs=arm_costs, ranges=ranges, under_doubt=under_doubt)

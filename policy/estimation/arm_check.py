@@ -404,7 +404,6 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
     if not 0 < alpha < 1:
         raise InputError(f"the arm check's level must be between 0 and 1; got {alpha!r}.")
     _require_arm(cells)
-    J, L = len(cells.outcomes), len(cells.levels)
     gam = gamma_lower_bound(cells, alpha) if gamma else {"gamma_lower": np.nan, "per_outcome": {}}
     rows, level_rows, strata = [], [], []
     layout = cells.layout.frame.reset_index(drop=True)

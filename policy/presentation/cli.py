@@ -71,6 +71,9 @@ RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: 
                            "(a Dask cluster of N worker processes on this machine), or a Dask scheduler address such as "
                            "tcp://10.0.0.5:8786. Results are the same wherever they run. Dask is an optional extra: "
                            'pip install "policy-release-rules[distributed]".')
+RobustGammaOption = typer.Option(None, "--robust-gamma", help="Also solve the robust rule: least worst-case expected cost when the odds of an outcome may differ by this factor G >= 1 between cases given different decisions.")
+RobustBoundsOption = typer.Option(False, "--robust-bounds", help="Also solve the robust rule over the monotone-response bounds (monotonicity only).")
+SafeAgainstOption = typer.Option(None, "--safe-against", help="Also solve the safe rule against this rule (courts, courts-shown, courts-not-shown, aid, optimum or a candidate's name): least worst-case regret over the set of --robust-gamma or --robust-bounds.")
 LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
@@ -88,6 +91,28 @@ def _constraint_options(sc, constraint, group_blind, principal_fairness, max_sha
         chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
         settings = replace(settings, solver=chosen.solver)
     return added, settings
+
+
+def _doubt(gamma, bounds, safe_against):
+    """The robust/safe rule options as DoubtSettings (None when none was given)."""
+    from policy.decision.doubt import DoubtSettings
+
+    if gamma is not None and bounds:
+        raise InputError("give --robust-gamma or --robust-bounds, not both.")
+    if gamma is not None and not gamma >= 1:
+        raise InputError(f"--robust-gamma must be a number >= 1; got {gamma!r}.")
+    if safe_against is not None and gamma is None and not bounds:
+        raise InputError("--safe-against needs a set to guard against: add --robust-gamma G or --robust-bounds.")
+    doubt = DoubtSettings(gamma=gamma, bounds=bounds, safe_against=safe_against)
+    return doubt if doubt.wanted else None
+
+
+def _print_doubt(found) -> None:
+    console.print("Rules that hold under doubt:", style="bold")
+    console.print(found.summary())
+    console.print("Assumptions behind the robust and safe rules:", style="bold")
+    for a in found.robust.bounds.assumptions:
+        console.print(f"  - {a}")
 
 
 def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
@@ -291,22 +316,39 @@ def solve(
     max_rate: Optional[List[str]] = MaxRateOption,
     ignore_constraints: bool = IgnoreConstraintsOption,
     solver: Optional[str] = LPSolverOption,
+    robust_gamma: Optional[float] = RobustGammaOption,
+    robust_bounds: bool = RobustBoundsOption,
+    safe_against: Optional[str] = SafeAgainstOption,
 ):
     """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
     With constraints (the scenario's [[constraints]] or the options below), also the constrained
     optimal rule, its price and the constraint table. Exit code 3 and no files when the
-    constraints cannot all hold.
+    constraints cannot all hold. With --robust-gamma or --robust-bounds, also the robust rule
+    (and with --safe-against the safe rule) under the same constraints.
     """
     from policy.outputs import write_outputs
     from policy.running.pipeline import analyze, as_scenario
 
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
+    doubt = _doubt(robust_gamma, robust_bounds, safe_against)
     analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
-    paths = write_outputs(out, analysis.output_files())
+    files = analysis.output_files()
+    found = None
+    if doubt is not None:
+        from policy.decision.doubt import rules_under_doubt
+
+        c = analysis.constrained
+        found = rules_under_doubt(sc, analysis.cells, analysis.risk_levels, analysis.costs, doubt,
+                                  c.specs if c is not None else (), settings, c.rule if c is not None else analysis.rule,
+                                  where="--safe-against")
+        files.update(found.output_files())
+    paths = write_outputs(out, files)
     _print_analysis(analysis)
+    if found is not None:
+        _print_doubt(found)
     show_written(paths)
 
 
@@ -503,14 +545,20 @@ def compare(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    robust_gamma: Optional[float] = RobustGammaOption,
+    robust_bounds: bool = RobustBoundsOption,
+    safe_against: Optional[str] = SafeAgainstOption,
 ):
-    """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
+    """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals.
+
+    With --robust-gamma or --robust-bounds the robust rule (and with --safe-against the safe rule) joins them."""
     from policy.assessment.compare import compare as run_compare
     from policy.outputs import write_outputs
 
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner)
+                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner,
+                                 doubt=_doubt(robust_gamma, robust_bounds, safe_against))
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
@@ -533,6 +581,8 @@ def compare(
         for line in readings:
             console.print(f"  - {line}")
         show_assumptions("aid_effect")
+    if comparison.under_doubt is not None:
+        _print_doubt(comparison.under_doubt)
     for note in comparison.notes:
         console.print(f"Note: {note}")
     show_cautions()

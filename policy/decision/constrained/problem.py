@@ -178,6 +178,36 @@ class ConstrainedProblem:
         self._dirty = {"cost": True, "bounds": True, "model": True}
         return self
 
+    def set_objective_probabilities(self, p: np.ndarray) -> "ConstrainedProblem":
+        """Price the outcomes at probabilities ``p`` (n_cells, J, L) other than the loaded point estimates.
+
+        The constraints' rows keep the loaded risk levels; only the objective changes (the robust
+        rule prices outcomes at their worst case, :mod:`policy.decision.robust`). Loading risk
+        levels again (:meth:`set_risk_levels`) prices them at the new estimates.
+        """
+        p = np.asarray(p, dtype=np.float64)
+        if p.shape != self.risk_levels.p.shape:
+            raise InputError(f"outcome probabilities of shape {p.shape} given; the problem's cells need {self.risk_levels.p.shape}.")
+        outcome = np.stack([_aggregate(self.index, self._data.n_groups, self.risk_levels.weights, p[:, j, :])
+                            for j in range(p.shape[1])])
+        self._data = replace(self._data, outcome=outcome)
+        self._model = None
+        self._dirty["cost"] = True
+        return self
+
+    def rows(self):
+        """The LP's rows over the decision probabilities (columns g * L + d) and their bounds in force.
+
+        Returns (A, lower, upper): A is sparse with one row per rule cell (probabilities sum to 1)
+        first, then each constraint's rows; inactive constraints have infinite bounds.
+        """
+        lo, hi = self._data.row_bounds(self._internal_bounds(), self.active)
+        return self._data.A, lo, hi
+
+    def present(self, delta: np.ndarray, name: str) -> Rule:
+        """Decision probabilities of the rule cells (G, L) as a Rule (coarsened where a group-blind constraint binds)."""
+        return self._present(delta, name)
+
     def forget_basis(self) -> "ConstrainedProblem":
         """Make the next solve start cold, as on a newly built problem.
 
