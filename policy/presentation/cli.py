@@ -16,6 +16,7 @@ import typer
 from rich.console import Console
 from rich.panel import Panel
 from rich.table import Table
+from rich.text import Text
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
@@ -457,6 +458,21 @@ def _comparison_table(comparison) -> Table:
     return table
 
 
+def _difference_matrix(comparison) -> Table:
+    """Paired cost differences, rules numbered: row rule minus column rule, its interval, and
+    the share of replicates in which the row rule is cheaper."""
+    matrix = comparison.summary()
+    table = Table(title=f"Paired differences in expected cost per 1,000 cases ({comparison.costs.unit}): row rule minus "
+                        f"column rule ({comparison.result.interval_label} of the difference from the same replicates; "
+                        "%: replicates in which the row rule is cheaper)")
+    table.add_column("rule")
+    for k in range(len(matrix)):
+        table.add_column(f"minus {k + 1}", justify="right")
+    for k, (name, row) in enumerate(matrix.iterrows()):
+        table.add_row(Text(f"{k + 1} {name}"), *(v.replace(" lower", "") if v != "0" else "" for v in row))
+    return table
+
+
 @command
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -469,20 +485,27 @@ def compare(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    stability: float = typer.Option(0.8, help="Mark rule cells of the chosen rules whose level is chosen again in fewer than this share of replicates."),
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from policy.assessment.compare import compare as run_compare
+    from policy.assessment.stability import unstable_lines
     from policy.outputs import write_outputs
 
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner)
+                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner, stability=stability)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
     console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
                   f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
     console.print(_comparison_table(comparison))
+    if r.n_replicates:
+        console.print(_difference_matrix(comparison))
+        console.print("Stability of the chosen rules' levels (rule_stability.csv):", style="bold")
+        for line in unstable_lines(comparison.stability_frame()):
+            console.print(f"  {line}", markup=False)
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")
     for a in assumptions_for("observed_rule"):
