@@ -45,6 +45,7 @@ from policy.inputs.scenario import Scenario
 from policy.decision.solve import argmin_lenient, optimal_rule
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels, risk_level_distribution
 from policy.decision.candidates import CandidateSpec, aid_rule, candidate_rule, candidate_rules, observed_delta, observed_rules  # noqa: F401
+from policy.assessment.crossfit import check_folds, cross_fit
 from policy.assessment.paired import cost_matrix, paired_differences, paired_figures
 from policy.assessment.stability import STABILITY, check_stability, level_shares, resolved_figures, stability_frame, unstable_lines
 from policy.assessment.uncertainty import BootstrapResult, ResampledCounts, TaskRunner, UncertaintySettings, bootstrap, validate_settings
@@ -326,6 +327,8 @@ class Comparison:
     notes: tuple[str, ...] = field(default_factory=tuple)
     #: rule cells re-chosen in fewer than this share of replicates are marked unstable
     stability: float = STABILITY
+    #: cross-fitted costs (policy.assessment.crossfit.CrossFit), or None without cross-fitting
+    crossfit: Any = None
 
     # -- helpers -------------------------------------------------------------------------------
     def _fig(self, name: str):
@@ -528,6 +531,8 @@ class Comparison:
             "comparison_differences.csv": self.differences_frame(),
             "rule_stability.csv": self.stability_frame(),
         }
+        if self.crossfit is not None:
+            files["comparison_cross_fitted.csv"] = self._stamp(self.crossfit.to_frame())
         if self.has_arm:
             files["aid_effect.csv"] = self.effect_frame()
             files["aid_effect_itt.csv"] = self.itt_frame()
@@ -540,6 +545,8 @@ class Comparison:
             "rules": [{"name": r.name, "kind": r.kind, "note": r.note} for r in self.rules],
             **self.result.meta(),
             "readings": self.readings(),
+            "cross_fitting": None if self.crossfit is None else {"folds": self.crossfit.folds, "repeats": self.crossfit.repeats,
+                                                                  "seed": self.crossfit.seed, "lines": self.crossfit.lines()},
             "notes": list(self.notes),
             "assumptions": {
                 "comparison": assumptions_for("evaluation"),
@@ -561,6 +568,7 @@ class Comparison:
         lines += ["Paired differences in expected cost per 1,000 cases (row rule minus column rule):",
                   self.summary().to_string()]
         lines += unstable_lines(self.stability_frame())
+        lines += [] if self.crossfit is None else [str(self.crossfit)]
         lines += self.readings()
         return "\n".join(lines)
 
@@ -570,7 +578,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
-            decision_costs: Mapping[str, float] | None = None, stability: float = 0.8) -> Comparison:
+            decision_costs: Mapping[str, float] | None = None, stability: float = 0.8, folds: int = 5) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -596,6 +604,9 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     stability : float
         Rule cells of the chosen rules whose level is chosen again in fewer than this share of
         replicates are marked unstable (``rule_stability.csv``; default 0.8).
+    folds : int
+        Cross-fit the chosen rules with this many folds (:mod:`policy.assessment.crossfit`;
+        0: no cross-fitting; default 5), seeded from the bootstrap's seed.
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -616,6 +627,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         base.outcomes if outcomes is None else outcomes,
     )
     stability = check_stability(stability, "compare: stability")
+    folds = check_folds(folds, "compare: folds")
     from policy.decision.constrained import ConstrainedProblem
     from policy.decision.constraints import scenario_specs
 
@@ -663,4 +675,5 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         if failed is not None and failed.shape[0] and failed[:, k].any():
             notes.append(f"{rule.name}: no solution in {int(failed[:, k].sum())} of {result.n_replicates} replicates "
                          "(left out of its intervals)")
-    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), stability)
+    crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed) if folds else None
+    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), stability, crossfit)

@@ -486,6 +486,7 @@ def compare(
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
     stability: float = typer.Option(0.8, help="Mark rule cells of the chosen rules whose level is chosen again in fewer than this share of replicates."),
+    folds: int = typer.Option(5, help="Cross-fit the chosen rules: choose on all folds but one, score on the held-out one (0: no cross-fitting)."),
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from policy.assessment.compare import compare as run_compare
@@ -494,7 +495,8 @@ def compare(
 
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner, stability=stability)
+                                 outcomes=outcomes, workers=workers, progress=progress, runner=runner, stability=stability,
+                                 folds=folds)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
@@ -506,6 +508,11 @@ def compare(
         console.print("Stability of the chosen rules' levels (rule_stability.csv):", style="bold")
         for line in unstable_lines(comparison.stability_frame()):
             console.print(f"  {line}", markup=False)
+    if comparison.crossfit is not None:
+        console.print("Cross-fitted expected cost per 1,000 cases (chosen on all folds but one, scored on the held-out "
+                      "one; comparison_cross_fitted.csv):", style="bold")
+        for line in comparison.crossfit.lines():
+            console.print(f"  - {line}", markup=False)
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")
     for a in assumptions_for("observed_rule"):
