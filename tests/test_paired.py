@@ -49,8 +49,8 @@ def test_paired_difference_against_a_hand_computation():
     ac = frame.iloc[1]
     assert ac["share_first_lower"] == pytest.approx(1 / 3) and ac["share_second_lower"] == pytest.approx(1 / 3)
     matrix = cost_matrix(frame.assign(figure="cost_per_1000_cases"), ["a", "b", "c"])
-    assert matrix.loc["a", "minus b"].startswith("-2 (") and matrix.loc["a", "minus b"].endswith("75% lower")
-    assert matrix.loc["b", "minus a"].startswith("+2 (") and matrix.loc["b", "minus a"].endswith("25% lower")
+    assert matrix.loc["a", "minus b"].startswith("-2 (") and matrix.loc["a", "minus b"].endswith("75% cheaper")
+    assert matrix.loc["b", "minus a"].startswith("+2 (") and matrix.loc["b", "minus a"].endswith("25% cheaper")
 
 
 def test_paired_interval_is_much_narrower_than_the_marginal_ones_when_costs_move_together():

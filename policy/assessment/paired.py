@@ -124,17 +124,18 @@ def paired_differences(rule_names: Sequence[str], figure_names: Sequence[str], p
 def cost_matrix(differences: pd.DataFrame, rule_names: Sequence[str], figure: str = "cost_per_1000_cases") -> pd.DataFrame:
     """The compact matrix of one figure's paired differences: row rule minus column rule.
 
-    Each entry reads "difference (lower to upper); p% lower", where p is the share of replicates
-    in which the row rule's figure is below the column rule's (for the cost: cheaper). The matrix
+    Each entry reads "difference (lower to upper); p% lower" ("p% cheaper" for the cost), where p
+    is the share of replicates in which the row rule's figure is below the column rule's. The matrix
     is antisymmetric: the lower triangle is the upper one read the other way round.
     """
     rows = differences[differences["figure"] == figure]
+    word = "cheaper" if figure.startswith("cost") else "lower"
     names = list(rule_names)
     cell = {name: {other: "" for other in names} for name in names}
 
     def text(d, lo, hi, share):
         interval = f" ({lo:,.0f} to {hi:,.0f})" if np.isfinite(lo) else ""
-        tail = f"; {share:.0%} lower" if np.isfinite(share) else ""
+        tail = f"; {share:.0%} {word}" if np.isfinite(share) else ""
         return f"{d:+,.0f}{interval}{tail}"
 
     for r in rows.itertuples(index=False):

@@ -469,7 +469,7 @@ def _difference_matrix(comparison) -> Table:
     for k in range(len(matrix)):
         table.add_column(f"minus {k + 1}", justify="right")
     for k, (name, row) in enumerate(matrix.iterrows()):
-        table.add_row(Text(f"{k + 1} {name}"), *(v.replace(" lower", "") if v != "0" else "" for v in row))
+        table.add_row(Text(f"{k + 1} {name}"), *(v.replace(" cheaper", "") if v != "0" else "" for v in row))
     return table
 
 
