@@ -326,3 +326,6 @@ def test_constrained_optimum_is_compared_and_never_beats_the_optimum():
     stab = c.stability_frame()
     assert list(dict.fromkeys(stab["rule"])) == [r.name for r in c.rules[:2]]
     assert stab["stability"].between(0, 1).all()
+    # the constrained optimum is chosen again on each fold's training part and scored held out
+    assert c.crossfit.kinds[:2] == ("optimal", "constrained") and np.isfinite(c.crossfit.fold_costs).all()
+    assert c.crossfit.in_sample[1] - c.crossfit.in_sample[0] == pytest.approx(point.price_per_case, rel=1e-9, abs=1e-9)
