@@ -107,6 +107,12 @@ def test_cross_fitted_cost_is_the_held_out_folds_scored_one_by_one(small):
     frame = cf.to_frame()
     np.testing.assert_allclose(frame["regret_per_1000_cases_cross_fitted"], 1000 * (cf.cross_fitted - cf.cross_fitted[0]))
     assert "optimism" in cf.lines()[0]
+    # more splits: the first is the same split, and the spread over splits is reported
+    two = cross_fit(cells, rl, costs, est, rules, folds=3, seed=5, repeats=2)
+    np.testing.assert_array_equal(two.fold_costs[:3], cf.fold_costs)
+    assert np.isfinite(two.split_sd).all() and np.isnan(cf.split_sd).all()
+    halves = [np.average(two.fold_costs[3 * r:3 * r + 3, 0], weights=two.fold_cases[3 * r:3 * r + 3]) for r in range(2)]
+    assert two.split_sd[0] == pytest.approx(np.std(halves, ddof=1), rel=1e-9)
 
 
 def test_folds_are_checked_and_compare_writes_the_cross_fitted_table(small, tmp_path, capsys):

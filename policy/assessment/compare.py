@@ -578,7 +578,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
-            decision_costs: Mapping[str, float] | None = None, stability: float = 0.8, folds: int = 5) -> Comparison:
+            decision_costs: Mapping[str, float] | None = None, stability: float = 0.8, folds: int = 5,
+            fold_repeats: int = 1) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -607,6 +608,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     folds : int
         Cross-fit the chosen rules with this many folds (:mod:`policy.assessment.crossfit`;
         0: no cross-fitting; default 5), seeded from the bootstrap's seed.
+    fold_repeats : int
+        Independent splits into folds, averaged (default 1; more reduce the split's noise).
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -628,6 +631,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     )
     stability = check_stability(stability, "compare: stability")
     folds = check_folds(folds, "compare: folds")
+    if isinstance(fold_repeats, bool) or not isinstance(fold_repeats, (int, np.integer)) or fold_repeats < 1:
+        raise InputError(f"compare: fold repeats must be a whole number of at least 1; got {fold_repeats!r}.")
     from policy.decision.constrained import ConstrainedProblem
     from policy.decision.constraints import scenario_specs
 
@@ -675,5 +680,5 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         if failed is not None and failed.shape[0] and failed[:, k].any():
             notes.append(f"{rule.name}: no solution in {int(failed[:, k].sum())} of {result.n_replicates} replicates "
                          "(left out of its intervals)")
-    crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed) if folds else None
+    crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed, fold_repeats) if folds else None
     return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), stability, crossfit)

@@ -188,6 +188,18 @@ class CrossFit:
             return np.nansum(w * self.fold_costs, axis=0) / w.sum(axis=0)
 
     @property
+    def split_sd(self) -> np.ndarray:
+        """Standard deviation over the independent splits of each rule's cross-fitted cost per
+        case, shape (R,) (NaN with one split): how much the figure owes to the draw of the folds."""
+        if self.repeats < 2:
+            return np.full(len(self.names), np.nan)
+        costs = self.fold_costs.reshape(self.repeats, self.folds, -1)
+        cases = self.fold_cases.reshape(self.repeats, self.folds, 1) * np.isfinite(costs)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            per_split = np.nansum(cases * costs, axis=1) / cases.sum(axis=1)
+        return np.std(per_split, axis=0, ddof=1)
+
+    @property
     def regret_fold_se(self) -> np.ndarray:
         """Standard error of the cross-fitted regret from its spread over the held-out folds,
         sd_k(regret_k) / sqrt(number of folds), shape (R,). A rough guide: the folds' estimates
@@ -209,6 +221,7 @@ class CrossFit:
             "cost_per_1000_cases_in_sample": ins,
             "cost_per_1000_cases_cross_fitted": cf,
             "cross_fitted_minus_in_sample": cf - ins,
+            "cross_fitted_split_sd": 1000.0 * self.split_sd,
             "regret_per_1000_cases_in_sample": ins - ins[0],
             "regret_per_1000_cases_cross_fitted": cf - cf[0],
             "regret_cross_fitted_fold_se": 1000.0 * self.regret_fold_se,
@@ -224,7 +237,9 @@ class CrossFit:
         out = [f"{first['rule']}: {first['cost_per_1000_cases_in_sample']:,.0f} per 1,000 cases in sample, "
                f"{first['cost_per_1000_cases_cross_fitted']:,.0f} cross-fitted ({self.folds} folds"
                + (f", {self.repeats} splits" if self.repeats > 1 else "")
-               + f"): optimism {first['cross_fitted_minus_in_sample']:+,.0f}."]
+               + f"): optimism {first['cross_fitted_minus_in_sample']:+,.0f}"
+               + (f" (sd over splits {first['cross_fitted_split_sd']:,.0f})." if self.repeats > 1 else
+                  " (one split of the cases; --fold-repeats averages more).")]
         for _, r in frame.iloc[1:].iterrows():
             move = ("optimism" if r["kind"] in CHOSEN else "its own cost moves by")
             out.append(f"{r['rule']}: regret {r['regret_per_1000_cases_in_sample']:,.0f} in sample, "

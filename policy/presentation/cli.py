@@ -487,6 +487,7 @@ def compare(
     run_on: Optional[str] = RunOnOption,
     stability: float = typer.Option(0.8, help="Mark rule cells of the chosen rules whose level is chosen again in fewer than this share of replicates."),
     folds: int = typer.Option(5, help="Cross-fit the chosen rules: choose on all folds but one, score on the held-out one (0: no cross-fitting)."),
+    fold_repeats: int = typer.Option(1, help="Independent splits into folds, averaged (more: less noise from the split)."),
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from policy.assessment.compare import compare as run_compare
@@ -496,7 +497,7 @@ def compare(
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
                                  outcomes=outcomes, workers=workers, progress=progress, runner=runner, stability=stability,
-                                 folds=folds)
+                                 folds=folds, fold_repeats=fold_repeats)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
