@@ -241,11 +241,12 @@ class CrossFit:
                + (f" (sd over splits {first['cross_fitted_split_sd']:,.0f})." if self.repeats > 1 else
                   " (one split of the cases; --fold-repeats averages more).")]
         for _, r in frame.iloc[1:].iterrows():
-            move = ("optimism" if r["kind"] in CHOSEN else "its own cost moves by")
+            shift = f"{r['cross_fitted_minus_in_sample']:+,.0f}"
+            move = (f"its optimism {shift}" if r["kind"] in CHOSEN else
+                    f"its own cost moves by {shift} scored on held-out folds")
             out.append(f"{r['rule']}: regret {r['regret_per_1000_cases_in_sample']:,.0f} in sample, "
                        f"{r['regret_per_1000_cases_cross_fitted']:,.0f} cross-fitted (fold standard error "
-                       f"{r['regret_cross_fitted_fold_se']:,.0f}; {move} {r['cross_fitted_minus_in_sample']:+,.0f} "
-                       "scored on held-out folds).")
+                       f"{r['regret_cross_fitted_fold_se']:,.0f}; {move}).")
         return out
 
     def __str__(self) -> str:
