@@ -390,7 +390,7 @@ class Comparison:
         """Per rule cell of the chosen rules (the optimum, solved rules), how often each level is
         chosen again when re-solved in the replicates (:mod:`policy.assessment.stability`)."""
         r = self.result
-        chosen = [x for x in self.rules if x.kind in ("optimal", "constrained")]
+        chosen = self.rules[:1 + sum(k.startswith("solved_share_") for k in r.point)]  # the optimum, solved rules
         L = self.risk_levels.n_levels
         shares = []
         for k, rule in enumerate(chosen):
