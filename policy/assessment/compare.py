@@ -28,6 +28,7 @@ arm), and the outputs report how many cases sit in such cells.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field, replace
 from typing import Any, Callable, Mapping, Sequence
 
@@ -44,6 +45,9 @@ from policy.inputs.scenario import Scenario
 from policy.decision.solve import argmin_lenient, optimal_rule
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels, risk_level_distribution
 from policy.decision.candidates import CandidateSpec, aid_rule, candidate_rule, candidate_rules, observed_delta, observed_rules  # noqa: F401
+from policy.assessment.crossfit import check_folds, cross_fit
+from policy.assessment.paired import cost_matrix, paired_differences, paired_figures
+from policy.assessment.stability import STABILITY, check_stability, level_shares, resolved_figures, stability_frame, unstable_lines
 from policy.assessment.uncertainty import BootstrapResult, ResampledCounts, TaskRunner, UncertaintySettings, bootstrap, validate_settings
 
 __all__ = [
@@ -199,7 +203,8 @@ class ComparisonStatistic:
 
     def __init__(self, estimator: RiskLevelEstimator, design: np.ndarray, costs: Costs, layout: CellLayout,
                  fixed: Sequence[np.ndarray], has_arm: bool, n_arms: int,
-                 solvers: Sequence[RuleSolver] = (), base: RiskLevels | None = None):
+                 solvers: Sequence[RuleSolver] = (), base: RiskLevels | None = None,
+                 chosen: Sequence[Rule] = ()):
         self.estimator = estimator
         self.design = design
         self.costs = costs
@@ -213,6 +218,10 @@ class ComparisonStatistic:
         self.onehot, labels = group_matrix(layout)
         attrs = list(dict.fromkeys(a for a, _ in labels if a != "all"))
         self.attributes = [np.array([i for i, (a, _) in enumerate(labels) if a == attr]) for attr in attrs]
+        # the optimum and solved rules chosen on the full data, held fixed and scored in every
+        # replicate (the re-solved ones then only give each rule cell's stability)
+        self.chosen = [np.asarray(r.cell_delta, dtype=np.float64) for r in chosen]
+        self.chosen_index = [(r.index, r.n_rule_cells) for r in chosen[1:]]
 
     def __call__(self, batch: ResampledCounts) -> dict[str, np.ndarray]:
         p, _, _ = self.estimator.estimate_p(batch.pooled_events, batch.pooled_observed, self.design)
@@ -222,7 +231,8 @@ class ComparisonStatistic:
         per_case = self.costs.expected(p)
         member = np.eye(self.n_rule_cells)[self.rule_index]  # (n, G)
         total = member.T @ (w[..., None] * per_case)  # (b, G, L)
-        best = np.eye(L)[argmin_lenient(total)][:, self.rule_index]  # (b, n, L)
+        levels = argmin_lenient(total)  # (b, G)
+        best = np.eye(L)[levels][:, self.rule_index]  # (b, n, L)
         deltas = [best]
         failed = np.zeros((b, len(self.solvers)), dtype=bool)
         for k, solver in enumerate(self.solvers):
@@ -239,7 +249,11 @@ class ComparisonStatistic:
             deltas.append(solved)
         deltas += self.fixed
         arm_deltas = [observed_delta(batch.cases[:, :, a, :], self.rule_index, self.n_rule_cells)[0] for a in range(self.n_arms)]
-        out = score_rules(deltas + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
+        if self.chosen:
+            out = score_rules(self.chosen + self.fixed + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
+            out.update(resolved_figures(levels, deltas[1:len(self.solvers) + 1], self.chosen_index, per_case, w, best))
+        else:
+            out = score_rules(deltas + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
         q = np.clip(risk_level_distribution(p), 0.0, 1.0)
         gw = w @ self.onehot
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -320,6 +334,10 @@ class Comparison:
     ranges: Any = None
     #: the robust and safe rules (policy.decision.doubt.RulesUnderDoubt) when asked for; they are among ``rules``
     under_doubt: Any = None
+    #: rule cells re-chosen in fewer than this share of replicates are marked unstable
+    stability: float = STABILITY
+    #: cross-fitted costs (policy.assessment.crossfit.CrossFit), or None without cross-fitting
+    crossfit: Any = None
 
     # -- helpers -------------------------------------------------------------------------------
     def _fig(self, name: str):
@@ -364,6 +382,38 @@ class Comparison:
         out["unit"] = self.costs.unit
         out["note"] = [r.note for r in self.rules]
         return self._stamp(out)
+
+    def differences_frame(self) -> pd.DataFrame:
+        """Every pair of rules' paired differences in cost, outcome rates and decision shares
+        (:mod:`policy.assessment.paired`)."""
+        rl, r = self.risk_levels, self.result
+        figs, point, reps = paired_figures(r.point, r.replicates, rl.outcome_keys, rl.level_values)
+        return self._stamp(paired_differences([x.name for x in self.rules], figs, point, reps, r.level))
+
+    def summary(self) -> pd.DataFrame:
+        """The compact matrix of paired cost differences per 1,000 cases: row rule minus column
+        rule, its interval, and the share of replicates in which the row rule is cheaper."""
+        return cost_matrix(self.differences_frame(), [x.name for x in self.rules])
+
+    def stability_frame(self) -> pd.DataFrame:
+        """Per rule cell of the chosen rules (the optimum, solved rules), how often each level is
+        chosen again when re-solved in the replicates (:mod:`policy.assessment.stability`)."""
+        r = self.result
+        chosen = self.rules[:1 + sum(k.startswith("solved_share_") for k in r.point)]  # the optimum, solved rules
+        L = self.risk_levels.n_levels
+        shares = []
+        for k, rule in enumerate(chosen):
+            key = "optimal_level" if k == 0 else f"solved_share_{k - 1}"
+            reps = r.replicates.get(key)
+            if reps is None or r.n_replicates == 0:
+                shares.append(np.full(rule.delta.shape, np.nan))
+            elif k == 0:
+                shares.append(level_shares(reps, L))
+            else:
+                with np.errstate(invalid="ignore"), warnings.catch_warnings():
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    shares.append(np.nanmean(reps.astype(np.float64), axis=0))
+        return self._stamp(stability_frame(chosen, shares, self.stability, r.n_replicates))
 
     def gaps_frame(self) -> pd.DataFrame:
         """Every fairness gap of every rule by protected attribute, with its interval."""
@@ -487,7 +537,11 @@ class Comparison:
             "comparison.csv": self.comparison_frame(),
             "comparison_gaps.csv": self.gaps_frame(),
             "risk_level_share_intervals.csv": self.shares_frame(),
+            "comparison_differences.csv": self.differences_frame(),
+            "rule_stability.csv": self.stability_frame(),
         }
+        if self.crossfit is not None:
+            files["comparison_cross_fitted.csv"] = self._stamp(self.crossfit.to_frame())
         if self.has_arm:
             files["aid_effect.csv"] = self.effect_frame()
             files["aid_effect_itt.csv"] = self.itt_frame()
@@ -500,6 +554,8 @@ class Comparison:
             "rules": [{"name": r.name, "kind": r.kind, "note": r.note} for r in self.rules],
             **self.result.meta(),
             "readings": self.readings(),
+            "cross_fitting": None if self.crossfit is None else {"folds": self.crossfit.folds, "repeats": self.crossfit.repeats,
+                                                                  "seed": self.crossfit.seed, "lines": self.crossfit.lines()},
             "notes": list(self.notes),
             "assumptions": {
                 "comparison": assumptions_for("evaluation"),
@@ -527,6 +583,10 @@ class Comparison:
             interval = f" ({lo:,.0f} to {hi:,.0f})" if np.isfinite(lo) else ""
             lines.append(f"  {row['rule']}: {row['cost_per_1000_cases']:,.0f} per 1,000 cases{interval}; "
                          f"regret {row['regret_per_1000_cases']:,.0f}; agreement {row['agreement']:.1%}")
+        lines += ["Paired differences in expected cost per 1,000 cases (row rule minus column rule):",
+                  self.summary().to_string()]
+        lines += unstable_lines(self.stability_frame())
+        lines += [] if self.crossfit is None else [str(self.crossfit)]
         lines += self.readings()
         return "\n".join(lines)
 
@@ -536,7 +596,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             progress: bool = False, rules: Sequence[Rule] = (), solvers: Sequence[RuleSolver] = (),
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
-            decision_costs: Mapping[str, float] | None = None, doubt: Any = None) -> Comparison:
+            decision_costs: Mapping[str, float] | None = None, doubt: Any = None, stability: float = 0.8,
+            folds: int = 5, fold_repeats: int = 1) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -563,6 +624,14 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         Also compare the robust rule (and the safe rule against a baseline) of
         :mod:`policy.decision.doubt`, solved once on the estimates with the scenario's constraints
         and held fixed across replicates.
+    stability : float
+        Rule cells of the chosen rules whose level is chosen again in fewer than this share of
+        replicates are marked unstable (``rule_stability.csv``; default 0.8).
+    folds : int
+        Cross-fit the chosen rules with this many folds (:mod:`policy.assessment.crossfit`;
+        0: no cross-fitting; default 5), seeded from the bootstrap's seed.
+    fold_repeats : int
+        Independent splits into folds, averaged (default 1; more reduce the split's noise).
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -582,6 +651,10 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         "compare:",
         base.outcomes if outcomes is None else outcomes,
     )
+    stability = check_stability(stability, "compare: stability")
+    folds = check_folds(folds, "compare: folds")
+    if isinstance(fold_repeats, bool) or not isinstance(fold_repeats, (int, np.integer)) or fold_repeats < 1:
+        raise InputError(f"compare: fold repeats must be a whole number of at least 1; got {fold_repeats!r}.")
     from policy.decision.constrained import ConstrainedProblem
     from policy.decision.constraints import scenario_specs
 
@@ -615,7 +688,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     evaluations = [evaluate(r, rl, costs, reference=optimum) for r in all_rules]
     estimator = RiskLevelEstimator.from_scenario(scenario)
     statistic = ComparisonStatistic(estimator, estimator.design(cells.layout, len(cells.levels)), costs, cells.layout,
-                                    [r.cell_delta for r in fixed], cells.has_arm, len(cells.arms), solvers, rl)
+                                    [r.cell_delta for r in fixed], cells.has_arm, len(cells.arms), solvers, rl,
+                                    chosen=[optimum] + solved)
     result = bootstrap(cells, statistic, settings.replicates, scenario.seed if seed is None else seed,
                        settings.resampling, settings.interval, runner=runner, workers=workers, progress=progress,
                        description="compare: bootstrap replicates",
@@ -626,7 +700,10 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                      "independently per outcome kind given cell and level")
     elif not result.joint_states:
         notes.append("counts-table input: outcome kinds of one case were resampled independently given cell, arm and level")
-    notes.append("the optimum is re-solved in each replicate; its estimated cost is optimistic (chosen on the same data)")
+    notes.append("the rules chosen on the full data (the optimum and any solved rule) are held fixed and scored in every "
+                 "replicate; regret intervals are paired differences against the optimum so held; how often each rule "
+                 "cell's level is chosen again when re-solved is in rule_stability.csv; the optimum's estimated cost is "
+                 "optimistic (chosen on the same data)")
     if under_doubt is not None:
         notes.append("the robust and safe rules are solved once on the estimates and held fixed across replicates")
     failed = result.replicates.get("solver_failed")
@@ -651,5 +728,6 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             gammas = gammas + (round(check.gamma_lower, 2),)
     intervals = robust_assumptions(rl, cells, gammas, True)
     ranges = (rule_ranges(all_rules, rl, costs, intervals), regret_ranges(all_rules, rl, costs, intervals))
-    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), arm_check=check,
-                      arm_costs=arm_costs, ranges=ranges, under_doubt=under_doubt)
+    crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed, fold_repeats) if folds else None
+    return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), stability=stability,
+                      crossfit=crossfit, arm_check=check, arm_costs=arm_costs, ranges=ranges, under_doubt=under_doubt)

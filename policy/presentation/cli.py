@@ -16,6 +16,7 @@ import typer
 from rich.console import Console
 from rich.panel import Panel
 from rich.table import Table
+from rich.text import Text
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
@@ -533,6 +534,21 @@ def _print_ranges(frame, unit: str) -> None:
         console.print(f"  - {name}: " + "; ".join(parts))
 
 
+def _difference_matrix(comparison) -> Table:
+    """Paired cost differences, rules numbered: row rule minus column rule, its interval, and
+    the share of replicates in which the row rule is cheaper."""
+    matrix = comparison.summary()
+    table = Table(title=f"Paired differences in expected cost per 1,000 cases ({comparison.costs.unit}): row rule minus "
+                        f"column rule ({comparison.result.interval_label} of the difference from the same replicates; "
+                        "%: replicates in which the row rule is cheaper)")
+    table.add_column("rule")
+    for k in range(len(matrix)):
+        table.add_column(f"minus {k + 1}", justify="right")
+    for k, (name, row) in enumerate(matrix.iterrows()):
+        table.add_row(Text(f"{k + 1} {name}"), *(v.replace(" cheaper", "") if v != "0" else "" for v in row))
+    return table
+
+
 @command
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -548,17 +564,22 @@ def compare(
     robust_gamma: Optional[float] = RobustGammaOption,
     robust_bounds: bool = RobustBoundsOption,
     safe_against: Optional[str] = SafeAgainstOption,
+    stability: float = typer.Option(0.8, help="Mark rule cells of the chosen rules whose level is chosen again in fewer than this share of replicates."),
+    folds: int = typer.Option(5, help="Cross-fit the chosen rules: choose on all folds but one, score on the held-out one (0: no cross-fitting)."),
+    fold_repeats: int = typer.Option(1, help="Independent splits into folds, averaged (more: less noise from the split)."),
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals.
 
     With --robust-gamma or --robust-bounds the robust rule (and with --safe-against the safe rule) joins them."""
     from policy.assessment.compare import compare as run_compare
+    from policy.assessment.stability import unstable_lines
     from policy.outputs import write_outputs
 
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
                                  outcomes=outcomes, workers=workers, progress=progress, runner=runner,
-                                 doubt=_doubt(robust_gamma, robust_bounds, safe_against))
+                                 doubt=_doubt(robust_gamma, robust_bounds, safe_against), stability=stability,
+                                 folds=folds, fold_repeats=fold_repeats)
     paths = write_outputs(out, comparison.output_files())
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
@@ -571,6 +592,16 @@ def compare(
     console.print(_comparison_table(comparison))
     if comparison.ranges is not None:
         _print_ranges(comparison.ranges[0], comparison.costs.unit)
+    if r.n_replicates:
+        console.print(_difference_matrix(comparison))
+        console.print("Stability of the chosen rules' levels (rule_stability.csv):", style="bold")
+        for line in unstable_lines(comparison.stability_frame()):
+            console.print(f"  {line}", markup=False)
+    if comparison.crossfit is not None:
+        console.print("Cross-fitted expected cost per 1,000 cases (chosen on all folds but one, scored on the held-out "
+                      "one; comparison_cross_fitted.csv):", style="bold")
+        for line in comparison.crossfit.lines():
+            console.print(f"  - {line}", markup=False)
     show_assumptions("evaluation")
     console.print("Observed rules (what courts did) also assume:", style="bold")
     for a in assumptions_for("observed_rule"):

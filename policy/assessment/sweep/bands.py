@@ -1,7 +1,25 @@
-"""Bootstrap bands of a one-ratio sweep: each replicate's thresholds and shares, re-estimated."""
+"""Bootstrap bands of a one-ratio sweep: each replicate's thresholds and shares, re-estimated.
+
+The lenient share and the thresholds are argmin figures: they jump when a rule cell's optimal
+level flips, and their bootstrap distribution can sit wholly on one side of the estimate (a
+percentile band read "87.5% (93.5% to 100.0%)"). The bands are therefore **symmetric intervals
+centred on the estimate** (Hall 1988): with theta the point figure and theta*_b the replicates,
+
+    h = the level-quantile of |theta*_b - theta|,   interval = [theta - h, theta + h]
+
+(clipped to the figure's range). It contains its point by construction; where the replicates
+sit on one side of the estimate it is wider than the percentile band, which the tables keep
+beside it.
+
+References
+----------
+Hall, P. (1988). On symmetric bootstrap confidence intervals. Journal of the Royal Statistical
+Society, Series B 50(1), 35-45 (from memory).
+"""
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -106,6 +124,36 @@ class LenientReplicates:
         return out
 
 
+def centred_interval(point: np.ndarray, replicates: np.ndarray, level: float = 0.95, lo: float = -np.inf,
+                     hi: float = np.inf) -> tuple[np.ndarray, np.ndarray]:
+    """Symmetric bootstrap interval centred on the point figure (module notes), clipped to [lo, hi].
+
+    Parameters
+    ----------
+    point : ndarray of shape S
+    replicates : ndarray of shape (B,) + S
+    level : float
+
+    Returns
+    -------
+    lower, upper : ndarray of shape S
+        NaN where the figure is undefined in more than half of the replicates, or B = 0.
+    """
+    point = np.asarray(point, dtype=np.float64)
+    reps = np.asarray(replicates, dtype=np.float64)
+    if reps.shape[0] == 0:
+        return np.full(point.shape, np.nan), np.full(point.shape, np.nan)
+    dev = np.abs(reps - point)
+    finite = np.isfinite(dev)
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="All-NaN slice encountered", category=RuntimeWarning)
+        h = np.nanpercentile(np.where(finite, dev, np.nan), 100 * level, axis=0)
+    enough = finite.sum(axis=0) * 2 > reps.shape[0]
+    lower = np.where(enough, np.clip(point - h, lo, hi), np.nan)
+    upper = np.where(enough, np.clip(point + h, lo, hi), np.nan)
+    return lower, upper
+
+
 @dataclass(frozen=True)
 class SweepBands:
     """Bootstrap percentile intervals of a one-ratio sweep.
@@ -119,10 +167,14 @@ class SweepBands:
     thresholds, thresholds_lower, thresholds_upper : ndarray of shape (n_groups, L - 1)
         Each rule cell's level thresholds (:func:`level_thresholds`) clipped to the range, and
         their intervals.
+        The intervals are centred on their points (:func:`centred_interval`).
     meta : dict
         Replicates, seed, resampling, outcome draws, interval (:meth:`BootstrapResult.meta`).
     label : str
-        E.g. "95% bootstrap percentile interval".
+        E.g. "95% bootstrap interval centred on the estimate".
+    percentile_lower, percentile_upper : ndarray of shape (P,)
+        The percentile band of the lenient share, for reference (it can exclude the point).
+    thresholds_percentile_lower, thresholds_percentile_upper : ndarray of shape (n_groups, L - 1)
     """
 
     ratios: np.ndarray
@@ -134,11 +186,19 @@ class SweepBands:
     thresholds_upper: np.ndarray
     meta: dict
     label: str
+    percentile_lower: np.ndarray | None = None
+    percentile_upper: np.ndarray | None = None
+    thresholds_percentile_lower: np.ndarray | None = None
+    thresholds_percentile_upper: np.ndarray | None = None
 
     def band_table(self, axis: RatioAxis) -> pd.DataFrame:
-        """``ratio``, ``cost``, ``share_lenient``, ``lower``, ``upper``."""
+        """``ratio``, ``cost``, ``share_lenient``, ``lower``, ``upper`` (centred on the share),
+        ``percentile_lower``, ``percentile_upper``."""
+        nan = np.full(self.share.shape, np.nan)
         return pd.DataFrame({"ratio": self.ratios, "cost": self.ratios * axis.reference_cost,
-                             "share_lenient": self.share, "lower": self.lower, "upper": self.upper})
+                             "share_lenient": self.share, "lower": self.lower, "upper": self.upper,
+                             "percentile_lower": nan if self.percentile_lower is None else self.percentile_lower,
+                             "percentile_upper": nan if self.percentile_upper is None else self.percentile_upper})
 
     def threshold_table(self, sweep: "OneRatioSweep") -> pd.DataFrame:
         """One row per rule cell and level d < L - 1: the rule columns, ``cases``,
@@ -152,6 +212,9 @@ class SweepBands:
             out[name] = values.reshape(-1)
         c = sweep.axis.reference_cost
         out["cost"], out["cost_lower"], out["cost_upper"] = out["ratio"] * c, out["lower"] * c, out["upper"] * c
+        for name, values in (("percentile_lower", self.thresholds_percentile_lower),
+                             ("percentile_upper", self.thresholds_percentile_upper)):
+            out[name] = np.nan if values is None else values.reshape(-1)
         return out
 
 
@@ -162,7 +225,9 @@ def sweep_bands(cells, risk_levels: RiskLevels, costs: Costs, sweep: "OneRatioSw
 
     Each replicate resamples the cell counts (:func:`policy.assessment.uncertainty.bootstrap`),
     re-estimates the risk levels with ``estimator``, and recomputes the exact sweep of all its
-    rule cells at once (:func:`lenient_replicates`); the intervals are percentile intervals.
+    rule cells at once (:func:`lenient_replicates`); the intervals are symmetric intervals
+    centred on the exact sweep's figures (:func:`centred_interval`), with the percentile
+    intervals beside them.
     """
     from policy.assessment.uncertainty import OnRiskLevels, bootstrap
 
@@ -174,8 +239,13 @@ def sweep_bands(cells, risk_levels: RiskLevels, costs: Costs, sweep: "OneRatioSw
     result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
                        progress=progress, description="sweep: bootstrap replicates",
                        outcome_model=risk_levels.p if outcomes == "model" else None)
-    lower, upper = result.interval("share_lenient")
-    t_lower, t_upper = result.interval("thresholds")
+    p_lower, p_upper = result.interval("share_lenient")
+    tp_lower, tp_upper = result.interval("thresholds")
     thresholds = np.clip(level_thresholds(sweep.envelope, len(sweep.level_values)), sweep.lo, sweep.hi)
-    return SweepBands(grid, sweep.lenient_share_at(grid), lower, upper, thresholds, t_lower, t_upper,
-                      result.meta(), result.interval_label)
+    share = sweep.lenient_share_at(grid)
+    lower, upper = centred_interval(share, result.replicates["share_lenient"], level, 0.0, 1.0)
+    t_lower, t_upper = centred_interval(thresholds, result.replicates["thresholds"], level, sweep.lo, sweep.hi)
+    label = f"{level:.0%} bootstrap interval centred on the estimate" if result.n_replicates else result.interval_label
+    meta = {**result.meta(), "interval": label, "percentile_interval": result.interval_label}
+    return SweepBands(grid, share, lower, upper, thresholds, t_lower, t_upper, meta, label,
+                      p_lower, p_upper, tp_lower, tp_upper)

@@ -9,6 +9,7 @@ import pandas as pd
 
 from policy.cautions import ASSUMPTIONS, assumptions_for
 from policy.presentation.report.ranges_view import ranges_view
+from policy.assessment.stability import unstable_lines
 from policy.presentation.report.formatting import DIGITS, TableView, fmt_interval, fmt_num, fmt_pct, level_colours, risk_level_colours
 from policy.presentation.report.model import Bar, ReportResults, Section
 from policy.presentation.report.live import _constant, controls
@@ -326,6 +327,27 @@ def comparison_section(results: ReportResults) -> Section:
         + tuple(f"preventable ({lab}) given too lenient a level" for lab in rl.outcome_labels),
         tuple(misplaced_rows), (False,) + (True,) * (2 * len(rl.outcome_keys)))
     r = cmp.result
+    extra = {"differences": None, "stability": [], "crossfit": None}
+    if r.n_replicates:
+        matrix = cmp.summary()
+        extra["differences"] = TableView(
+            f"Paired differences in expected cost per 1,000 cases ({unit}): row rule minus column rule, with the {label} "
+            "of the difference from the same replicates and the share of replicates in which the row rule is cheaper",
+            ("rule",) + tuple(str(c) for c in matrix.columns),
+            tuple((name,) + tuple(v if v != "0" else "" for v in row) for name, row in matrix.iterrows()),
+            (False,) + (True,) * len(matrix.columns))
+        extra["stability"] = unstable_lines(cmp.stability_frame())
+    if cmp.crossfit is not None:
+        cf = cmp.crossfit.to_frame()
+        extra["crossfit"] = TableView(
+            f"In-sample and cross-fitted expected cost per 1,000 cases ({unit}; {cmp.crossfit.folds} folds: chosen on all "
+            "folds but one, scored on the held-out one)",
+            ("rule", "cost in sample", "cost cross-fitted", "cross-fitted minus in sample", "regret in sample",
+             "regret cross-fitted"),
+            tuple((x["rule"], cost(x["cost_per_1000_cases_in_sample"]), cost(x["cost_per_1000_cases_cross_fitted"]),
+                   cost(x["cross_fitted_minus_in_sample"]), cost(x["regret_per_1000_cases_in_sample"]),
+                   cost(x["regret_per_1000_cases_cross_fitted"])) for _, x in cf.iterrows()),
+            (False,) + (True,) * 5)
     return Section(
         key="comparison",
         title="Compared with what courts did, the aid and candidate rules",
@@ -336,7 +358,7 @@ def comparison_section(results: ReportResults) -> Section:
             "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
             "observed_assumptions": assumptions_for("observed_rule"),
             "assumption_free": cmp.arm_costs.lines() if getattr(cmp, "arm_costs", None) is not None else [],
-            "ranges": ranges_view(cmp),
+            "ranges": ranges_view(cmp), **extra,
         },
         assumptions=tuple(assumptions_for("evaluation")),
         files=cmp.output_files(),
