@@ -296,8 +296,12 @@ class CellTable:
             cost_sums[col] = np.bincount(cell_pos, weights=values * numbers["cases"], minlength=n_cells)
         w = cases.sum(axis=(1, 2))
         if (w == 0).any():
-            i = int(np.flatnonzero(w == 0)[0])
-            raise InputError(f"{file}: a cell has rows but no cases (cell {i + 1}); remove rows with cases = 0 only.")
+            empty = np.flatnonzero(w == 0)
+            i = int(empty[0])
+            row = int(np.flatnonzero(cell_pos == i)[0])
+            where = ", ".join(f"{c}={frame[c].iloc[row]}" for c in scenario.cell_columns)
+            raise InputError(f"{file}: {len(empty)} cells have rows but no cases (first: {where}, row {row + 1}); "
+                             "remove rows with cases = 0 only.")
         parts = np.unravel_index(cell_ids, sizes)
         cells = pd.DataFrame({
             c: pd.Categorical.from_codes(p.astype(np.int64), categories=categories[c], ordered=True)

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from policy.errors import InputError
+from policy.inputs.limits import LARGEST
 from policy.inputs.scenario import Scenario
 from policy.inputs.tables import binary_states, describe_bad, require_columns, row_number
 
@@ -32,8 +33,29 @@ DENSE_KEYS = 1 << 22
 
 
 
+def _is_number(value: Any) -> bool:
+    if isinstance(value, bool):
+        return False
+    if isinstance(value, (int, float, np.number)):
+        return True
+    try:
+        float(value)
+        return True
+    except (TypeError, ValueError):
+        return False
+
+
 def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: str, file: str) -> list:
     if declared is None:
+        numbers = [v for v in uniques if _is_number(v)]
+        if numbers and len(numbers) < len(uniques):
+            texts = sorted({str(v) for v in uniques if not _is_number(v)})
+            shown = ", ".join(repr(t) for t in texts[:5]) + (", ..." if len(texts) > 5 else "")
+            raise InputError(
+                f"{file}: cell column {column!r} mixes numbers and text: {shown} among numbers such as "
+                f"{', '.join(str(v) for v in sorted(numbers, key=float)[:5])}; a cell column holds one kind of value "
+                f"(or list every value in [cells] order.{column})."
+            )
         try:
             return sorted(uniques)
         except TypeError:
@@ -160,6 +182,11 @@ def _check_unique_ids(ids: pd.Series, column: str, file: str, rows: np.ndarray |
     """Raise if a case id appears twice. ``rows``: the 0-based file row of each value (default:
     their positions), for a check of only the rows that might hold duplicates."""
     ids = ids.reset_index(drop=True)
+    # a blank id means the case has none: it is counted, and not compared with other ids
+    given = (ids.notna() & (ids.astype(str).str.strip() != "")).to_numpy()
+    if not given.all():
+        at = np.arange(len(ids)) if rows is None else np.asarray(rows)
+        ids, rows = ids[given].reset_index(drop=True), at[given]
     dup = ids.duplicated(keep=False).to_numpy()
     if dup.any():
         at = np.arange(len(ids)) if rows is None else np.asarray(rows)
@@ -239,10 +266,11 @@ def _present_categories(uniques: Sequence[list], codes: np.ndarray, scenario: Sc
 
 def _cost_values(series: pd.Series, column: str, file: str) -> np.ndarray:
     values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=np.float64)
-    bad = ~np.isfinite(values) | (values < 0)
+    bad = ~np.isfinite(values) | (values < 0) | (values > LARGEST)
     if bad.any():
         text, n, first = describe_bad(series.to_numpy(dtype=object), bad)
-        raise InputError(f"{file}: cost column {column!r} must hold numbers >= 0 in every row; got {text} in {n} rows (first: row {first}).")
+        raise InputError(f"{file}: cost column {column!r} must hold finite numbers >= 0 (at most {LARGEST:g}) in every row; "
+                         f"got {text} in {n} rows (first: row {first}).")
     return values
 
 

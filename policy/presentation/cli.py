@@ -19,6 +19,7 @@ from rich.table import Table
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
+from policy.inputs.limits import MAX_REPLICATES, number as check_number, whole_number
 
 app = typer.Typer(
     add_completion=False,
@@ -39,6 +40,8 @@ def command(fn):
 
     @functools.wraps(fn)
     def run(*args, **kwargs):
+        from policy.outputs import release_output_folders
+
         try:
             return fn(*args, **kwargs)
         except PolicyError as exc:
@@ -47,11 +50,15 @@ def command(fn):
             if conflicts is not None:
                 err_console.print(conflicts.to_string(index=False))
             raise typer.Exit(exc.exit_code) from None
+        finally:
+            release_output_folders()
 
     return app.command()(run)
 
 
 OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
+OverwriteOption = typer.Option(False, "--overwrite", help="Replace files in the output folder that this tool did not write "
+                               "(or that were changed since); without it such files are left alone and the run is refused.")
 CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
 DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
 ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
@@ -74,6 +81,10 @@ RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: 
 LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
+#: most grid points per axis of a sweep (a map's grid holds points**2 cells, each a rule)
+MAX_GRID_POINTS = 2_000
+
+
 def _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver):
     """Constraints added on the command line (as tables) and the LP settings in force."""
     from dataclasses import replace
@@ -81,6 +92,15 @@ def _constraint_options(sc, constraint, group_blind, principal_fairness, max_sha
     from policy.decision.constrained import lp_settings_from_table
     from policy.decision.constraints import parse_constraint_text, shorthand_tables
 
+    for option, items, high in (("--principal-fairness", principal_fairness, 1), ("--max-share", max_share, 1),
+                                ("--max-rate", max_rate, 1)):
+        for item in items or []:
+            name, sep, value = item.partition("=")
+            try:
+                value = float(value)
+            except ValueError:
+                continue  # the constraint's own parser says what it expected
+            check_number(value, f"{option} {item}", low=0, high=high, expected="a share or probability in 0..1")
     added = [parse_constraint_text(text) for text in constraint or []]
     added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
     settings = sc.sections.get("linear_program")
@@ -100,8 +120,33 @@ def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
             number = None
         if not sep or not key or number is None:
             raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
-        out[key.strip()] = number
+        out[key.strip()] = check_number(number, f"{what} {item}", low=0)
     return out
+
+
+def _claim(out: Path, *scenarios) -> list:
+    """Check and hold the output folder before computing; the input files of the run."""
+    from policy.inputs.paths import input_paths
+    from policy.outputs import claim_output_folder
+    from policy.running.pipeline import as_scenario
+
+    claim_output_folder(out)
+    return [p for sc in scenarios if sc is not None for p in input_paths(as_scenario(sc))]
+
+
+def _options(**values) -> None:
+    """Check numeric options: name -> (value, low, high); None values are not given."""
+    for name, (value, low, high) in values.items():
+        if value is None:
+            continue
+        option = "--" + name.replace("_", "-")
+        if isinstance(value, int) and not isinstance(value, bool):
+            whole_number(value, f"{option}", low=low, high=high)
+        elif name == "interval":
+            check_number(value, option, low=0, high=1, low_open=True, high_open=True,
+                         expected="a coverage strictly between 0 and 1, e.g. 0.95")
+        else:
+            check_number(value, f"{option}", low=low, high=high)
 
 
 def show_cautions() -> None:
@@ -158,15 +203,18 @@ def _risk_table(rl) -> Table:
 
 @command
 def demo(out: Path = OutOption,
-         cases: Optional[int] = typer.Option(None, help="Number of simulated cases (default: the demo scenario's).")):
+         cases: Optional[int] = typer.Option(None, help="Number of simulated cases (default: the demo scenario's)."),
+         overwrite: bool = OverwriteOption):
     """Build the invented Quarrow County data, estimate risk levels, find the optimal rule, write all outputs."""
+    from policy.inputs.limits import simulated_cases
     from policy.outputs import write_outputs
-    from policy.running.pipeline import analyze, write_demo_inputs
+    from policy.running.pipeline import demo_files
 
-    if cases is not None and cases <= 0:
-        raise InputError(f"--cases must be a positive number of cases; got {cases}.")
-    analysis = analyze(write_demo_inputs(out, cases)[0])
-    paths = write_outputs(out, analysis.output_files())
+    if cases is not None:
+        simulated_cases(cases, "--cases")
+    _claim(out)
+    analysis, files = demo_files(out, cases)
+    paths = write_outputs(out, files, overwrite=overwrite, keep=("cases.csv", "scenario.toml"), command="demo")
     _print_analysis(analysis)
     console.print(f"Demo data and scenario: {out / 'cases.csv'}, {out / 'scenario.toml'}")
     show_written(paths)
@@ -188,17 +236,19 @@ def check(scenario: Path = typer.Argument(..., help="Scenario file (TOML).")):
 
 
 @command
-def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption):
+def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption,
+             overwrite: bool = OverwriteOption):
     """Estimate risk levels per cell and write the cell table and risk-level tables."""
     from policy.outputs import write_outputs
     from policy.running.pipeline import as_scenario, estimate as run_estimate
 
     sc = as_scenario(scenario)
+    inputs = _claim(out, sc)
     cells, rl = run_estimate(sc)
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
     if cells is not None:
         files = {"cells.csv": cells.counts_frame(sc), **files}
-    paths = write_outputs(out, files)
+    paths = write_outputs(out, files, inputs=inputs, overwrite=overwrite, command="estimate")
     console.print(_risk_table(rl))
     show_assumptions("risk_levels")
     show_cautions()
@@ -271,6 +321,7 @@ def solve(
     max_rate: Optional[List[str]] = MaxRateOption,
     ignore_constraints: bool = IgnoreConstraintsOption,
     solver: Optional[str] = LPSolverOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
@@ -283,9 +334,11 @@ def solve(
 
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
-    analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    inputs = _claim(out, sc)
+    analysis = analyze(sc, outcome_costs, decision_costs, constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
-    paths = write_outputs(out, analysis.output_files())
+    paths = write_outputs(out, analysis.output_files(), inputs=inputs, overwrite=overwrite, command="solve")
     _print_analysis(analysis)
     show_written(paths)
 
@@ -298,14 +351,17 @@ def report(
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
     replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+    overwrite: bool = OverwriteOption,
 ):
     """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
     from policy.outputs import write_outputs
     from policy.presentation.report import build_report
 
-    built = build_report(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
-                         replicates=replicates, progress=progress)
-    paths = write_outputs(out, built.output_files())
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    _options(replicates=(replicates, 0, MAX_REPLICATES))
+    inputs = _claim(out, scenario)
+    built = build_report(scenario, outcome_costs, decision_costs, replicates=replicates, progress=progress)
+    paths = write_outputs(out, built.output_files(), inputs=inputs, overwrite=overwrite, command="report")
     console.print(str(built))
     show_cautions()
     show_written(paths)
@@ -324,7 +380,11 @@ def _ranges(values: Optional[List[str]]) -> Optional[list]:
             pair = None
         if not sep or pair is None:
             raise InputError(f"--range {item!r} must look like LOW:HIGH, e.g. 0:40.")
-        out.append(pair)
+        lo, hi = (check_number(v, f"--range {item}", low=0, expected="two finite numbers >= 0 (a cost ratio is not negative)")
+                  for v in pair)
+        if not lo < hi:
+            raise InputError(f"--range {item!r} must have LOW < HIGH; got {lo:g} to {hi:g}.")
+        out.append((lo, hi))
     return out
 
 
@@ -339,6 +399,7 @@ def _vary(text: Optional[str]) -> tuple:
     if not sep or not name.strip() or not numbers:
         raise InputError(f"--vary {text!r} must look like NAME=V1,V2,..., e.g. '#3 capacity=0.1,0.15,0.2' or 3=0.1,0.2.")
     name = name.strip()
+    numbers = [check_number(v, f"--vary {text}", low=0) for v in numbers]
     return (int(name) if name.isdigit() else name), numbers
 
 
@@ -378,6 +439,7 @@ def sweep(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
@@ -390,17 +452,25 @@ def sweep(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     varied, values = _vary(vary)
-    if table_points < 2:
-        raise InputError(f"--table-points must be at least 2; got {table_points}.")
+    _options(points=(points, 2, MAX_GRID_POINTS), table_points=(table_points, 2, MAX_GRID_POINTS),
+             lp_points=(lp_points, 2, MAX_GRID_POINTS), share=(share, 0, 1), interval=(interval, 0, 1),
+             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, None))
+    if share <= 0:
+        raise InputError(f"--share must be a share of cases above 0 and at most 1; got {share:g}.")
+    for g in gamma or []:
+        check_number(g, "--gamma", low=1, expected="a finite number >= 1 (1: no confounding)")
+    ranges = _ranges(range_)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    inputs = _claim(out, sc)
     formats = [] if no_figures else list(figure or ["png", "svg"])
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
         raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
     with _runner(run_on, workers) as runner:
         result = sweep_scenario(
-            sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+            sc, ratio, ranges=ranges, scale=scale, per=per, gammas=gamma or None,
             bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+            outcome_costs=outcome_costs, decision_costs=decision_costs,
             constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
             vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
             interval=interval, outcomes=outcomes, workers=workers, progress=progress, runner=runner)
@@ -417,7 +487,8 @@ def sweep(
                 bar.update(task, advance=1, description=f"sweep: drew {name}")
             return run
 
-        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()})
+        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()},
+                              inputs=inputs, overwrite=overwrite, command="sweep")
     console.print(result.scenario.title, style="bold")
     console.print(str(result))
     console.print("Assumptions behind these figures:", style="bold")
@@ -469,15 +540,19 @@ def compare(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals."""
     from policy.assessment.compare import compare as run_compare
     from policy.outputs import write_outputs
 
+    _options(replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), interval=(interval, 0, 1),
+             workers=(workers, 1, None))
+    inputs = _claim(out, scenario)
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
                                  outcomes=outcomes, workers=workers, progress=progress, runner=runner)
-    paths = write_outputs(out, comparison.output_files())
+    paths = write_outputs(out, comparison.output_files(), inputs=inputs, overwrite=overwrite, command="compare")
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
     console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
@@ -520,6 +595,7 @@ def batch(
     decision_cost: Optional[List[str]] = DecisionCostOption,
     run_on: Optional[str] = typer.Option("here", "--run-on", help=RunOnOption.help),
     progress: bool = ProgressOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Solve every scenario of a folder as independent tasks; write each one's files in its own folder and one summary table.
 
@@ -532,15 +608,19 @@ def batch(
     from policy.running.distributed import describe_where, run_on as runner_for
     from policy.outputs import write_outputs
 
-    n = len(scenario_files(folder))
+    files_in = scenario_files(folder)
+    n = len(files_in)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    _claim(out)
+    inputs = [p.resolve() for p in files_in] + [p.resolve() for p in Path(folder).iterdir() if p.is_file()]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
                    console=err_console, transient=True, disable=not progress)
     with runner_for(run_on) as runner, bar:
         task = bar.add_task("batch: scenarios", total=n)
-        result = run_batch(folder, runner, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+        result = run_batch(folder, runner, outcome_costs, decision_costs,
                            on_done=lambda name: bar.update(task, advance=1, description=f"batch: {name} finished"),
                            where=describe_where(run_on))
-    paths = write_outputs(out, result.output_files())
+    paths = write_outputs(out, result.output_files(), inputs=inputs, overwrite=overwrite, command="batch")
     summary = result.summary()
     table = Table(title=f"{len(result.runs)} scenarios ({result.where})")
     for col in ("scenario", "status", "cases", "cost per 1,000 cases", "constrained price per 1,000", "outputs or reason"):
