@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import List, Optional
 
 import functools
+import re
 
 import typer
 from rich.console import Console
@@ -31,9 +32,21 @@ app = typer.Typer(
         "decision about an individual."
     ),
 )
+#: control characters (C0 but line end and tab, DEL, C1): a title or label holding them could clear
+#: the screen or retitle the window; they are shown as \xNN instead
+_CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f]")
+
+
+class _VisibleConsole(Console):
+    """A console that shows control characters in text visibly (``\x1b``) instead of sending them."""
+
+    def render_str(self, text, **kwargs):
+        return super().render_str(_CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", text), **kwargs)
+
+
 # markup is off: labels from scenario files are printed as written, never as styles
-console = Console(highlight=False, markup=False, width=120, soft_wrap=True)
-err_console = Console(stderr=True, highlight=False, markup=False, soft_wrap=True)
+console = _VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
+err_console = _VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""
@@ -499,6 +512,8 @@ def sweep(
 
 
 def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
+    if value != value:  # NaN: not estimated (e.g. an arm with no cases)
+        return "not estimated"
     if lo != lo or hi != hi:  # NaN: no interval
         return format(value, fmt)
     return f"{format(value, fmt)} ({format(lo, fmt)} to {format(hi, fmt)})"
