@@ -149,7 +149,8 @@ def table_bytes(frame: pd.DataFrame, suffix: str) -> bytes:
 
 MANIFEST = ".policy-outputs.json"
 _STAGING = ".policy-staging-"
-#: keys of JSON outputs holding a path; written relative to the output folder
+#: keys of JSON outputs holding a path; written relative to the output folder (at most two
+#: levels up), else as the file's name alone
 PATH_KEYS = ("scenario_file",)
 #: folders claimed by this process (resolved path -> (open lock file, whether we created it))
 _HELD: dict[Path, tuple[Any, bool]] = {}
@@ -314,7 +315,9 @@ def _relative_paths(content: Any, folder: Path) -> Any:
         out = {}
         for k, v in content.items():
             if k in PATH_KEYS and isinstance(v, (str, Path)) and os.path.isabs(str(v)):
-                v = Path(os.path.relpath(str(v), str(folder.resolve()))).as_posix()
+                rel = Path(os.path.relpath(str(v), str(folder.resolve())))
+                # near the outputs (same or a nearby folder): the relative path; else the name only
+                v = rel.as_posix() if rel.parts.count("..") <= 2 else rel.name
             out[k] = _relative_paths(v, folder)
         return out
     if isinstance(content, list):

@@ -266,7 +266,8 @@ class CellTable:
                     raise InputError(f"{file}: {text} in {len(rows)} rows (first: row {rows[0] + 1}); counts must nest.")
         cell_codes, categories = [], {}
         for col in scenario.cell_columns:
-            codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col))
+            codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col),
+                                           col in scenario.rule_covariates or col == scenario.aid.score)
             cell_codes.append(codes)
             categories[col] = cats
         level_codes = _level_codes(frame[scenario.decision], scenario, scenario.decision, file)

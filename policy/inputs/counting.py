@@ -45,14 +45,16 @@ def _is_number(value: Any) -> bool:
         return False
 
 
-def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: str, file: str) -> list:
+def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: str, file: str,
+                        one_kind: bool = False) -> list:
     if declared is None:
-        numbers = [v for v in uniques if _is_number(v)]
+        numbers = [v for v in uniques if _is_number(v)] if one_kind else []
+        # a rule column: text among its numbers is a typo, not a category
         if numbers and len(numbers) < len(uniques):
             texts = sorted({str(v) for v in uniques if not _is_number(v)})
             shown = ", ".join(repr(t) for t in texts[:5]) + (", ..." if len(texts) > 5 else "")
             raise InputError(
-                f"{file}: cell column {column!r} mixes numbers and text: {shown} among numbers such as "
+                f"{file}: rule column {column!r} mixes numbers and text: {shown} among numbers such as "
                 f"{', '.join(str(v) for v in sorted(numbers, key=float)[:5])}; a cell column holds one kind of value "
                 f"(or list every value in [cells] order.{column})."
             )
@@ -129,23 +131,24 @@ def code_column(series: pd.Series, column: str, file: str, what: str = "column")
 
 
 def categories_of(coded: CodedColumn, present: np.ndarray, declared: Sequence | None,
-                  column: str, file: str) -> tuple[list, np.ndarray]:
+                  column: str, file: str, one_kind: bool = False) -> tuple[list, np.ndarray]:
     """Ordered categories of the codes present, and a lookup from code to category position
     (-1 for codes not present)."""
     values = [coded.uniques[i] for i in present.tolist()]
-    cats = _ordered_categories(values, declared, column, file)
+    cats = _ordered_categories(values, declared, column, file, one_kind)
     position = {v: i for i, v in enumerate(cats)}
     lookup = np.full(coded.size, -1, dtype=np.int64)
     lookup[present] = [position[v] for v in values]
     return cats, lookup
 
 
-def code_cell_column(series: pd.Series, column: str, file: str, declared: Sequence | None) -> tuple[np.ndarray, list]:
+def code_cell_column(series: pd.Series, column: str, file: str, declared: Sequence | None,
+                     one_kind: bool = False) -> tuple[np.ndarray, list]:
     """Codes 0..n-1 of a (small) table's cell column and its ordered categories (present values only)."""
     coded = code_column(series, column, file, "cell column")
     raw = coded.codes().astype(np.int64)
     present = np.flatnonzero(np.bincount(raw, minlength=coded.size))
-    cats, lookup = categories_of(coded, present, declared, column, file)
+    cats, lookup = categories_of(coded, present, declared, column, file, one_kind)
     return lookup[raw], cats
 
 
@@ -255,7 +258,8 @@ def _present_categories(uniques: Sequence[list], codes: np.ndarray, scenario: Sc
     for k, name in enumerate(scenario.cell_columns):
         raw = codes[:, k]
         coded = CodedColumn(np.empty(0, dtype=np.int64), 0, list(uniques[k]))
-        cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file)
+        cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file,
+                                     name in scenario.rule_covariates or name == scenario.aid.score)
         pos = lookup[raw]
         categories[name] = (cats, pos)
         positions.append(pos)
