@@ -12,7 +12,7 @@ from __future__ import annotations
 import hashlib
 import re
 import shutil
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -61,7 +61,7 @@ class Case:
     cases: Callable | None = None  # edit of cases.csv: text -> text
     counts: Callable | None = None  # edit of counts.csv (and the scenario then reads it)
     setup: Callable | None = None  # any other preparation: setup(folder)
-    extra: dict = field(default_factory=dict)
+    absent: tuple = ()             # words the message must not hold
 
 
 def scn(*pairs) -> tuple:
@@ -191,7 +191,7 @@ CASES = [
     Case("option workers zero", ["compare", S, "-o", O, "--workers", "0", "--no-progress"], 2, ("--workers", "0")),
     Case("option workers and run-on", ["compare", S, "-o", O, "--workers", "2", "--run-on", "here", "--no-progress"], 2, ("--workers", "--run-on")),
     Case("option max-share nan", ["solve", S, "-o", O, "--max-share", "bond=nan"], 2, ("--max-share", "nan")),
-    Case("option max-share above 1", ["solve", S, "-o", O, "--max-share", "bond=1.5"], 2, ("max_share", "1.5")),
+    Case("option max-share above 1", ["solve", S, "-o", O, "--max-share", "bond=1.5"], 2, ("--max-share", "bond=1.5", "0..1")),
     Case("option max-rate inf", ["solve", S, "-o", O, "--max-rate", "missed_court=inf"], 2, ("--max-rate", "inf")),
     Case("option principal fairness nan", ["solve", S, "-o", O, "--principal-fairness", "new_offense=nan"], 2, ("--principal-fairness", "nan")),
     Case("option constraint tolerance nan", ["solve", S, "-o", O, "--constraint", "kind=principal_fairness,outcome=new_offense,tolerance=nan"],
@@ -277,8 +277,18 @@ CASES = [
              ",".join("0" if re.match(r"cases|recommended|observed_|events_", ls[0].split(",")[i]) else v
                       for i, v in enumerate(line.split(",")))
              for line in ls[1:] if line])),
-    Case("risk table negative probability", ["solve", S, "-o", O], 2, ("risk_levels.csv", "-0.1"),
+    Case("risk table negative probability", ["solve", S, "-o", O], 2, ("risk_levels.csv", "-0.1"), absent=("np.float64",),
          scenario=scn(RISK, NO_ARM), setup=lambda f: _edit_csv(f / "risk_levels.csv", 1, "risk_level_1", "-0.1")),
+
+    Case("parquet outcome stored as text", ["solve", S, "-o", O], 2, ("cases.parquet", "missed_court", "holds text"),
+         absent=("category",), scenario=scn(('case_table = "cases.csv"', 'case_table = "cases.parquet"')),
+         setup=lambda f: _parquet(f, missed_court=lambda c: c.astype("Int64").astype(str))),
+    Case("counts table with extra fields", ["solve", S, "-o", O], 2, ("counts.csv", "line 3", "fields"),
+         scenario=scn(COUNTS), counts=_lines(lambda ls: ls[:2] + [ls[2] + ",1"] + ls[3:])),
+    Case("counts table with a NUL byte", ["solve", S, "-o", O], 2, ("counts.csv", "NUL"),
+         scenario=scn(COUNTS), counts=_set_cell(2, "sex", "fe\x00male")),
+    Case("case table with a quoted value holding a stray comma", ["solve", S, "-o", O], 2, ("cases.csv", "line 3", "fields"),
+         cases=_set_cell(2, "sex", "female,x")),
 
     # --- scenario text -------------------------------------------------------------------------
     Case("scenario missing", ["solve", "{dir}/nothing.toml", "-o", O], 2, ("nothing.toml", "does not exist")),
@@ -299,6 +309,8 @@ CASES = [
          scenario=scn(('case_table = "cases.csv"', 'case_table = "cases.csv"\nsimulate = 100'))),
 
     # --- output folders --------------------------------------------------------------------------
+    Case("out on a file system that cannot be written", ["solve", S, "-o", "/sys/policy-outputs"], 2,
+         ("--out", "/sys/policy-outputs", "cannot write")),
     Case("out is a file", ["solve", S, "-o", "{dir}/cases.csv"], 2, ("--out", "cases.csv", "file")),
     Case("out under a file", ["solve", S, "-o", "{dir}/cases.csv/sub"], 2, ("--out", "cases.csv", "file")),
     Case("out would replace the case table", ["solve", S, "-o", "{dir}"], 2, ("cells.csv", "an input of this run"),
@@ -309,6 +321,13 @@ CASES = [
     Case("out holds files the tool did not write", ["solve", S, "-o", "{dir}"], 2, ("--overwrite", "risk_levels.csv", "did not write")),
     Case("demo into a folder with a user's scenario", ["demo", "-o", "{dir}", "--cases", "600"], 2, ("--overwrite", "scenario.toml")),
 ]
+
+
+def _parquet(folder: Path, **edits) -> None:
+    frame = pd.read_csv(folder / "cases.csv")
+    for column, edit in edits.items():
+        frame[column] = edit(frame[column])
+    frame.to_parquet(folder / "cases.parquet", index=False)
 
 
 def _append(folder: Path, text: str) -> None:
@@ -359,5 +378,27 @@ def test_bad_input(case, base, tmp_path, capsys):
     assert code == case.code, message
     for word in case.words:
         assert word.lower() in message.lower(), f"{word!r} not in: {message}"
+    for word in case.absent + ("Traceback",):
+        assert word not in message, f"{word!r} in: {message}"
     after = {k: _snapshot(v) for k, v in watched.items()}
     assert after == before, "files changed by a failed run"
+
+
+def test_an_arm_without_cases_gives_no_figure_and_says_why(base, tmp_path, capsys):
+    """compare with every case in one arm: the aid's effect is not estimated (no 'nan' in a sentence)."""
+    folder = tmp_path / "in"
+    shutil.copytree(base, folder)
+    cases = pd.read_csv(folder / "cases.csv")
+    cases["aid_shown"] = 0
+    cases.to_csv(folder / "cases.csv", index=False)
+    code, out, err = run_cli(["compare", folder / "scenario.toml", "-o", tmp_path / "out", "--replicates", "0",
+                              "--no-progress"], capsys)
+    text = " ".join(out.split())
+    assert code == 0, err
+    assert not re.search(r"\bnan\b", text, flags=re.IGNORECASE)
+    assert "no case where the aid was shown" in text and "not estimated" in text
+
+
+def test_the_catalogue_is_large_enough():
+    assert len(CASES) >= 80
+    assert len({c.name for c in CASES}) == len(CASES)

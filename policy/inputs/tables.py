@@ -216,7 +216,10 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
             raise InputError(f"{file}: column {column!r} must be {expected}; got {text} in {n} rows (first: row {first}).")
     else:
         if typed:
-            raise InputError(f"{file}: column {column!r} has type {dtype}; expected integer or boolean 0/1 (null for missing).")
+            kind = "text" if (isinstance(dtype, pd.CategoricalDtype) or pd.api.types.is_string_dtype(dtype)
+                              or dtype == object) else f"values of type {dtype}"
+            raise InputError(f"{file}: column {column!r} holds {kind}; expected integer or boolean 0/1 (null for missing) "
+                             "in this Parquet file: store the column as numbers.")
         text_values = series.astype("string").str.strip()
         missing = text_values.isna() | (text_values == "")
         zero = text_values == "0"
