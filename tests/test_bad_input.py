@@ -402,3 +402,37 @@ def test_an_arm_without_cases_gives_no_figure_and_says_why(base, tmp_path, capsy
 def test_the_catalogue_is_large_enough():
     assert len(CASES) >= 80
     assert len({c.name for c in CASES}) == len(CASES)
+
+
+def test_run_on_a_port_that_is_not_a_scheduler(base, tmp_path, capsys):
+    """Something that is not a Dask scheduler answers: a message, no traceback, no files."""
+    import socket
+    import threading
+
+    pytest.importorskip("distributed")
+    server = socket.socket()
+    server.bind(("127.0.0.1", 0))
+    server.listen(5)
+    port = server.getsockname()[1]
+
+    def serve():
+        while True:
+            try:
+                conn, _ = server.accept()
+            except OSError:
+                return
+            try:
+                conn.sendall(b"\xff" * 64 + b"HTTP/1.1 200 OK\r\n\r\nnot a scheduler" * 10)
+            except OSError:
+                pass
+
+    threading.Thread(target=serve, daemon=True).start()
+    try:
+        code, out, err = run_cli(["compare", base / "scenario.toml", "-o", tmp_path / "out", "--replicates", "2",
+                                  "--no-progress", "--run-on", f"tcp://127.0.0.1:{port}"], capsys)
+    finally:
+        server.close()
+    message = " ".join((out + err).split())
+    assert code in (2, 5), message
+    assert "--run-on" in message and str(port) in message and "Traceback" not in message
+    assert not (tmp_path / "out").exists()

@@ -261,8 +261,9 @@ def run_on(where: str | None = None) -> Iterator[TaskRunner]:
         raise RunError(f"could not reach a Dask scheduler at {where!r} ({type(exc).__name__}: {exc}); start one with "
                        "`dask scheduler` and workers with `dask worker ADDRESS --nthreads 1`, or use --run-on local.") from None
     except (ValueError, TypeError) as exc:
-        raise InputError(f"--run-on {where!r} is not a usable scheduler address ({exc}); expected e.g. tcp://10.0.0.5:8786 "
-                         "(tls:// addresses also need Dask's TLS settings: distributed.comm.tls in Dask's configuration).") from None
+        raise InputError(f"--run-on {where!r}: no Dask scheduler answered there ({exc}); expected the address of a running "
+                         "scheduler such as tcp://10.0.0.5:8786 (tls:// addresses also need Dask's TLS settings: "
+                         "distributed.comm.tls in Dask's configuration).") from None
     except MemoryError:
         raise RunError(f"--run-on {where!r}: what answers there is not a Dask scheduler (it sent a reply no scheduler "
                        "sends); check the address and port.") from None
