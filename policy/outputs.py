@@ -151,7 +151,7 @@ MANIFEST = ".policy-outputs.json"
 _STAGING = ".policy-staging-"
 #: keys of JSON outputs holding a path; written relative to the output folder (at most two
 #: levels up), else as the file's name alone
-PATH_KEYS = ("scenario_file",)
+PATH_KEYS = ("scenario_file", "folder")
 #: folders claimed by this process (resolved path -> (open lock file, whether we created it))
 _HELD: dict[Path, tuple[Any, bool]] = {}
 
@@ -416,6 +416,10 @@ def write_outputs(folder: str | os.PathLike, files: dict[str, Any], *, inputs=()
                 path.parent.mkdir(parents=True, exist_ok=True)
                 _render(content, path, name, folder)
                 entries[name] = {"sha256": _sha256(path), "kept": name in keep}
+        except OSError as exc:
+            shutil.rmtree(staging, ignore_errors=True)
+            raise InputError(f"{option} {str(folder)!r}: could not write the outputs there ({exc.strerror or exc}); "
+                             "nothing in the folder was changed.") from None
         except BaseException:
             shutil.rmtree(staging, ignore_errors=True)
             raise

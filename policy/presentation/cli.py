@@ -396,7 +396,7 @@ def _ranges(values: Optional[List[str]]) -> Optional[list]:
         lo, hi = (check_number(v, f"--range {item}", low=0, expected="two finite numbers >= 0 (a cost ratio is not negative)")
                   for v in pair)
         if not lo < hi:
-            raise InputError(f"--range {item!r} must have LOW < HIGH; got {lo:g} to {hi:g}.")
+            raise InputError(f"--range {item!r} must have LOW < HIGH (low < high); got {lo:g} to {hi:g}.")
         out.append((lo, hi))
     return out
 
@@ -471,7 +471,7 @@ def sweep(
     if share <= 0:
         raise InputError(f"--share must be a share of cases above 0 and at most 1; got {share:g}.")
     for g in gamma or []:
-        check_number(g, "--gamma", low=1, expected="a finite number >= 1 (1: no confounding)")
+        check_number(g, "--gamma", low=1, expected="a sensitivity parameter Gamma: a finite number >= 1 (1: no confounding)")
     ranges = _ranges(range_)
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
     inputs = _claim(out, sc)
