@@ -308,6 +308,48 @@ CASES = [
     Case("two data sources", ["solve", S, "-o", O], 2, ("exactly one",),
          scenario=scn(('case_table = "cases.csv"', 'case_table = "cases.csv"\nsimulate = 100'))),
 
+    Case("misspelt section", ["check", S], 2, ("unknown section [costs_gone]",),
+         scenario=scn(("[costs]\n", "[costs_gone]\n"))),
+    Case("missing section", ["check", S], 2, ("missing section [costs]",),
+         setup=lambda f: _drop_section(f, "[costs]\n", "[cells]\n")),
+    Case("missing required key", ["check", S], 2, ("missing key 'unit'", "[costs]"),
+         scenario=scn(('unit = "USD (2024)"', ''))),
+    Case("one decision level only", ["check", S], 2, ("[[decisions]]", "at least two"),
+         setup=lambda f: _keep_one_decision(f)),
+    Case("decision with cost and cost_column", ["check", S], 2, ("[[decisions]] #1", "exactly one of 'cost'"),
+         scenario=scn(('cost = 0.0', 'cost = 0.0\ncost_column = "bond_cost"'))),
+    Case("outcome key with a space", ["check", S], 2, ("'key'", "'missed court'"),
+         scenario=scn(('key = "missed_court"', 'key = "missed court"'))),
+    Case("impossible_from the most lenient level", ["check", S], 2, ("impossible_from", "most lenient"),
+         scenario=scn(('key = "missed_court"', 'key = "missed_court"\nimpossible_from = "recognizance"'))),
+    Case("impossible_from unknown level", ["check", S], 2, ("impossible_from", "'jail'"),
+         scenario=scn(('key = "missed_court"', 'key = "missed_court"\nimpossible_from = "jail"'))),
+    Case("aid score not a cell column", ["check", S], 2, ("[aid] score", "'aid_points'"),
+         scenario=scn(('score = "aid_tier"', 'score = "aid_points"'))),
+    Case("target covariate not a cell column", ["check", S], 2, ("target_covariates", "'shoe_size'"),
+         scenario=scn(('sparse_below = 20', 'sparse_below = 20\ntarget_covariates = ["shoe_size"]'))),
+    Case("order names a column that is not a cell column", ["check", S], 2, ("order", "'shoe_size'"),
+         scenario=scn(('order = { age_band', 'order = { shoe_size = ["s"], age_band'))),
+    Case("order misses a value of the data", ["check", S], 2, ("'41+'", "order.age_band"),
+         scenario=scn(('age_band = ["18-25", "26-40", "41+"]', 'age_band = ["18-25", "26-40"]'))),
+    Case("data path without a table suffix", ["check", S], 2, ("case_table", ".csv or .parquet"),
+         scenario=scn(('case_table = "cases.csv"', 'case_table = "cases.txt"'))),
+    Case("arm with a risk-level table", ["check", S], 2, ("arm", "risk_level_table"),
+         scenario=scn(RISK)),
+    Case("uncertainty resampling unknown", ["compare", S, "-o", O, "--no-progress"], 2, ("resampling", "'bayesian'"),
+         scenario=scn(('resampling = "poisson"', 'resampling = "bayesian"'))),
+    Case("candidate without a form", ["compare", S, "-o", O, "--no-progress"], 2, ("[[candidate_rules]]",),
+         setup=lambda f: _append(f, '[[candidate_rules]]\nname = "nothing"\n')),
+    Case("constraint kind unknown in the scenario", ["solve", S, "-o", O], 2, ("kind", "'wishful'"),
+         setup=lambda f: _append(f, '[[constraints]]\nkind = "wishful"\n')),
+    Case("capacity with both caps", ["solve", S, "-o", O], 2, ("capacity", "exactly one"),
+         setup=lambda f: _append(f, '[[constraints]]\nkind = "capacity"\nmax_share = 0.1\nmax_cases = 100.0\n')),
+    Case("batch folder missing", ["batch", "{dir}/nowhere", "-o", O, "--no-progress"], 2, ("nowhere", "does not exist")),
+    Case("batch folder without scenarios", ["batch", "{dir}/empty", "-o", O, "--no-progress"], 2, ("no scenario files",),
+         setup=lambda f: (f / "empty").mkdir()),
+    Case("estimate into a folder holding the user's counts table", ["estimate", S, "-o", "{dir}"], 2,
+         ("risk_levels.csv", "--overwrite")),
+
     # --- output folders --------------------------------------------------------------------------
     Case("out on a file system that cannot be written", ["solve", S, "-o", "/sys/policy-outputs"], 2,
          ("--out", "/sys/policy-outputs", "cannot write")),
@@ -328,6 +370,19 @@ def _parquet(folder: Path, **edits) -> None:
     for column, edit in edits.items():
         frame[column] = edit(frame[column])
     frame.to_parquet(folder / "cases.parquet", index=False)
+
+
+def _drop_section(folder: Path, start: str, stop: str) -> None:
+    text = (folder / "scenario.toml").read_text()
+    (folder / "scenario.toml").write_text(text[:text.index(start)] + text[text.index(stop):])
+
+
+def _keep_one_decision(folder: Path) -> None:
+    text = (folder / "scenario.toml").read_text()
+    first = text.index("[[decisions]]")
+    last = text.index("[[outcomes]]")
+    second = text.index("[[decisions]]", first + 1)
+    (folder / "scenario.toml").write_text(text[:second] + text[last:])
 
 
 def _append(folder: Path, text: str) -> None:
