@@ -147,6 +147,13 @@ def _claim(out: Path, *scenarios) -> list:
     return [p for sc in scenarios if sc is not None for p in input_paths(as_scenario(sc))]
 
 
+def _most_workers() -> int:
+    """Most worker processes of --workers: four per core (more only add waiting and memory)."""
+    from policy.running.distributed import MAX_LOCAL_WORKERS_PER_CORE, available_cores
+
+    return MAX_LOCAL_WORKERS_PER_CORE * available_cores()
+
+
 def _options(**values) -> None:
     """Check numeric options: name -> (value, low, high); None values are not given."""
     for name, (value, low, high) in values.items():
@@ -467,7 +474,7 @@ def sweep(
     varied, values = _vary(vary)
     _options(points=(points, 2, MAX_GRID_POINTS), table_points=(table_points, 2, MAX_GRID_POINTS),
              lp_points=(lp_points, 2, MAX_GRID_POINTS), share=(share, 0, 1), interval=(interval, 0, 1),
-             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, None))
+             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, _most_workers()))
     if share <= 0:
         raise InputError(f"--share must be a share of cases above 0 and at most 1; got {share:g}.")
     for g in gamma or []:
@@ -562,7 +569,7 @@ def compare(
     from policy.outputs import write_outputs
 
     _options(replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), interval=(interval, 0, 1),
-             workers=(workers, 1, None))
+             workers=(workers, 1, _most_workers()))
     inputs = _claim(out, scenario)
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
