@@ -199,3 +199,14 @@ def test_a_writer_killed_while_renaming_is_finished_by_recover(tmp_path):
         contents = {(folder / n).read_text() for n in manifest["files"]}
         assert len(contents) == 1, "the folder mixes files of two runs"
     assert old
+
+
+def test_solve_without_constraints_after_one_with_removes_the_constrained_files(tmp_path, capsys):
+    code, _, err = run_cli(["demo", "--out", tmp_path / "w", "--cases", "600"], capsys)
+    assert code == 0, err
+    scenario = tmp_path / "w" / "scenario.toml"
+    assert run_cli(["solve", scenario, "--out", tmp_path / "w", "--max-share", "bond=0.1"], capsys)[0] == 0
+    assert (tmp_path / "w" / "constrained_rule.csv").is_file()
+    assert run_cli(["solve", scenario, "--out", tmp_path / "w"], capsys)[0] == 0
+    assert not list((tmp_path / "w").glob("constrained_*"))
+    assert (tmp_path / "w" / "cases.csv").is_file() and scenario.is_file()  # the demo's data stay
