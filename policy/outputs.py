@@ -389,7 +389,6 @@ def write_outputs(folder: str | os.PathLike, files: dict[str, Any], *, inputs=()
     try:
         previous = recover(folder) or {}
         ours = previous.get("files", {}) if previous.get("state") == "complete" else {}
-        root = folder.resolve()
         read = {Path(p).resolve() for p in inputs if p is not None}
         foreign = []
         for name in files:

@@ -11,16 +11,16 @@ from pathlib import Path
 from typing import List, Optional
 
 import functools
-import re
 
 import typer
-from rich.console import Console
 from rich.panel import Panel
 from rich.table import Table
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
-from policy.inputs.limits import MAX_REPLICATES, number as check_number, whole_number
+from policy.inputs.limits import MAX_REPLICATES, number as check_number
+from policy.presentation.checks import (MAX_GRID_POINTS, VisibleConsole, check_constraint_numbers, check_options,
+                                        claim, most_workers)
 
 app = typer.Typer(
     add_completion=False,
@@ -32,21 +32,9 @@ app = typer.Typer(
         "decision about an individual."
     ),
 )
-#: control characters (C0 but line end and tab, DEL, C1): a title or label holding them could clear
-#: the screen or retitle the window; they are shown as \xNN instead
-_CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f]")
-
-
-class _VisibleConsole(Console):
-    """A console that shows control characters in text visibly (``\x1b``) instead of sending them."""
-
-    def render_str(self, text, **kwargs):
-        return super().render_str(_CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", text), **kwargs)
-
-
 # markup is off: labels from scenario files are printed as written, never as styles
-console = _VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
-err_console = _VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
+console = VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
+err_console = VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""
@@ -94,10 +82,6 @@ RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: 
 LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
-#: most grid points per axis of a sweep (a map's grid holds points**2 cells, each a rule)
-MAX_GRID_POINTS = 2_000
-
-
 def _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver):
     """Constraints added on the command line (as tables) and the LP settings in force."""
     from dataclasses import replace
@@ -105,15 +89,7 @@ def _constraint_options(sc, constraint, group_blind, principal_fairness, max_sha
     from policy.decision.constrained import lp_settings_from_table
     from policy.decision.constraints import parse_constraint_text, shorthand_tables
 
-    for option, items, high in (("--principal-fairness", principal_fairness, 1), ("--max-share", max_share, 1),
-                                ("--max-rate", max_rate, 1)):
-        for item in items or []:
-            name, sep, value = item.partition("=")
-            try:
-                value = float(value)
-            except ValueError:
-                continue  # the constraint's own parser says what it expected
-            check_number(value, f"{option} {item}", low=0, high=high, expected="a share or probability in 0..1")
+    check_constraint_numbers(principal_fairness, max_share, max_rate)
     added = [parse_constraint_text(text) for text in constraint or []]
     added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
     settings = sc.sections.get("linear_program")
@@ -135,38 +111,6 @@ def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
             raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
         out[key.strip()] = check_number(number, f"{what} {item}", low=0)
     return out
-
-
-def _claim(out: Path, *scenarios) -> list:
-    """Check and hold the output folder before computing; the input files of the run."""
-    from policy.inputs.paths import input_paths
-    from policy.outputs import claim_output_folder
-    from policy.running.pipeline import as_scenario
-
-    claim_output_folder(out)
-    return [p for sc in scenarios if sc is not None for p in input_paths(as_scenario(sc))]
-
-
-def _most_workers() -> int:
-    """Most worker processes of --workers: four per core (more only add waiting and memory)."""
-    from policy.running.distributed import MAX_LOCAL_WORKERS_PER_CORE, available_cores
-
-    return MAX_LOCAL_WORKERS_PER_CORE * available_cores()
-
-
-def _options(**values) -> None:
-    """Check numeric options: name -> (value, low, high); None values are not given."""
-    for name, (value, low, high) in values.items():
-        if value is None:
-            continue
-        option = "--" + name.replace("_", "-")
-        if isinstance(value, int) and not isinstance(value, bool):
-            whole_number(value, f"{option}", low=low, high=high)
-        elif name == "interval":
-            check_number(value, option, low=0, high=1, low_open=True, high_open=True,
-                         expected="a coverage strictly between 0 and 1, e.g. 0.95")
-        else:
-            check_number(value, f"{option}", low=low, high=high)
 
 
 def show_cautions() -> None:
@@ -232,7 +176,7 @@ def demo(out: Path = OutOption,
 
     if cases is not None:
         simulated_cases(cases, "--cases")
-    _claim(out)
+    claim(out)
     analysis, files = demo_files(out, cases)
     paths = write_outputs(out, files, overwrite=overwrite, keep=("cases.csv", "scenario.toml"), command="demo")
     _print_analysis(analysis)
@@ -263,7 +207,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     from policy.running.pipeline import as_scenario, estimate as run_estimate
 
     sc = as_scenario(scenario)
-    inputs = _claim(out, sc)
+    inputs = claim(out, sc)
     cells, rl = run_estimate(sc)
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
     if cells is not None:
@@ -355,7 +299,7 @@ def solve(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
-    inputs = _claim(out, sc)
+    inputs = claim(out, sc)
     analysis = analyze(sc, outcome_costs, decision_costs, constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     paths = write_outputs(out, analysis.output_files(), inputs=inputs, overwrite=overwrite, command="solve")
@@ -378,8 +322,8 @@ def report(
     from policy.presentation.report import build_report
 
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
-    _options(replicates=(replicates, 0, MAX_REPLICATES))
-    inputs = _claim(out, scenario)
+    check_options(replicates=(replicates, 0, MAX_REPLICATES))
+    inputs = claim(out, scenario)
     built = build_report(scenario, outcome_costs, decision_costs, replicates=replicates, progress=progress)
     paths = write_outputs(out, built.output_files(), inputs=inputs, overwrite=overwrite, command="report")
     console.print(str(built))
@@ -472,16 +416,16 @@ def sweep(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     varied, values = _vary(vary)
-    _options(points=(points, 2, MAX_GRID_POINTS), table_points=(table_points, 2, MAX_GRID_POINTS),
+    check_options(points=(points, 2, MAX_GRID_POINTS), table_points=(table_points, 2, MAX_GRID_POINTS),
              lp_points=(lp_points, 2, MAX_GRID_POINTS), share=(share, 0, 1), interval=(interval, 0, 1),
-             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, _most_workers()))
+             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, most_workers()))
     if share <= 0:
         raise InputError(f"--share must be a share of cases above 0 and at most 1; got {share:g}.")
     for g in gamma or []:
         check_number(g, "--gamma", low=1, expected="a sensitivity parameter Gamma: a finite number >= 1 (1: no confounding)")
     ranges = _ranges(range_)
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
-    inputs = _claim(out, sc)
+    inputs = claim(out, sc)
     formats = [] if no_figures else list(figure or ["png", "svg"])
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
@@ -568,9 +512,9 @@ def compare(
     from policy.assessment.compare import compare as run_compare
     from policy.outputs import write_outputs
 
-    _options(replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), interval=(interval, 0, 1),
-             workers=(workers, 1, _most_workers()))
-    inputs = _claim(out, scenario)
+    check_options(replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), interval=(interval, 0, 1),
+             workers=(workers, 1, most_workers()))
+    inputs = claim(out, scenario)
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
                                  outcomes=outcomes, workers=workers, progress=progress, runner=runner)
@@ -633,7 +577,7 @@ def batch(
     files_in = scenario_files(folder)
     n = len(files_in)
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
-    _claim(out)
+    claim(out)
     inputs = [p.resolve() for p in files_in] + [p.resolve() for p in Path(folder).iterdir() if p.is_file()]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
                    console=err_console, transient=True, disable=not progress)
