@@ -173,23 +173,32 @@ def test_a_command_killed_at_random_points_leaves_one_complete_set(tmp_path, cap
 
 
 def test_a_writer_killed_while_renaming_is_finished_by_recover(tmp_path):
-    """The rename phase of many files, killed at random points: before recovery the manifest says
-    'replacing' or the old set is whole; after recovery the new set is whole."""
-    code = ("import sys\nfrom policy.outputs import write_outputs\n"
-            "write_outputs(sys.argv[1], {f'f{i:04d}.csv': ('v,' + sys.argv[2] + '\\n') * 2000 for i in range(400)})\n")
+    """Writing 400 files, killed at random moments of the write itself (bounded tries): before
+    recovery the manifest says 'replacing' or the set it lists is whole; after recovery the
+    folder holds one run's complete set."""
+    code = ("import sys, time\nfrom policy.outputs import write_outputs\n"
+            "files = {f'f{i:04d}.csv': ('v,' + sys.argv[2] + '\\n') * 2000 for i in range(400)}\n"
+            "print('go', flush=True)\nstart = time.perf_counter()\nwrite_outputs(sys.argv[1], files)\n"
+            "print(time.perf_counter() - start, flush=True)\n")
     folder = tmp_path / "many"
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
-    subprocess.run([sys.executable, "-c", code, str(folder), "old"], check=True, env=env, timeout=300)
-    old = _visible(folder)
+    first = subprocess.run([sys.executable, "-c", code, str(folder), "old"], check=True, env=env, timeout=300,
+                           capture_output=True, text=True)
+    duration = float(first.stdout.split()[-1])
     rng = random.Random(7)
-    for attempt in range(5):
-        proc = subprocess.Popen([sys.executable, "-c", code, str(folder), f"new{attempt}"], env=env)
+    seen = set()
+    for attempt in range(8):
+        proc = subprocess.Popen([sys.executable, "-c", code, str(folder), f"new{attempt}"], env=env,
+                                stdout=subprocess.PIPE, text=True)
+        assert proc.stdout.readline().strip() == "go"
         try:
-            proc.wait(timeout=rng.uniform(0.3, 3.0))
+            proc.wait(timeout=rng.uniform(0, 1.2 * duration))
         except subprocess.TimeoutExpired:
             proc.send_signal(signal.SIGKILL)
-            proc.wait(timeout=60)
+        proc.wait(timeout=60)
+        proc.stdout.close()
         manifest = read_manifest(folder)
+        seen.add(manifest["state"])
         if manifest["state"] == "complete":
             assert _visible(folder) == {n: e["sha256"] for n, e in manifest["files"].items()}
         recover(folder)
@@ -198,7 +207,8 @@ def test_a_writer_killed_while_renaming_is_finished_by_recover(tmp_path):
         assert _visible(folder) == {n: e["sha256"] for n, e in manifest["files"].items()}
         contents = {(folder / n).read_text() for n in manifest["files"]}
         assert len(contents) == 1, "the folder mixes files of two runs"
-    assert old
+        assert not list(folder.glob(".policy-staging-*"))
+    assert "complete" in seen
 
 
 def test_solve_without_constraints_after_one_with_removes_the_constrained_files(tmp_path, capsys):
@@ -210,3 +220,32 @@ def test_solve_without_constraints_after_one_with_removes_the_constrained_files(
     assert run_cli(["solve", scenario, "--out", tmp_path / "w"], capsys)[0] == 0
     assert not list((tmp_path / "w").glob("constrained_*"))
     assert (tmp_path / "w" / "cases.csv").is_file() and scenario.is_file()  # the demo's data stay
+
+
+def test_a_switch_stopped_halfway_is_finished_by_the_next_writer(tmp_path, monkeypatch):
+    """A stop in the middle of the renames (as kill -9 there would leave it): the manifest says
+    'replacing', and the next command writing into the folder first completes the new set."""
+    import policy.outputs as outputs
+
+    write_outputs(tmp_path, {f"f{i}.csv": "old\n" for i in range(6)} | {"gone.csv": "old\n"})
+    real_replace, calls = os.replace, []
+
+    def stop_after_three(src, dst):
+        if str(dst).endswith(".csv"):
+            calls.append(dst)
+            if len(calls) > 3:
+                raise KeyboardInterrupt  # stands for the kill: nothing after it runs
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(outputs.os, "replace", stop_after_three)
+    with pytest.raises(KeyboardInterrupt):
+        write_outputs(tmp_path, {f"f{i}.csv": "new\n" for i in range(6)})
+    monkeypatch.setattr(outputs.os, "replace", real_replace)
+    assert read_manifest(tmp_path)["state"] == "replacing"
+    assert {(tmp_path / f"f{i}.csv").read_text() for i in range(6)} == {"old\n", "new\n"}  # mixed until finished
+    recover(tmp_path)  # what the next command writing here does first
+    manifest = read_manifest(tmp_path)
+    assert manifest["state"] == "complete"
+    assert {(tmp_path / f"f{i}.csv").read_text() for i in range(6)} == {"new\n"}
+    assert not (tmp_path / "gone.csv").exists()
+    assert not list(tmp_path.glob(".policy-staging-*"))
