@@ -444,7 +444,7 @@ def test_cli_sweep_writes_tables_and_figures(tmp_path, capsys):
                               "--range", "0:120", "--gamma", "1.25", "--figure", "svg", "--replicates", "20",
                               "--workers", "1", "--seed", "5"], capsys)
     assert code == 0, err
-    files = sorted(p.name for p in (tmp_path / "one").iterdir())
+    files = sorted(p.name for p in (tmp_path / "one").iterdir() if not p.name.startswith("."))  # not the manifest
     assert files == sorted(["sweep.json", "sweep_breakpoints.csv", "sweep_lenient.csv", "sweep_lenient_shares.csv",
                             "sweep_regret.csv", "sweep_segments.csv", "sweep_shares.csv", "sweep_shares.svg",
                             "sweep_regret.svg", "sweep_bands.csv", "sweep_threshold_intervals.csv",

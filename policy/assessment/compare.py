@@ -298,6 +298,17 @@ class Comparison:
         })
         return self._stamp(frame)
 
+    def empty_arm_text(self) -> str:
+        """Why the aid's effect cannot be estimated at all ('' when it can): an arm with no cases."""
+        if not self.has_arm:
+            return ""
+        per_arm = self.cells.cases.sum(axis=(0, 2))
+        missing = [("shown" if arm == 1 else "not shown") for arm, n in zip(self.cells.arms, per_arm) if n == 0]
+        if not missing:
+            return ""
+        return (f"no case where the aid was {missing[0]}, so the aid's effect and what courts did in that arm cannot "
+                "be estimated")
+
     def readings(self) -> list[str]:
         """Plain-words reading of the aid's effect where it matters, per outcome kind (overall):
         safe cases at the first harsher level, and each preventable risk level at the level that
@@ -309,10 +320,16 @@ class Comparison:
         L = rl.n_levels
         pct = lambda v: f"{100 * v:+.1f}"
         out = []
+        empty = self.empty_arm_text()
+        if empty:
+            return [f"not estimated: {empty}."]
         for j, label in enumerate(rl.outcome_labels):
             for r in range(0, L):
                 t = max(r, 1)
                 e, a, b = eff[0, j, r, t - 1], lo[0, j, r, t - 1], hi[0, j, r, t - 1]
+                if not np.isfinite(e):
+                    out.append(f"{label}, {rl.risk_level_names[r]}: not estimated (no cases of this risk level in one of the arms).")
+                    continue
                 direction, meaning = _reading(e, a, b, r, t, L)
                 interval = f" ({self.result.interval_label}: {pct(a)} to {pct(b)})" if np.isfinite(a) else ""
                 out.append(
@@ -496,6 +513,10 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                  "optimistic (chosen on the same data)")
     if under_doubt is not None:
         notes.append("the robust and safe rules are solved once on the estimates and held fixed across replicates")
+    if cells.has_arm and (cells.cases.sum(axis=(0, 2)) == 0).any():
+        arm = "shown" if int(np.flatnonzero(cells.cases.sum(axis=(0, 2)) == 0)[0]) == 1 else "not shown"
+        notes.append(f"no case where the aid was {arm}: figures of that arm (what courts did there, the aid's effect) "
+                     "are left empty, not estimated")
     failed = result.replicates.get("solver_failed")
     for k, rule in enumerate(solved):
         if failed is not None and failed.shape[0] and failed[:, k].any():

@@ -75,6 +75,7 @@ import scipy.sparse as sp
 
 from policy.inputs.cells import CellTable
 from policy.errors import InputError
+from policy.inputs.limits import MAX_REPLICATES
 from policy.inputs.scenario import Key, Scenario, read_section, register_section
 
 __all__ = [
@@ -140,6 +141,9 @@ def validate_settings(replicates: int, interval: float, resampling: str, where: 
     """Check bootstrap settings, naming ``where`` they came from in messages."""
     if replicates < 0:
         raise InputError(f"{where} replicates must be >= 0; got {replicates!r}.")
+    if replicates > MAX_REPLICATES:
+        raise InputError(f"{where} replicates must be at most {MAX_REPLICATES:,} (each is a full re-estimate; the "
+                         f"intervals' Monte Carlo error is negligible long before); got {replicates!r}.")
     if not 0 < interval < 1:
         raise InputError(f"{where} interval must lie strictly between 0 and 1 (e.g. 0.95); got {interval!r}.")
     if resampling not in METHODS:

@@ -101,11 +101,21 @@ def _level_position(value: Any, level_values: Sequence[str], level_labels: Seque
     return -1
 
 
+def _whole_text(value: Any) -> str:
+    """Text of a value, with a float that is a whole number written as an integer (3.0 -> '3')."""
+    v = value.item() if isinstance(value, np.generic) else value
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    return str(v)
+
+
 def _value_codes(values: Sequence[Any], column: str, layout: CellLayout, what: str) -> np.ndarray:
     """Category positions of written values (matched as text); unknown values raise."""
     cats = layout.categories(column)
     text = {str(c): i for i, c in enumerate(cats)}
-    codes = np.array([text.get(str(v), -1) for v in values], dtype=np.int64)
+    # a whole number stored as a float (Parquet 3.0) is the value 3 written in the scenario
+    text.update({_whole_text(c): i for i, c in enumerate(cats) if _whole_text(c) not in text})
+    codes = np.array([text.get(str(v), text.get(_whole_text(v), -1)) for v in values], dtype=np.int64)
     if (codes < 0).any():
         first = int(np.flatnonzero(codes < 0)[0])
         bad = sorted({str(v) for v, c in zip(values, codes) if c < 0})

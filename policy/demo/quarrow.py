@@ -164,6 +164,11 @@ def simulate_cases(n: int = 20_000, seed: int | np.random.Generator | None = 202
         ``risk_level`` : ndarray of shape (n, 3) with each case's true risk level per outcome,
         and the arrays the tests use.
     """
+    from policy.inputs.limits import simulated_cases, whole_number
+
+    n = simulated_cases(n, "the number of simulated cases")
+    if isinstance(seed, int) and not isinstance(seed, bool):
+        whole_number(seed, "the simulation's seed", low=0)
     rng = np.random.default_rng(seed)
     m = model
     age = rng.choice(3, size=n, p=m.age_p)

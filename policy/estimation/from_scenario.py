@@ -20,10 +20,16 @@ from policy.inputs.loading import load_cell_table
 from policy.inputs.counting import code_cell_column
 from policy.inputs.scenario import Scenario, as_scenario
 from policy.inputs.tables import read_table, require_columns
+from policy.inputs.limits import LARGEST
 
 __all__ = ["estimate", "estimate_risk_levels", "load_risk_level_table", "risk_levels_from_frame",
            "risk_level_table_columns"]
 
+
+
+def _shown(value) -> str:
+    """A table value for messages: numpy scalars as plain Python values (-0.1, not np.float64(-0.1))."""
+    return repr(value.item() if isinstance(value, np.generic) else value)
 
 def risk_level_table_columns(scenario: Scenario) -> list[str]:
     L = len(scenario.levels)
@@ -59,7 +65,7 @@ def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | 
         row, col = map(int, np.argwhere(bad)[0])
         n = int(bad.any(axis=1).sum())
         raise InputError(
-            f"{file}: column {q_cols[col]!r} must hold probabilities in [0, 1]; got {frame[q_cols[col]].iloc[row]!r} "
+            f"{file}: column {q_cols[col]!r} must hold probabilities in [0, 1]; got {_shown(frame[q_cols[col]].iloc[row])} "
             f"({n} rows with such values, first: row {row + 1})."
         )
     off = np.abs(q.sum(axis=1) - 1.0) > 1e-6
@@ -73,7 +79,7 @@ def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | 
     badw = ~np.isfinite(weights) | (weights <= 0)
     if badw.any():
         rows = np.flatnonzero(badw)
-        raise InputError(f"{file}: column 'cases' must hold weights > 0; got {frame['cases'].iloc[rows[0]]!r} in {len(rows)} rows (first: row {rows[0] + 1}).")
+        raise InputError(f"{file}: column 'cases' must hold weights > 0; got {_shown(frame['cases'].iloc[rows[0]])} in {len(rows)} rows (first: row {rows[0] + 1}).")
 
     codes, cats = [], {}
     for col in scenario.cell_columns:
@@ -123,9 +129,11 @@ def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | 
     cell_costs = {}
     for col in scenario.cost_columns:
         values = pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=np.float64)
-        if (~np.isfinite(values) | (values < 0)).any():
-            row = int(np.flatnonzero(~np.isfinite(values) | (values < 0))[0])
-            raise InputError(f"{file}: cost column {col!r} must hold numbers >= 0; got {frame[col].iloc[row]!r} in row {row + 1}.")
+        bad = ~np.isfinite(values) | (values < 0) | (values > LARGEST)
+        if bad.any():
+            row = int(np.flatnonzero(bad)[0])
+            raise InputError(f"{file}: cost column {col!r} must hold finite numbers >= 0 (at most {LARGEST:g}); "
+                             f"got {_shown(frame[col].iloc[row])} in row {row + 1}.")
         v = np.zeros(n_cells)
         v[cell_pos] = values
         cell_costs[col] = v

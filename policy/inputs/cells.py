@@ -266,7 +266,8 @@ class CellTable:
                     raise InputError(f"{file}: {text} in {len(rows)} rows (first: row {rows[0] + 1}); counts must nest.")
         cell_codes, categories = [], {}
         for col in scenario.cell_columns:
-            codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col))
+            codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col),
+                                           col in scenario.rule_covariates or col == scenario.aid.score)
             cell_codes.append(codes)
             categories[col] = cats
         level_codes = _level_codes(frame[scenario.decision], scenario, scenario.decision, file)
@@ -296,8 +297,12 @@ class CellTable:
             cost_sums[col] = np.bincount(cell_pos, weights=values * numbers["cases"], minlength=n_cells)
         w = cases.sum(axis=(1, 2))
         if (w == 0).any():
-            i = int(np.flatnonzero(w == 0)[0])
-            raise InputError(f"{file}: a cell has rows but no cases (cell {i + 1}); remove rows with cases = 0 only.")
+            empty = np.flatnonzero(w == 0)
+            i = int(empty[0])
+            row = int(np.flatnonzero(cell_pos == i)[0])
+            where = ", ".join(f"{c}={frame[c].iloc[row]}" for c in scenario.cell_columns)
+            raise InputError(f"{file}: {len(empty)} cells have rows but no cases (first: {where}, row {row + 1}); "
+                             "remove rows with cases = 0 only.")
         parts = np.unravel_index(cell_ids, sizes)
         cells = pd.DataFrame({
             c: pd.Categorical.from_codes(p.astype(np.int64), categories=categories[c], ordered=True)

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from policy.errors import InputError
+from policy.inputs.limits import LARGEST
 from policy.inputs.scenario import Scenario
 from policy.inputs.tables import binary_states, describe_bad, require_columns, row_number
 
@@ -32,8 +33,31 @@ DENSE_KEYS = 1 << 22
 
 
 
-def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: str, file: str) -> list:
+def _is_number(value: Any) -> bool:
+    if isinstance(value, bool):
+        return False
+    if isinstance(value, (int, float, np.number)):
+        return True
+    try:
+        float(value)
+        return True
+    except (TypeError, ValueError):
+        return False
+
+
+def _ordered_categories(uniques: Sequence, declared: Sequence | None, column: str, file: str,
+                        one_kind: bool = False) -> list:
     if declared is None:
+        numbers = [v for v in uniques if _is_number(v)] if one_kind else []
+        # a rule column: text among its numbers is a typo, not a category
+        if numbers and len(numbers) < len(uniques):
+            texts = sorted({str(v) for v in uniques if not _is_number(v)})
+            shown = ", ".join(repr(t) for t in texts[:5]) + (", ..." if len(texts) > 5 else "")
+            raise InputError(
+                f"{file}: rule column {column!r} mixes numbers and text: {shown} among numbers such as "
+                f"{', '.join(str(v) for v in sorted(numbers, key=float)[:5])}; a cell column holds one kind of value "
+                f"(or list every value in [cells] order.{column})."
+            )
         try:
             return sorted(uniques)
         except TypeError:
@@ -107,23 +131,24 @@ def code_column(series: pd.Series, column: str, file: str, what: str = "column")
 
 
 def categories_of(coded: CodedColumn, present: np.ndarray, declared: Sequence | None,
-                  column: str, file: str) -> tuple[list, np.ndarray]:
+                  column: str, file: str, one_kind: bool = False) -> tuple[list, np.ndarray]:
     """Ordered categories of the codes present, and a lookup from code to category position
     (-1 for codes not present)."""
     values = [coded.uniques[i] for i in present.tolist()]
-    cats = _ordered_categories(values, declared, column, file)
+    cats = _ordered_categories(values, declared, column, file, one_kind)
     position = {v: i for i, v in enumerate(cats)}
     lookup = np.full(coded.size, -1, dtype=np.int64)
     lookup[present] = [position[v] for v in values]
     return cats, lookup
 
 
-def code_cell_column(series: pd.Series, column: str, file: str, declared: Sequence | None) -> tuple[np.ndarray, list]:
+def code_cell_column(series: pd.Series, column: str, file: str, declared: Sequence | None,
+                     one_kind: bool = False) -> tuple[np.ndarray, list]:
     """Codes 0..n-1 of a (small) table's cell column and its ordered categories (present values only)."""
     coded = code_column(series, column, file, "cell column")
     raw = coded.codes().astype(np.int64)
     present = np.flatnonzero(np.bincount(raw, minlength=coded.size))
-    cats, lookup = categories_of(coded, present, declared, column, file)
+    cats, lookup = categories_of(coded, present, declared, column, file, one_kind)
     return lookup[raw], cats
 
 
@@ -160,6 +185,11 @@ def _check_unique_ids(ids: pd.Series, column: str, file: str, rows: np.ndarray |
     """Raise if a case id appears twice. ``rows``: the 0-based file row of each value (default:
     their positions), for a check of only the rows that might hold duplicates."""
     ids = ids.reset_index(drop=True)
+    # a blank id means the case has none: it is counted, and not compared with other ids
+    given = (ids.notna() & (ids.astype(str).str.strip() != "")).to_numpy()
+    if not given.all():
+        at = np.arange(len(ids)) if rows is None else np.asarray(rows)
+        ids, rows = ids[given].reset_index(drop=True), at[given]
     dup = ids.duplicated(keep=False).to_numpy()
     if dup.any():
         at = np.arange(len(ids)) if rows is None else np.asarray(rows)
@@ -228,7 +258,8 @@ def _present_categories(uniques: Sequence[list], codes: np.ndarray, scenario: Sc
     for k, name in enumerate(scenario.cell_columns):
         raw = codes[:, k]
         coded = CodedColumn(np.empty(0, dtype=np.int64), 0, list(uniques[k]))
-        cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file)
+        cats, lookup = categories_of(coded, np.unique(raw), scenario.order.get(name), name, file,
+                                     name in scenario.rule_covariates or name == scenario.aid.score)
         pos = lookup[raw]
         categories[name] = (cats, pos)
         positions.append(pos)
@@ -239,10 +270,11 @@ def _present_categories(uniques: Sequence[list], codes: np.ndarray, scenario: Sc
 
 def _cost_values(series: pd.Series, column: str, file: str) -> np.ndarray:
     values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=np.float64)
-    bad = ~np.isfinite(values) | (values < 0)
+    bad = ~np.isfinite(values) | (values < 0) | (values > LARGEST)
     if bad.any():
         text, n, first = describe_bad(series.to_numpy(dtype=object), bad)
-        raise InputError(f"{file}: cost column {column!r} must hold numbers >= 0 in every row; got {text} in {n} rows (first: row {first}).")
+        raise InputError(f"{file}: cost column {column!r} must hold finite numbers >= 0 (at most {LARGEST:g}) in every row; "
+                         f"got {text} in {n} rows (first: row {first}).")
     return values
 
 

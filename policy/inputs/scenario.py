@@ -20,6 +20,7 @@ from dataclasses import replace
 from typing import Any, Callable, Mapping, Sequence
 
 from policy.errors import InputError
+from policy.inputs.limits import number, simulated_cases, whole_number
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -112,6 +113,9 @@ def read_section(raw: Any, keys: Sequence[Key], where: str, file: str) -> dict[s
             raise InputError(
                 f"{file}: key {key.name!r} in {where} must be {key.expected()}; got {value!r}."
             )
+        if isinstance(value, float) or (float in key.types and isinstance(value, int) and not isinstance(value, bool)):
+            # every number must be finite and of a sane size (TOML spells nan and inf)
+            number(value, f"{file}: key {key.name!r} in {where}")
         out[key.name] = float(value) if (float in key.types and int not in key.types and isinstance(value, int)) else value
     return out
 
@@ -332,6 +336,7 @@ class Scenario:
                 raise InputError(f"{file}: missing section [{required}]; see docs/scenario.md.")
 
         head = read_section(raw["scenario"], SCHEMA["[scenario]"], "[scenario]", file)
+        whole_number(head["seed"], f"{file}: key 'seed' in [scenario]", low=0, expected="a whole number >= 0")
         data = _data_source(read_section(raw["data"], SCHEMA["[data]"], "[data]", file), path, file)
         cols = read_section(raw.get("columns", {}), SCHEMA["[columns]"], "[columns]", file)
         costs = read_section(raw["costs"], SCHEMA["[costs]"], "[costs]", file)
@@ -364,6 +369,9 @@ class Scenario:
                 raise InputError(f"{file}: [cells] order names {name!r}, which is not a cell column; expected one of: {', '.join(cell_columns)}.")
             if not isinstance(values, list) or not values:
                 raise InputError(f"{file}: [cells] order.{name} must be a non-empty list of values; got {values!r}.")
+            twice = sorted({str(v) for v in values if [str(w) for w in values].count(str(v)) > 1})
+            if twice:
+                raise InputError(f"{file}: [cells] order.{name} lists {twice[0]!r} twice; list each value once.")
             order[name] = tuple(values)
         if aid["score"] is not None and aid["score"] not in cell_columns:
             raise InputError(f"{file}: [aid] score {aid['score']!r} must be a cell covariate; expected one of: {', '.join(cell_columns)}.")
@@ -379,8 +387,8 @@ class Scenario:
             raise InputError(f"{file}: key 'sparse_below' in [estimator] must be >= 0; got {est['sparse_below']!r}.")
         if data.kind == "risk_level_table" and cols["arm"] is not None:
             raise InputError(f"{file}: [columns] arm has no meaning with [data] risk_level_table (no decisions are observed); remove it.")
-        if data.kind == "simulate" and data.simulate <= 0:
-            raise InputError(f"{file}: key 'simulate' in [data] must be a positive number of cases; got {data.simulate!r}.")
+        if data.kind == "simulate":
+            simulated_cases(data.simulate, f"{file}: key 'simulate' in [data]")
 
         scenario = cls(
             title=head["title"],
@@ -493,6 +501,8 @@ def load_scenario(path: str | Path) -> Scenario:
         the file, the key and what was expected.
     """
     path = Path(path)
+    if path.is_dir():
+        raise InputError(f"Scenario file {str(path)!r} is a folder, not a file; give the scenario's .toml file.")
     if not path.is_file():
         raise InputError(f"Scenario file {str(path)!r} does not exist.")
     try:

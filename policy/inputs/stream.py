@@ -44,7 +44,8 @@ from policy.inputs.cells import CellTable
 from policy.inputs.counting import CHUNK_ROWS, BlockCounts, _case_columns, _check_unique_ids, count_block
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
-from policy.inputs.tables import first_bad_utf8, require_columns, rows_from
+from policy.inputs.csv_shape import check_csv_shape
+from policy.inputs.tables import _csv_header, check_header, first_bad_utf8, require_columns, rows_from
 
 __all__ = ["BLOCK_ROWS", "stream_cell_table", "id_keys"]
 
@@ -67,6 +68,9 @@ class _Source:
         self.path, self.columns, self.what, self.block_rows = path, columns, what, int(block_rows)
         self.text_columns = text_columns
         self.kind = path.suffix.lower().lstrip(".")
+        self.shape = None
+        if path.is_dir():
+            raise InputError(f"The {what} {str(path)!r} is a folder, not a file; give the table's file.")
         if not path.is_file():
             raise InputError(f"The {what} {str(path)!r} does not exist.")
         if self.kind == "parquet":
@@ -77,6 +81,7 @@ class _Source:
                 schema = pq.read_schema(path)
             except Exception as exc:  # pyarrow raises several types for a damaged file
                 raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
+            check_header(schema.names, path.name, what)
             require_columns(schema.names, columns, path.name, what)
             # text columns arrive as categoricals, except ``plain`` ones (case ids: all distinct)
             self.dictionary = [c for c in columns if c not in plain and (pa.types.is_string(schema.field(c).type)
@@ -91,7 +96,9 @@ class _Source:
                 self._not_utf8()
             except pd.errors.EmptyDataError:
                 raise InputError(f"{path.name}: the {what} is empty (no header line).") from None
+            check_header(_csv_header(path), path.name, what)
             require_columns(list(header.columns), columns, path.name, what)
+            self.shape = check_csv_shape(path, what)
             self.total = path.stat().st_size
             self.unit = "bytes"
         else:
@@ -479,7 +486,7 @@ def stream_cell_table(path: str | Path, scenario: Scenario, what: str | None = N
             keys = id_keys(frame[id_column]) if id_column else None
             n = len(frame)
             try:
-                with rows_from(start):
+                with rows_from(start, source.shape):
                     block = count_block(frame, scenario, file, whole=False)
             except InputError as exc:
                 if start == 0 and n < source.block_rows:

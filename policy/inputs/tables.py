@@ -16,25 +16,58 @@ import pandas as pd
 
 from policy.errors import InputError
 
-__all__ = ["read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns", "rows_from", "row_number"]
+__all__ = ["check_header", "read_table", "first_bad_utf8", "describe_bad", "binary_states", "require_columns", "rows_from", "row_number"]
 
 #: rows before the block being checked (a table read in blocks numbers its rows from the file's start)
 _ROWS_BEFORE: ContextVar[int] = ContextVar("rows_before", default=0)
+#: the shape of the CSV file being checked (its blank lines), so rows are numbered as its lines
+_SHAPE: ContextVar = ContextVar("csv_shape", default=None)
 
 
 @contextmanager
-def rows_from(rows_before: int) -> Iterator[None]:
-    """Within this context, messages number rows as if ``rows_before`` rows came first."""
+def rows_from(rows_before: int, shape=None) -> Iterator[None]:
+    """Within this context, messages number rows as if ``rows_before`` rows came first (and,
+    given the file's :class:`~policy.inputs.csv_shape.CsvShape`, count its blank lines too)."""
     token = _ROWS_BEFORE.set(int(rows_before))
+    token_shape = _SHAPE.set(shape)
     try:
         yield
     finally:
         _ROWS_BEFORE.reset(token)
+        _SHAPE.reset(token_shape)
 
 
 def row_number(position: int) -> int:
-    """1-based row number in the file of a 0-based position in the block being checked."""
-    return int(position) + 1 + _ROWS_BEFORE.get()
+    """1-based row number in the file of a 0-based position in the block being checked: row
+    N is the file's N-th line after the header, blank lines included."""
+    row = int(position) + 1 + _ROWS_BEFORE.get()
+    shape = _SHAPE.get()
+    return row if shape is None else shape.line_of_row(row) - shape.header_line
+
+
+def check_header(names: Sequence[str], file: str, what: str) -> None:
+    """Refuse a header that names a column twice (pandas would rename the second silently)."""
+    names = [str(n) for n in names]
+    seen: dict[str, int] = {}
+    for i, name in enumerate(names, 1):
+        if name in seen:
+            raise InputError(f"{file}: the {what} has two columns named {name!r} (columns {seen[name]} and {i}); "
+                             "rename one of them.")
+        seen[name] = i
+
+
+def _csv_header(path: Path) -> list[str]:
+    """Column names as written on the first non-blank line of a CSV file (UTF-8)."""
+    import csv
+
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            for row in csv.reader(fh):
+                if row:
+                    return row
+    except UnicodeDecodeError:
+        _raise_not_utf8(path)
+    return []
 
 
 def first_bad_utf8(path: Path, chunk: int = 1 << 20) -> tuple[int, int]:
@@ -77,6 +110,8 @@ def read_table(path: Path, columns: Sequence[str] | None, what: str) -> pd.DataF
         (e.g. ``"case table (demo.toml [data] case_table)"``).
     """
     path = Path(path)
+    if path.is_dir():
+        raise InputError(f"The {what} {str(path)!r} is a folder, not a file; give the table's file.")
     if not path.is_file():
         raise InputError(f"The {what} {str(path)!r} does not exist.")
     suffix = path.suffix.lower()
@@ -87,6 +122,7 @@ def read_table(path: Path, columns: Sequence[str] | None, what: str) -> pd.DataF
             schema = pq.read_schema(path)
         except Exception as exc:  # pyarrow raises several types for a damaged file
             raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
+        check_header(schema.names, path.name, what)
         require_columns(schema.names, columns, path.name, what)
         frame = pq.read_table(path, columns=list(dict.fromkeys(columns)) if columns else None).to_pandas()
     elif suffix == ".csv":
@@ -96,7 +132,11 @@ def read_table(path: Path, columns: Sequence[str] | None, what: str) -> pd.DataF
             _raise_not_utf8(path)
         except pd.errors.EmptyDataError:
             raise InputError(f"{path.name}: the {what} is empty (no header line).") from None
+        check_header(_csv_header(path), path.name, what)
         require_columns(list(header.columns), columns, path.name, what)
+        from policy.inputs.csv_shape import check_csv_shape
+
+        check_csv_shape(path, what)
         try:
             frame = pd.read_csv(
                 path,
@@ -176,7 +216,10 @@ def binary_states(series: pd.Series, column: str, file: str, allow_missing: bool
             raise InputError(f"{file}: column {column!r} must be {expected}; got {text} in {n} rows (first: row {first}).")
     else:
         if typed:
-            raise InputError(f"{file}: column {column!r} has type {dtype}; expected integer or boolean 0/1 (null for missing).")
+            kind = "text" if (isinstance(dtype, pd.CategoricalDtype) or pd.api.types.is_string_dtype(dtype)
+                              or dtype == object) else f"values of type {dtype}"
+            raise InputError(f"{file}: column {column!r} holds {kind}; expected integer or boolean 0/1 (null for missing) "
+                             "in this Parquet file: store the column as numbers.")
         text_values = series.astype("string").str.strip()
         missing = text_values.isna() | (text_values == "")
         zero = text_values == "0"

@@ -13,13 +13,15 @@ from typing import List, Optional
 import functools
 
 import typer
-from rich.console import Console
 from rich.panel import Panel
 from rich.table import Table
 from rich.text import Text
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
+from policy.inputs.limits import MAX_REPLICATES, number as check_number
+from policy.presentation.checks import (MAX_GRID_POINTS, VisibleConsole, check_constraint_numbers, check_options,
+                                        claim, most_workers)
 
 app = typer.Typer(
     add_completion=False,
@@ -32,14 +34,16 @@ app = typer.Typer(
     ),
 )
 # markup is off: labels from scenario files are printed as written, never as styles
-console = Console(highlight=False, markup=False, width=120, soft_wrap=True)
-err_console = Console(stderr=True, highlight=False, markup=False, soft_wrap=True)
+console = VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
+err_console = VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""
 
     @functools.wraps(fn)
     def run(*args, **kwargs):
+        from policy.outputs import release_output_folders
+
         try:
             return fn(*args, **kwargs)
         except PolicyError as exc:
@@ -48,11 +52,15 @@ def command(fn):
             if conflicts is not None:
                 err_console.print(conflicts.to_string(index=False))
             raise typer.Exit(exc.exit_code) from None
+        finally:
+            release_output_folders()
 
     return app.command()(run)
 
 
 OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
+OverwriteOption = typer.Option(False, "--overwrite", help="Replace files in the output folder that this tool did not write "
+                               "(or that were changed since); without it such files are left alone and the run is refused.")
 CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
 DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
 ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
@@ -85,6 +93,7 @@ def _constraint_options(sc, constraint, group_blind, principal_fairness, max_sha
     from policy.decision.constrained import lp_settings_from_table
     from policy.decision.constraints import parse_constraint_text, shorthand_tables
 
+    check_constraint_numbers(principal_fairness, max_share, max_rate)
     added = [parse_constraint_text(text) for text in constraint or []]
     added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
     settings = sc.sections.get("linear_program")
@@ -100,8 +109,8 @@ def _doubt(gamma, bounds, safe_against):
 
     if gamma is not None and bounds:
         raise InputError("give --robust-gamma or --robust-bounds, not both.")
-    if gamma is not None and not gamma >= 1:
-        raise InputError(f"--robust-gamma must be a number >= 1; got {gamma!r}.")
+    if gamma is not None and not 1 <= gamma < float("inf"):
+        raise InputError(f"--robust-gamma must be a finite number >= 1 (or use --robust-bounds); got {gamma!r}.")
     if safe_against is not None and gamma is None and not bounds:
         raise InputError("--safe-against needs a set to guard against: add --robust-gamma G or --robust-bounds.")
     doubt = DoubtSettings(gamma=gamma, bounds=bounds, safe_against=safe_against)
@@ -126,7 +135,7 @@ def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
             number = None
         if not sep or not key or number is None:
             raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
-        out[key.strip()] = number
+        out[key.strip()] = check_number(number, f"{what} {item}", low=0)
     return out
 
 
@@ -194,15 +203,18 @@ def _risk_table(rl) -> Table:
 
 @command
 def demo(out: Path = OutOption,
-         cases: Optional[int] = typer.Option(None, help="Number of simulated cases (default: the demo scenario's).")):
+         cases: Optional[int] = typer.Option(None, help="Number of simulated cases (default: the demo scenario's)."),
+         overwrite: bool = OverwriteOption):
     """Build the invented Quarrow County data, estimate risk levels, find the optimal rule, write all outputs."""
+    from policy.inputs.limits import simulated_cases
     from policy.outputs import write_outputs
-    from policy.running.pipeline import analyze, write_demo_inputs
+    from policy.running.pipeline import demo_files
 
-    if cases is not None and cases <= 0:
-        raise InputError(f"--cases must be a positive number of cases; got {cases}.")
-    analysis = analyze(write_demo_inputs(out, cases)[0])
-    paths = write_outputs(out, analysis.output_files())
+    if cases is not None:
+        simulated_cases(cases, "--cases")
+    claim(out)
+    analysis, files = demo_files(out, cases)
+    paths = write_outputs(out, files, overwrite=overwrite, keep=("cases.csv", "scenario.toml"), command="demo")
     _print_analysis(analysis)
     console.print(f"Demo data and scenario: {out / 'cases.csv'}, {out / 'scenario.toml'}")
     show_written(paths)
@@ -225,7 +237,8 @@ def check(scenario: Path = typer.Argument(..., help="Scenario file (TOML).")):
 
 
 @command
-def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption):
+def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."), out: Path = OutOption,
+             overwrite: bool = OverwriteOption):
     """Estimate risk levels per cell and write the cell table, risk-level tables and their bounds under weaker assumptions."""
     from policy.outputs import write_outputs
     from policy.running.pipeline import as_scenario, estimate as run_estimate
@@ -234,6 +247,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     from policy.estimation.bounds_table import SENSITIVITY_GAMMAS, bounds_table
 
     sc = as_scenario(scenario)
+    inputs = claim(out, sc)
     cells, rl = run_estimate(sc)
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
     check = arm_check(cells) if cells is not None and cells.has_arm else None
@@ -242,7 +256,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
         files = {"cells.csv": cells.counts_frame(sc), **files, "risk_bounds.csv": bounds_table(rl, cells, gammas)}
     if check is not None:
         files.update(check.output_files())
-    paths = write_outputs(out, files)
+    paths = write_outputs(out, files, inputs=inputs, overwrite=overwrite, command="estimate")
     console.print(_risk_table(rl))
     show_assumptions("risk_levels")
     show_cautions()
@@ -320,6 +334,7 @@ def solve(
     robust_gamma: Optional[float] = RobustGammaOption,
     robust_bounds: bool = RobustBoundsOption,
     safe_against: Optional[str] = SafeAgainstOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Find the expected-cost-minimizing release rule and write it with its evaluation.
 
@@ -334,7 +349,9 @@ def solve(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     doubt = _doubt(robust_gamma, robust_bounds, safe_against)
-    analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    inputs = claim(out, sc)
+    analysis = analyze(sc, outcome_costs, decision_costs, constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     files = analysis.output_files()
     found = None
@@ -346,7 +363,7 @@ def solve(
                                   c.specs if c is not None else (), settings, c.rule if c is not None else analysis.rule,
                                   where="--safe-against")
         files.update(found.output_files())
-    paths = write_outputs(out, files)
+    paths = write_outputs(out, files, inputs=inputs, overwrite=overwrite, command="solve")
     _print_analysis(analysis)
     if found is not None:
         _print_doubt(found)
@@ -361,14 +378,17 @@ def report(
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
     replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
+    overwrite: bool = OverwriteOption,
 ):
     """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
     from policy.outputs import write_outputs
     from policy.presentation.report import build_report
 
-    built = build_report(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
-                         replicates=replicates, progress=progress)
-    paths = write_outputs(out, built.output_files())
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    check_options(replicates=(replicates, 0, MAX_REPLICATES))
+    inputs = claim(out, scenario)
+    built = build_report(scenario, outcome_costs, decision_costs, replicates=replicates, progress=progress)
+    paths = write_outputs(out, built.output_files(), inputs=inputs, overwrite=overwrite, command="report")
     console.print(str(built))
     show_cautions()
     show_written(paths)
@@ -387,7 +407,11 @@ def _ranges(values: Optional[List[str]]) -> Optional[list]:
             pair = None
         if not sep or pair is None:
             raise InputError(f"--range {item!r} must look like LOW:HIGH, e.g. 0:40.")
-        out.append(pair)
+        lo, hi = (check_number(v, f"--range {item}", low=0, expected="two finite numbers >= 0 (a cost ratio is not negative)")
+                  for v in pair)
+        if not lo < hi:
+            raise InputError(f"--range {item!r} must have LOW < HIGH (low < high); got {lo:g} to {hi:g}.")
+        out.append((lo, hi))
     return out
 
 
@@ -402,6 +426,7 @@ def _vary(text: Optional[str]) -> tuple:
     if not sep or not name.strip() or not numbers:
         raise InputError(f"--vary {text!r} must look like NAME=V1,V2,..., e.g. '#3 capacity=0.1,0.15,0.2' or 3=0.1,0.2.")
     name = name.strip()
+    numbers = [check_number(v, f"--vary {text}", low=0) for v in numbers]
     return (int(name) if name.isdigit() else name), numbers
 
 
@@ -441,6 +466,7 @@ def sweep(
     workers: Optional[int] = WorkersOption,
     progress: bool = ProgressOption,
     run_on: Optional[str] = RunOnOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Sweep one cost ratio (exact breakpoints, shares, regret) or map two (exact lenient regions), robust to confounding."""
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
@@ -453,17 +479,25 @@ def sweep(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     varied, values = _vary(vary)
-    if table_points < 2:
-        raise InputError(f"--table-points must be at least 2; got {table_points}.")
+    check_options(points=(points, 2, MAX_GRID_POINTS), table_points=(table_points, 2, MAX_GRID_POINTS),
+             lp_points=(lp_points, 2, MAX_GRID_POINTS), share=(share, 0, 1), interval=(interval, 0, 1),
+             replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), workers=(workers, 1, most_workers()))
+    if share <= 0:
+        raise InputError(f"--share must be a share of cases above 0 and at most 1; got {share:g}.")
+    for g in gamma or []:
+        check_number(g, "--gamma", low=1, expected="a sensitivity parameter Gamma: a finite number >= 1 (1: no confounding)")
+    ranges = _ranges(range_)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    inputs = claim(out, sc)
     formats = [] if no_figures else list(figure or ["png", "svg"])
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
         raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
     with _runner(run_on, workers) as runner:
         result = sweep_scenario(
-            sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
+            sc, ratio, ranges=ranges, scale=scale, per=per, gammas=gamma or None,
             bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+            outcome_costs=outcome_costs, decision_costs=decision_costs,
             constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
             vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
             interval=interval, outcomes=outcomes, workers=workers, progress=progress, runner=runner)
@@ -482,7 +516,8 @@ def sweep(
                 bar.update(task, advance=1, description=f"sweep: drew {name}")
             return run
 
-        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()})
+        paths = write_outputs(out, {name: advancing(name, c) if name in drawn else c for name, c in files.items()},
+                              inputs=inputs, overwrite=overwrite, command="sweep")
     console.print(result.scenario.title, style="bold")
     console.print(str(result))
     console.print("Assumptions behind these figures:", style="bold")
@@ -494,6 +529,8 @@ def sweep(
 
 
 def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
+    if value != value:  # NaN: not estimated (e.g. an arm with no cases)
+        return "not estimated"
     if lo != lo or hi != hi:  # NaN: no interval
         return format(value, fmt)
     return f"{format(value, fmt)} ({format(lo, fmt)} to {format(hi, fmt)})"
@@ -567,6 +604,7 @@ def compare(
     stability: float = typer.Option(0.8, help="Mark rule cells of the chosen rules whose level is chosen again in fewer than this share of replicates."),
     folds: int = typer.Option(5, help="Cross-fit the chosen rules: choose on all folds but one, score on the held-out one (0: no cross-fitting)."),
     fold_repeats: int = typer.Option(1, help="Independent splits into folds, averaged (more: less noise from the split)."),
+    overwrite: bool = OverwriteOption,
 ):
     """Compare the optimum, the aid's recommendation, candidate rules and what courts did, with intervals.
 
@@ -575,12 +613,15 @@ def compare(
     from policy.assessment.stability import unstable_lines
     from policy.outputs import write_outputs
 
+    check_options(replicates=(replicates, 0, MAX_REPLICATES), seed=(seed, 0, None), interval=(interval, 0, 1),
+             workers=(workers, 1, most_workers()))
+    inputs = claim(out, scenario)
     with _runner(run_on, workers) as runner:
         comparison = run_compare(scenario, replicates=replicates, seed=seed, resampling=resampling, interval=interval,
                                  outcomes=outcomes, workers=workers, progress=progress, runner=runner,
                                  doubt=_doubt(robust_gamma, robust_bounds, safe_against), stability=stability,
                                  folds=folds, fold_repeats=fold_repeats)
-    paths = write_outputs(out, comparison.output_files())
+    paths = write_outputs(out, comparison.output_files(), inputs=inputs, overwrite=overwrite, command="compare")
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
     console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
@@ -642,6 +683,7 @@ def batch(
     decision_cost: Optional[List[str]] = DecisionCostOption,
     run_on: Optional[str] = typer.Option("here", "--run-on", help=RunOnOption.help),
     progress: bool = ProgressOption,
+    overwrite: bool = OverwriteOption,
 ):
     """Solve every scenario of a folder as independent tasks; write each one's files in its own folder and one summary table.
 
@@ -654,15 +696,19 @@ def batch(
     from policy.running.distributed import describe_where, run_on as runner_for
     from policy.outputs import write_outputs
 
-    n = len(scenario_files(folder))
+    files_in = scenario_files(folder)
+    n = len(files_in)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    claim(out)
+    inputs = [p.resolve() for p in files_in] + [p.resolve() for p in Path(folder).iterdir() if p.is_file()]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
                    console=err_console, transient=True, disable=not progress)
     with runner_for(run_on) as runner, bar:
         task = bar.add_task("batch: scenarios", total=n)
-        result = run_batch(folder, runner, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+        result = run_batch(folder, runner, outcome_costs, decision_costs,
                            on_done=lambda name: bar.update(task, advance=1, description=f"batch: {name} finished"),
                            where=describe_where(run_on))
-    paths = write_outputs(out, result.output_files())
+    paths = write_outputs(out, result.output_files(), inputs=inputs, overwrite=overwrite, command="batch")
     summary = result.summary()
     table = Table(title=f"{len(result.runs)} scenarios ({result.where})")
     for col in ("scenario", "status", "cases", "cost per 1,000 cases", "constrained price per 1,000", "outputs or reason"):

@@ -207,7 +207,21 @@ def _local_workers(where: str) -> int:
         n = 0
     if n < 1:
         raise InputError(f"--run-on {where!r}: the number of local workers must be a positive integer, e.g. local:2.")
+    most = MAX_LOCAL_WORKERS_PER_CORE * available_cores()
+    if n > most:
+        raise InputError(f"--run-on {where!r}: {n:,} local worker processes is more than this machine can run "
+                         f"({available_cores()} cores; at most {most}). Use local (one per core) or a smaller N.")
+    from policy.inputs.limits import require_memory
+
+    require_memory(n * WORKER_BYTES, f"--run-on {where!r} ({n:,} worker processes)", "Use fewer workers.")
     return n
+
+
+#: most local worker processes per core (more only add waiting and memory)
+MAX_LOCAL_WORKERS_PER_CORE = 4
+#: memory a worker process takes before it gets any task (Python, numpy, pandas, Dask; measured
+#: about 150 MB, a lower bound)
+WORKER_BYTES = 150 << 20
 
 
 @contextmanager
@@ -246,6 +260,13 @@ def run_on(where: str | None = None) -> Iterator[TaskRunner]:
     except (OSError, TimeoutError) as exc:
         raise RunError(f"could not reach a Dask scheduler at {where!r} ({type(exc).__name__}: {exc}); start one with "
                        "`dask scheduler` and workers with `dask worker ADDRESS --nthreads 1`, or use --run-on local.") from None
+    except (ValueError, TypeError) as exc:
+        raise InputError(f"--run-on {where!r}: no Dask scheduler answered there ({exc}); expected the address of a running "
+                         "scheduler such as tcp://10.0.0.5:8786 (tls:// addresses also need Dask's TLS settings: "
+                         "distributed.comm.tls in Dask's configuration).") from None
+    except MemoryError:
+        raise RunError(f"--run-on {where!r}: what answers there is not a Dask scheduler (it sent a reply no scheduler "
+                       "sends); check the address and port.") from None
     try:
         yield DaskRunner(client, label=f"the Dask cluster at {where}")
     finally:

@@ -192,3 +192,21 @@ def write_demo_inputs(folder: str | Path, cases: int | None = None) -> tuple[Pat
     folder = Path(folder)
     write_outputs(folder, {"cases.csv": frame, "scenario.toml": text})
     return folder / "scenario.toml", frame
+
+
+def demo_files(folder: str | Path, cases: int | None = None) -> tuple["Analysis", dict[str, Any]]:
+    """The demo's analysis and every file ``policy demo`` writes into ``folder`` (case table,
+    scenario and outputs), to be written at once with :func:`policy.outputs.write_outputs`.
+
+    The case table and scenario are staged in a temporary folder while the analysis runs; the
+    analysis records the scenario as ``folder/scenario.toml``, where it will be.
+    """
+    import dataclasses
+    import tempfile
+
+    with tempfile.TemporaryDirectory(prefix="policy-demo-") as tmp:
+        scenario_path, frame = write_demo_inputs(tmp, cases)
+        text = scenario_path.read_text(encoding="utf-8")
+        scenario = dataclasses.replace(load_scenario(scenario_path), path=(Path(folder) / "scenario.toml").resolve())
+        analysis = analyze(scenario)
+    return analysis, {"cases.csv": frame, "scenario.toml": text, **analysis.output_files()}
