@@ -257,10 +257,11 @@ def main() -> None:
         for what, (change, revert) in changes.items():
             p = ConstrainedProblem(rl, costs, SPECS)
             p.solve_lp()
-            # the raw model starts from the same kind of optimum as the tool (its first-solve
-            # method): a degenerate LP has many optimal bases, and the pivots a re-solve needs
-            # depend on which one it starts from
-            h, *_ = raw_model(p, p.settings.first_method(p._data.n_cols))
+            # the raw model starts from the same kind of optimum as the tool (its first solve, from
+            # the unconstrained optimum's basis): a degenerate LP has many optimal bases, and the
+            # pivots a re-solve needs depend on which one it starts from
+            h, c0, lo0, _ = raw_model(p, "simplex")
+            h.setBasis(raw_warm_basis(p, c0, len(lo0)))
             h.run()
             h.setOptionValue("solver", "simplex")
             cols = np.arange(p._data.n_cols, dtype=np.int32)

@@ -14,8 +14,6 @@ import functools
 
 import typer
 from rich.console import Console
-from rich.panel import Panel
-from rich.table import Table
 
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.errors import InputError, PolicyError
@@ -33,6 +31,20 @@ app = typer.Typer(
 # markup is off: labels from scenario files are printed as written, never as styles
 console = Console(highlight=False, markup=False, width=120, soft_wrap=True)
 err_console = Console(stderr=True, highlight=False, markup=False, soft_wrap=True)
+
+def Table(*args, **kwargs):
+    """A rich table (rich.table is imported when a command prints one, not at start-up)."""
+    from rich.table import Table as RichTable
+
+    return RichTable(*args, **kwargs)
+
+
+def Panel(*args, **kwargs):
+    """A rich panel (imported when used, like :func:`Table`)."""
+    from rich.panel import Panel as RichPanel
+
+    return RichPanel(*args, **kwargs)
+
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""

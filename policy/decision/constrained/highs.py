@@ -201,6 +201,7 @@ class _HighsDriver:
         self.h = None
         self.best_basis = None
         self.shape = None
+        self.fresh = True
 
     def _load(self, data: _LPData, c, lo, hi) -> None:
         basis = self.h.getBasis() if self.h is not None and self.shape == data.A.shape else None
@@ -209,7 +210,8 @@ class _HighsDriver:
             h.setOptionValue("time_limit", float(self.settings.time_limit))
         n = data.n_cols
         load_lp(h, c, data.A, lo, hi, np.zeros(n), np.ones(n))
-        if basis is not None and basis.valid:
+        self.fresh = basis is None or not basis.valid
+        if not self.fresh:
             h.setBasis(basis)
         self.h, self.shape = h, data.A.shape
         self.cols = np.arange(n, dtype=np.int32)
@@ -224,7 +226,8 @@ class _HighsDriver:
             if dirty["bounds"] and len(self.rows):
                 G = data.n_groups
                 self.h.changeRowsBounds(len(self.rows), self.rows, lo[G:], hi[G:])
-        warm = self.h.getBasis().valid
+        warm = not self.fresh and self.h.getBasis().valid
+        self.fresh = False
         if not warm and self.settings.method == "auto":
             self.h.setBasis(unconstrained_basis(c, data.n_groups, data.n_levels, data.A.shape[0]))
             warm = True
