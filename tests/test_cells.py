@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import policy.inputs.cells as cells_mod
+import policy.inputs.counting as counting_mod
 from policy import CellTable, InputError, load_scenario
 from policy.inputs.loading import load_cell_table
 from policy.inputs.counting import aggregate_codes, code_column
@@ -87,7 +87,7 @@ def test_chunked_and_sparse_paths_agree(monkeypatch):
     costs = {"c": rng.random(n)}
     dense = aggregate_codes(columns, 3, costs)
     chunked = aggregate_codes(columns, 3, costs, chunk_rows=7_001)
-    monkeypatch.setattr(cells_mod, "DENSE_KEYS", 10)
+    monkeypatch.setattr(counting_mod, "DENSE_KEYS", 10)
     sparse = aggregate_codes(columns, 3, costs, chunk_rows=9_999)
     for other in (chunked, sparse):
         np.testing.assert_array_equal(other[0], dense[0])
