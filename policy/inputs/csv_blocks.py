@@ -86,9 +86,14 @@ def _typed_column(arr) -> pd.Series:
     typed = _typed_texts(texts, has_missing)
     lookup = np.full(len(dictionary) + 1, -1, dtype=np.int64)  # position -1: the missing value
     lookup[present] = np.arange(len(present))
-    if has_missing:
-        lookup[-1] = len(present)
-    return pd.Series(typed[lookup[indices]])
+    if isinstance(typed, np.ndarray) and typed.dtype.kind in "biuf":
+        if has_missing:
+            lookup[-1] = len(present)
+        return pd.Series(typed[lookup[indices]])
+    # text stays text: as a categorical of the same values (missing: no category), which the
+    # counting code reads by its codes instead of hashing a Python string per row
+    categories = pd.Index(list(typed[:len(present)]), dtype=object)
+    return pd.Series(pd.Categorical.from_codes(lookup[indices].astype(np.int32), categories=categories))
 
 
 def _cost_column(arr) -> pd.Series:
