@@ -100,6 +100,13 @@ __all__ = [
 
 #: replicates per task; fixed so that results do not depend on the number of workers
 CHUNK = 25
+#: memory one batch of replicates may take while it is resampled and scored (a chunk of a
+#: table with many cells is scored in several batches)
+BATCH_BYTES = 512 << 20
+#: bytes a replicate takes per cell x arm x decision level while it is resampled and scored by
+#: the comparison's statistic (measured: 145 MB per replicate at 85,000 cells, 509,000 cell x
+#: arm x level entries; docs/performance.md)
+BYTES_PER_SLOT = 300
 METHODS = ("poisson", "multinomial")
 OUTCOME_DRAWS = ("model", "cases")
 
@@ -218,6 +225,8 @@ class CountResampler:
             raise InputError(f"resampling method must be one of: {', '.join(METHODS)}; got {method!r}.")
         self.method = method
         self.shape = cells.cases.shape  # (n, A, L)
+        #: what one replicate takes while it is resampled and scored (sizes batches in run_chunk)
+        self.bytes_per_replicate = int(np.prod(self.shape)) * BYTES_PER_SLOT
         self.J = len(cells.outcomes)
         n, A, L = self.shape
         self.original = ResampledCounts(
@@ -381,8 +390,16 @@ def run_chunk(shared: tuple, task: _Chunk) -> dict[str, np.ndarray]:
     with one_blas_thread():
         if not task.seeds:
             return {k: np.asarray(v) for k, v in statistic(resampler.original).items()}
-        batch = resampler.draw(task.seeds, np.arange(task.first, task.first + len(task.seeds)))
-        return {k: np.asarray(v) for k, v in statistic(batch).items()}
+        # a chunk is drawn and scored in batches small enough for its cells (every statistic
+        # scores each replicate on its own, so batches give the same numbers as the whole chunk)
+        per = max(1, min(len(task.seeds), int(BATCH_BYTES // max(resampler.bytes_per_replicate, 1))))
+        parts = []
+        for start in range(0, len(task.seeds), per):
+            seeds = task.seeds[start:start + per]
+            batch = resampler.draw(seeds, np.arange(task.first + start, task.first + start + len(seeds)))
+            parts.append({k: np.asarray(v) for k, v in statistic(batch).items()})
+            del batch
+        return parts[0] if len(parts) == 1 else {k: np.concatenate([p[k] for p in parts], axis=0) for k in parts[0]}
 
 
 def percentile_interval(values: np.ndarray, level: float = 0.95, axis: int = 0) -> tuple[np.ndarray, np.ndarray]:
