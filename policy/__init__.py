@@ -5,32 +5,93 @@ Stages, one folder each, data flowing one way: ``inputs`` -> ``estimation`` -> `
 rules for groups of cases, never for a decision about an individual.
 """
 
-from policy.cautions import CAUTIONS
-from policy.inputs.cells import CellLayout, CellTable
-from policy.inputs.loading import load_cell_table
-from policy.decision.constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
-from policy.decision.constraints import ConstraintSpec
-from policy.decision.costs import Costs, costs_from_scenario, expected_cost
-from policy.errors import InfeasibleError, InputError, PolicyError, SolverError
-from policy.estimation.bounds import RiskBounds, manski_bounds, sensitivity_bounds
-from policy.decision.evaluate import Evaluation, evaluate
-from policy.estimation.from_scenario import estimate_risk_levels
-from policy.running.pipeline import Analysis, CheckReport, analyze, check, estimate
-from policy.presentation.report import Report, build_report
-from policy.assessment.uncertainty import BootstrapResult, bootstrap
-from policy.assessment.compare import Comparison, compare
-from policy.decision.rules import Rule
-from policy.inputs.scenario import Scenario, load_scenario
-from policy.decision.solve import optimal_rule
-from policy.assessment.sweep import LenientMap, OneRatioSweep, SweepResult, lenient_map, ratio_axis, sweep_one, sweep_scenario
-from policy.estimation.strata import (
-    RiskLevelEstimator,
-    RiskLevels,
-    isotonic_nonincreasing,
-    risk_level_distribution,
-)
+from __future__ import annotations
 
-from policy import demo as demo  # registers the demo's simulator as the [data] simulate source
+import importlib
+
+from policy.inputs import registry as _registry
+
+# the demo's simulator is the [data] simulate source; its module is imported only when a
+# scenario asks for it (policy.inputs never imports the demo itself)
+_registry.register_simulator_module("policy.demo")
+# the later stages' scenario sections register themselves when their modules are imported,
+# which happens when the first scenario is parsed
+for _module in ("policy.decision.constraints", "policy.decision.constrained.settings", "policy.decision.candidates",
+                "policy.assessment.uncertainty"):
+    _registry.register_section_module(_module)
+
+#: where each public name lives; a name's module is imported on first use (``policy.X``,
+#: ``from policy import X``), so ``import policy`` and ``python -m policy --help`` stay fast
+_LAZY = {
+    "CAUTIONS": "policy.cautions",
+    "CellLayout": "policy.inputs.cells",
+    "CellTable": "policy.inputs.cells",
+    "load_cell_table": "policy.inputs.loading",
+    "ConstrainedProblem": "policy.decision.constrained",
+    "ConstrainedRule": "policy.decision.constrained",
+    "LPSettings": "policy.decision.constrained",
+    "LPSolution": "policy.decision.constrained",
+    "solve_constrained": "policy.decision.constrained",
+    "ConstraintSpec": "policy.decision.constraints",
+    "Costs": "policy.decision.costs",
+    "costs_from_scenario": "policy.decision.costs",
+    "expected_cost": "policy.decision.costs",
+    "InfeasibleError": "policy.errors",
+    "InputError": "policy.errors",
+    "PolicyError": "policy.errors",
+    "SolverError": "policy.errors",
+    "RiskBounds": "policy.estimation.bounds",
+    "manski_bounds": "policy.estimation.bounds",
+    "sensitivity_bounds": "policy.estimation.bounds",
+    "Evaluation": "policy.decision.evaluate",
+    "evaluate": "policy.decision.evaluate",
+    "estimate_risk_levels": "policy.estimation.from_scenario",
+    "Analysis": "policy.running.pipeline",
+    "CheckReport": "policy.running.pipeline",
+    "analyze": "policy.running.pipeline",
+    "check": "policy.running.pipeline",
+    "estimate": "policy.running.pipeline",
+    "Report": "policy.presentation.report",
+    "build_report": "policy.presentation.report",
+    "BootstrapResult": "policy.assessment.uncertainty",
+    "bootstrap": "policy.assessment.uncertainty",
+    "Comparison": "policy.assessment.compare",
+    "compare": "policy.assessment.compare",
+    "Rule": "policy.decision.rules",
+    "Scenario": "policy.inputs.scenario",
+    "load_scenario": "policy.inputs.scenario",
+    "optimal_rule": "policy.decision.solve",
+    "LenientMap": "policy.assessment.sweep",
+    "OneRatioSweep": "policy.assessment.sweep",
+    "SweepResult": "policy.assessment.sweep",
+    "lenient_map": "policy.assessment.sweep",
+    "ratio_axis": "policy.assessment.sweep",
+    "sweep_one": "policy.assessment.sweep",
+    "sweep_scenario": "policy.assessment.sweep",
+    "RiskLevelEstimator": "policy.estimation.strata",
+    "RiskLevels": "policy.estimation.strata",
+    "isotonic_nonincreasing": "policy.estimation.strata",
+    "risk_level_distribution": "policy.estimation.strata",
+}
+
+
+def __getattr__(name: str):
+    """Import a public name's module on first use (PEP 562) and keep the name."""
+    module = _LAZY.get(name)
+    if module is None:
+        if name == "demo":
+            value = importlib.import_module("policy.demo")
+            globals()[name] = value
+            return value
+        raise AttributeError(f"module 'policy' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY) | {"demo"})
+
 
 __version__ = "0.1.0"
 

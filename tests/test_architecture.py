@@ -90,3 +90,37 @@ def test_modules_stay_small():
     sizes = {p.relative_to(ROOT).as_posix(): len(p.read_text(encoding="utf-8").splitlines())
              for p in (ROOT / "policy").rglob("*.py")}
     assert {name: n for name, n in sizes.items() if n > 720} == {}
+
+
+def _fresh_python(code: str) -> str:
+    """Run ``code`` in a new interpreter on this tree; its standard output."""
+    env = {"PYTHONPATH": str(ROOT), "PATH": str(Path(sys.executable).parent)}
+    result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stderr
+    return result.stdout.strip()
+
+
+def test_every_module_that_registers_a_scenario_section_is_named_to_the_scenario_reader():
+    # sections register on import; the reader imports only the modules named in policy/__init__,
+    # so a module left out would make its section "unknown" in a command that does not import it
+    code = ("import importlib, pkgutil, policy; from policy.inputs import scenario as s; "
+            "named = set(s.load_section_modules()); "
+            "[importlib.import_module(m.name) for m in pkgutil.walk_packages(policy.__path__, 'policy.') "
+            "if not m.name.endswith('__main__')]; print(sorted(set(s.SCHEMA) - named))")
+    assert _fresh_python(code) == "[]"
+
+
+def test_help_imports_no_data_or_solver_library():
+    # start-up stays fast: the command line's help needs none of these
+    code = ("import sys, runpy; sys.argv = ['policy', '--help']\n"
+            "try:\n    runpy.run_module('policy', run_name='__main__')\nexcept SystemExit:\n    pass\n"
+            "print(sorted(m for m in ('pandas', 'scipy', 'matplotlib', 'cvxpy', 'pyarrow', 'highspy') if m in sys.modules))")
+    assert _fresh_python(code).splitlines()[-1] == "[]"
+
+
+def test_public_names_resolve_on_first_use():
+    code = ("import sys, policy; before = 'pandas' in sys.modules; "
+            "missing = [n for n in policy.__all__ if not hasattr(policy, n)]; "
+            "from policy import RiskLevels, analyze; print(before, missing, 'policy.demo' in sys.modules)")
+    # importing the package loads no stage; every name in __all__ resolves; the demo is a module away
+    assert _fresh_python(code) == "False [] False"

@@ -82,6 +82,23 @@ def test_random_optimum_matches_independent_linprog(seed, aware):
     assert rel_close(problem.solve_lp().cost_per_case, expected)
 
 
+@pytest.mark.parametrize("seed", range(4))
+def test_first_solve_from_the_unconstrained_basis_matches_a_cold_solve(seed):
+    # reference: scipy.optimize.linprog(method="highs"), independent formulation (see above);
+    # a larger instance, so that the cold dual simplex needs a pivot per rule cell and the warm
+    # start (the unconstrained optimum's basis, dual feasible) visibly fewer
+    rl, costs, columns = random_instance(seed, n_scores=6, n_buckets=8, n_groups=2, aware=False)
+    specs = [{"kind": "principal_fairness", "outcome": "o0", "tolerance": 0.03},
+             {"kind": "capacity", "at_least": "L2", "max_share": 0.2}]
+    expected, _ = reference_solve(rl, costs, columns, specs)
+    warm = ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp(lenient_ties=False)
+    cold = ConstrainedProblem(rl, costs, specs, columns=columns, settings=LPSettings(method="simplex")).solve_lp(lenient_ties=False)
+    assert expected is not None
+    assert rel_close(warm.cost_per_case, expected, 1e-9)
+    assert rel_close(warm.cost_per_case, cold.cost_per_case, 1e-12)
+    assert warm.iterations < cold.iterations
+
+
 def test_every_lp_solver_agrees_on_the_optimum_and_the_duals(demo):
     # the direct HiGHS path, HiGHS through cvxpy and CLARABEL through cvxpy solve the same LP
     rl, costs = demo

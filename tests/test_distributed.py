@@ -141,3 +141,32 @@ def test_without_dask_the_default_works_and_the_option_says_how_to_install(tmp_p
     code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--out", tmp_path / "b", "--replicates", "5", "--run-on", "here",
                             "--no-progress"], capsys)
     assert code == 0, err
+
+
+def _pid_and_shared(shared, task):
+    """A task that says which process ran it and what shared data it saw."""
+    return os.getpid(), shared, task
+
+
+def test_local_processes_start_once_and_keep_each_maps_shared_data_apart():
+    from policy.assessment.workers import LocalProcesses
+
+    with LocalProcesses(2) as pool:
+        first = pool.map(_pid_and_shared, "first", list(range(6)))
+        second = pool.map(_pid_and_shared, "second", list(range(6)))
+    assert [r[1:] for r in first] == [("first", i) for i in range(6)]
+    assert [r[1:] for r in second] == [("second", i) for i in range(6)]
+    pids = {r[0] for r in first + second}
+    assert os.getpid() not in pids and len(pids) <= 2  # the same two processes served both maps
+    assert pool._pool is None  # stopped at the end of the block
+
+
+def test_default_runner_keeps_light_work_in_this_process():
+    from policy.assessment.workers import Adaptive
+
+    done = []
+    with Adaptive(max_workers=2) as runner:
+        out = runner.map(_pid_and_shared, "s", list(range(20)), done.append)
+    assert out == [(os.getpid(), "s", i) for i in range(20)]
+    assert sorted(done) == list(range(20))
+    assert runner.pool is None and "in this process" in runner.decisions[0]

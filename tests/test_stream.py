@@ -217,3 +217,75 @@ def test_progress_bar_reads_the_same(tmp_path, demo_scenario, cases30k, capsys):
     quiet = stream_cell_table(path, demo_scenario, block_rows=8_192, progress=False)
     shown = stream_cell_table(path, demo_scenario, block_rows=8_192, progress=True)
     assert_same_table(quiet, shown)
+
+
+def _with_pandas(monkeypatch):
+    """Make the CSV reader take the pandas route (as for a file pyarrow's reader refuses)."""
+    def refuse(*args, **kwargs):
+        raise stream.ArrowRefused("test: read with pandas")
+        yield  # pragma: no cover - a generator, like the real reader
+
+    monkeypatch.setattr(stream, "arrow_csv_blocks", refuse)
+
+
+def _tricky(cases: pd.DataFrame) -> pd.DataFrame:
+    """Texts where the two CSV readers could differ: missing-value words, quoted fields,
+    outcome columns empty in whole blocks, integer and decimal costs, numeric-looking cells."""
+    frame = cases.copy()
+    frame["missed_court"] = frame["missed_court"].astype(object)
+    frame.loc[:5_000, "missed_court"] = "NA"  # missing (pandas' word for it) in the whole first block
+    frame.loc[5_001:5_100, "missed_court"] = ""
+    frame["new_offense"] = frame["new_offense"].astype(object)
+    frame.loc[7_000:7_010, "new_offense"] = "null"
+    frame["bond_cost"] = frame["bond_cost"].round(0).astype(int)  # integers in early blocks ...
+    frame["bond_cost"] = frame["bond_cost"].astype(object)
+    frame.loc[20_000:, "bond_cost"] = frame.loc[20_000:, "bond_cost"].astype(float) + 0.25  # ... decimals later
+    frame["case_id"] = frame["case_id"].astype(str) + ",x"  # quoted in the file (holds a comma)
+    return frame
+
+
+def test_csv_through_pyarrow_equals_csv_through_pandas(tmp_path, demo_scenario, cases30k, monkeypatch):
+    # the pandas route is the reference: pyarrow's streaming reader must give the same cell table
+    path = tmp_path / "cases.csv"
+    _tricky(cases30k).to_csv(path, index=False)
+    fast = stream_cell_table(path, demo_scenario, block_rows=5_000)
+    _with_pandas(monkeypatch)
+    slow = stream_cell_table(path, demo_scenario, block_rows=5_000)
+    assert_same_table(fast, slow)
+
+
+@pytest.mark.parametrize("column, value", [("missed_court", 7), ("decision", "jail"), ("bond_cost", "-5"),
+                                           ("bond_cost", "lots"), ("sex", "")])
+def test_csv_messages_are_the_same_through_pyarrow_and_pandas(tmp_path, demo_scenario, cases30k, monkeypatch,
+                                                              column, value):
+    frame = cases30k.copy()
+    frame[column] = frame[column].astype(object)
+    frame.loc[[9_999, 10_200], column] = value
+    path = tmp_path / "cases.csv"
+    frame.to_csv(path, index=False)
+    messages = []
+    for route in ("pyarrow", "pandas"):
+        if route == "pandas":
+            _with_pandas(monkeypatch)
+        with pytest.raises(InputError) as err:
+            stream_cell_table(path, demo_scenario, block_rows=4_096)
+        messages.append(str(err.value))
+    assert messages[0] == messages[1]
+    assert "(first: row 10000)" in messages[0] and "rows 8,193 to 12,288 checked" in messages[0]
+
+
+def test_a_csv_pyarrow_refuses_is_read_with_pandas(tmp_path, demo_scenario, cases30k, monkeypatch):
+    # a line with a field too many: pyarrow's reader stops there; the file is read again with
+    # pandas, which reads it as it always has (the extra field is outside the columns used)
+    path = tmp_path / "cases.csv"
+    cases30k.to_csv(path, index=False)
+    lines = path.read_text().splitlines()
+    lines[20_000] += ",extra"
+    path.write_text("\n".join(lines) + "\n")
+    import pyarrow.csv as pcsv
+
+    with pytest.raises(pa.ArrowInvalid):
+        pcsv.read_csv(path)
+    read = stream_cell_table(path, demo_scenario, block_rows=4_096)
+    _with_pandas(monkeypatch)
+    assert_same_table(read, stream_cell_table(path, demo_scenario, block_rows=4_096))

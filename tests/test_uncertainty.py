@@ -200,3 +200,32 @@ def test_coverage_short_run():
 def test_coverage_long_run():
     cov = coverage_study(sets=200, cases=20_000, replicates=400)
     _check(cov, band=(0.91, 0.98), target_band=(0.91, 0.98))
+
+
+def test_a_chunk_scored_in_small_batches_agrees_and_repeats_its_bits(demo_cells, demo_scenario, monkeypatch):
+    # tables with many cells score a chunk in several batches (memory): every replicate agrees
+    # with scoring the whole chunk at once to rounding (sums over a batch axis of another length
+    # may round differently), for the comparison's whole statistic too, and the batch size
+    # depends only on the table, so a run repeats its bits
+    import policy.assessment.uncertainty as uncertainty
+    from policy.assessment.compare import ComparisonStatistic
+    from policy.decision.costs import costs_from_scenario
+
+    est = RiskLevelEstimator.from_scenario(demo_scenario)
+    rl = est.fit(demo_cells).risk_levels_
+    statistics = [OnRiskLevels(_safe_share, est, est.design(demo_cells.layout, 3)),
+                  ComparisonStatistic(est, est.design(demo_cells.layout, len(demo_cells.levels)),
+                                      costs_from_scenario(demo_scenario, rl), demo_cells.layout, [],
+                                      demo_cells.has_arm, len(demo_cells.arms))]
+    B = CHUNK + 4
+    whole = [bootstrap(demo_cells, s, B, seed=5, runner=InProcess(), outcome_model=rl.p) for s in statistics]
+    monkeypatch.setattr(uncertainty, "BATCH_BYTES", 3 * uncertainty.CountResampler(demo_cells).bytes_per_replicate)
+    batched = [bootstrap(demo_cells, s, B, seed=5, runner=InProcess(), outcome_model=rl.p) for s in statistics]
+    again = bootstrap(demo_cells, statistics[1], B, seed=5, runner=InProcess(), outcome_model=rl.p)
+    for a, b in zip(whole, batched):
+        assert a.replicates.keys() == b.replicates.keys()
+        for k in a.replicates:
+            np.testing.assert_allclose(np.asarray(b.replicates[k], dtype=float), np.asarray(a.replicates[k], dtype=float),
+                                       rtol=1e-9, atol=1e-12, err_msg=k)
+    for k in again.replicates:
+        assert np.asarray(again.replicates[k]).tobytes() == np.asarray(batched[1].replicates[k]).tobytes(), k

@@ -46,7 +46,8 @@ class ConstrainedSolver:
         return state
 
     def start_batch(self) -> None:
-        """Start the next solve cold: a chunk of replicates then gives the same bits in any process."""
+        """Forget the last basis (the next solve starts from the unconstrained optimum's): a chunk
+        of replicates then gives the same bits in any process."""
         if self._problem is not None:
             self._problem.forget_basis()
 

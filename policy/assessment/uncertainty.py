@@ -42,8 +42,11 @@ Replicate b draws from its own stream, ``numpy.random.SeedSequence(seed).spawn(B
 replicates are computed in fixed chunks of :data:`CHUNK` whatever the number of workers, each
 with single-threaded BLAS (:func:`one_blas_thread`), so the same seed gives the same bits on one
 core or many. How chunks are run is isolated behind
-:class:`TaskRunner` (``map(fn, shared, tasks)``): :class:`InProcess` and :class:`LocalProcesses`
-here, :class:`policy.running.distributed.DaskRunner` on a Dask cluster (``--run-on``). The task function
+:class:`TaskRunner` (``map(fn, shared, tasks)``): :class:`InProcess` here,
+:class:`~policy.assessment.workers.LocalProcesses` (worker processes kept for a command) and
+:class:`~policy.assessment.workers.Adaptive` (the default: worker processes only when the measured
+work pays for them) in :mod:`policy.assessment.workers`,
+:class:`policy.running.distributed.DaskRunner` on a Dask cluster (``--run-on``). The task function
 :func:`run_chunk` is pure and picklable.
 
 Intervals are bootstrap percentile intervals (Efron and Tibshirani 1993, ch. 13): the
@@ -63,11 +66,8 @@ samples. JASA 82(399), 739-750.
 
 from __future__ import annotations
 
-import os
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import contextmanager
 from dataclasses import dataclass
-from multiprocessing import get_context
 from typing import Any, Callable, Iterator, Mapping, Protocol, Sequence
 
 import numpy as np
@@ -77,6 +77,7 @@ from policy.inputs.cells import CellTable
 from policy.errors import InputError
 from policy.inputs.limits import MAX_REPLICATES
 from policy.inputs.scenario import Key, Scenario, read_section, register_section
+from policy.assessment.workers import Adaptive, LocalProcesses, available_cores
 
 __all__ = [
     "CHUNK",
@@ -100,6 +101,13 @@ __all__ = [
 
 #: replicates per task; fixed so that results do not depend on the number of workers
 CHUNK = 25
+#: memory one batch of replicates may take while it is resampled and scored (a chunk of a
+#: table with many cells is scored in several batches)
+BATCH_BYTES = 512 << 20
+#: bytes a replicate takes per cell x arm x decision level while it is resampled and scored by
+#: the comparison's statistic (measured: 145 MB per replicate at 85,000 cells, 509,000 cell x
+#: arm x level entries; docs/performance.md)
+BYTES_PER_SLOT = 300
 METHODS = ("poisson", "multinomial")
 OUTCOME_DRAWS = ("model", "cases")
 
@@ -221,6 +229,8 @@ class CountResampler:
             raise InputError(f"resampling method must be one of: {', '.join(METHODS)}; got {method!r}.")
         self.method = method
         self.shape = cells.cases.shape  # (n, A, L)
+        #: what one replicate takes while it is resampled and scored (sizes batches in run_chunk)
+        self.bytes_per_replicate = int(np.prod(self.shape)) * BYTES_PER_SLOT
         self.J = len(cells.outcomes)
         n, A, L = self.shape
         self.original = ResampledCounts(
@@ -342,18 +352,6 @@ class InProcess:
         return out
 
 
-_SHARED: Any = None
-
-
-def _install_shared(shared: Any) -> None:
-    global _SHARED
-    _SHARED = shared
-
-
-def _call_with_shared(fn: Callable[[Any, Any], Any], task: Any) -> Any:
-    return fn(_SHARED, task)
-
-
 def one_blas_thread():
     """Context in which BLAS uses one thread: a matrix product then gives the same bits whether
     it runs here, in a worker process or on a cluster node (multi-threaded BLAS may split sums
@@ -363,47 +361,13 @@ def one_blas_thread():
     return threadpool_limits(limits=1, user_api="blas")
 
 
-class LocalProcesses:
-    """Run tasks in worker processes on this machine (``spawn`` start method).
-
-    Worker processes import the caller's main module again, so a script that runs a bootstrap
-    with more than one worker must do so under ``if __name__ == "__main__":`` (notebooks and the
-    command line need nothing).
-
-    Parameters
-    ----------
-    workers : int
-        Number of processes.
-    """
-
-    def __init__(self, workers: int):
-        self.workers = int(workers)
-
-    def map(self, fn, shared, tasks, on_done=None):
-        results: list = [None] * len(tasks)
-        with ProcessPoolExecutor(self.workers, mp_context=get_context("spawn"),
-                                 initializer=_install_shared, initargs=(shared,)) as pool:
-            futures = {pool.submit(_call_with_shared, fn, task): i for i, task in enumerate(tasks)}
-            for future in as_completed(futures):
-                i = futures[future]
-                results[i] = future.result()
-                if on_done is not None:
-                    on_done(i)
-        return results
-
-
-def available_cores() -> int:
-    """Cores this process may use."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:  # pragma: no cover - not on Linux
-        return os.cpu_count() or 1
-
-
 def make_runner(workers: int | None = None, tasks: int | None = None) -> TaskRunner:
-    """In-process for one worker, local processes otherwise (``None``: every available core,
-    no more than there are tasks)."""
-    n = available_cores() if workers is None else int(workers)
+    """In-process for one worker, local processes for more; ``None``: :class:`Adaptive` (this
+    process, or up to every idle core when the measured work pays for starting workers).
+    ``tasks`` caps the processes. A runner made here is closed by its caller after its map."""
+    if workers is None:
+        return Adaptive(None if tasks is None else max(min(available_cores(), tasks), 1))
+    n = int(workers)
     if n < 1:
         raise InputError(f"workers must be a positive number; got {workers!r}.")
     if tasks is not None:
@@ -430,8 +394,16 @@ def run_chunk(shared: tuple, task: _Chunk) -> dict[str, np.ndarray]:
     with one_blas_thread():
         if not task.seeds:
             return {k: np.asarray(v) for k, v in statistic(resampler.original).items()}
-        batch = resampler.draw(task.seeds, np.arange(task.first, task.first + len(task.seeds)))
-        return {k: np.asarray(v) for k, v in statistic(batch).items()}
+        # a chunk is drawn and scored in batches small enough for its cells (every statistic
+        # scores each replicate on its own, so batches give the same numbers as the whole chunk)
+        per = max(1, min(len(task.seeds), int(BATCH_BYTES // max(resampler.bytes_per_replicate, 1))))
+        parts = []
+        for start in range(0, len(task.seeds), per):
+            seeds = task.seeds[start:start + per]
+            batch = resampler.draw(seeds, np.arange(task.first + start, task.first + start + len(seeds)))
+            parts.append({k: np.asarray(v) for k, v in statistic(batch).items()})
+            del batch
+        return parts[0] if len(parts) == 1 else {k: np.concatenate([p[k] for p in parts], axis=0) for k in parts[0]}
 
 
 def percentile_interval(values: np.ndarray, level: float = 0.95, axis: int = 0) -> tuple[np.ndarray, np.ndarray]:
@@ -563,10 +535,15 @@ def bootstrap(cells: CellTable, statistic: Statistic, replicates: int = 1000, se
     children = root.spawn(replicates)
     # the point estimates are one more task, first, so that they run beside the replicates
     tasks = [_Chunk(-1, ())] + [_Chunk(i, tuple(children[i:i + CHUNK])) for i in range(0, replicates, CHUNK)]
+    own = runner is None
     runner = runner or make_runner(workers, len(tasks) - 1)
-    with _progress(progress, description, replicates) as advance:
-        parts = runner.map(run_chunk, (resampler, statistic), tasks,
-                           None if advance is None else (lambda i: advance(len(tasks[i].seeds))))
+    try:
+        with _progress(progress, description, replicates) as advance:
+            parts = runner.map(run_chunk, (resampler, statistic), tasks,
+                               None if advance is None else (lambda i: advance(len(tasks[i].seeds))))
+    finally:
+        if own and hasattr(runner, "close"):
+            runner.close()
     point = {k: np.asarray(v)[0] for k, v in parts[0].items()}
     reps = {k: np.concatenate([p[k] for p in parts[1:]], axis=0) for k in point}
     return BootstrapResult(point, reps, replicates, seed_used, method, level, resampler.joint, outcomes)

@@ -229,13 +229,6 @@ def factor_matrices(layout: CellLayout, columns: Sequence[str]) -> list[tuple[sp
     return out
 
 
-def _sum_by(matrix: sp.csr_matrix, x: np.ndarray) -> np.ndarray:
-    """Group sums over the cell axis (-2) of x (..., n_cells, J): (..., n_groups, J)."""
-    moved = np.moveaxis(x, -2, 0)
-    out = np.asarray(matrix @ moved.reshape(moved.shape[0], -1)).reshape((matrix.shape[0],) + moved.shape[1:])
-    return np.moveaxis(out, 0, -2)
-
-
 def loglinear_rates(events: np.ndarray, exposure: np.ndarray, factors: Sequence[tuple[sp.csr_matrix, np.ndarray]],
                     smoothing: float = 1.0, max_sweeps: int = 200, tol: float = 1e-9) -> np.ndarray:
     """Rates of a main-effects log-linear (Poisson) model, fitted by iterative proportional fitting.
@@ -268,22 +261,35 @@ def loglinear_rates(events: np.ndarray, exposure: np.ndarray, factors: Sequence[
     total_e = events.sum(axis=-2, keepdims=True)
     total_n = exposure.sum(axis=-2, keepdims=True)
     overall = (total_e + 0.5) / (total_n + 1.0)
-    rate = np.broadcast_to(overall, events.shape).copy()
-    observed_margins = [_sum_by(matrix, events) for matrix, _ in factors]
+    lead, (n, J) = events.shape[:-2], events.shape[-2:]
+    fits = int(np.prod(lead, dtype=np.int64))
+
+    # the loop works on cells-first matrices (n_cells, fits * J): the layout the sparse group sums
+    # take, so no sweep copies or moves an array (the same products and sums as on the original
+    # layout, so the same bits)
+    def cells_first(x: np.ndarray) -> np.ndarray:
+        return np.ascontiguousarray(np.moveaxis(np.broadcast_to(x, lead + (x.shape[-2], J)), -2, 0).reshape(x.shape[-2], -1))
+
+    exposure_c = cells_first(exposure)
+    overall_c = cells_first(overall)  # (1, fits * J)
+    rate = np.broadcast_to(overall_c, (n, fits * J)).copy()
+    observed_margins = [np.asarray(matrix @ cells_first(events)) for matrix, _ in factors]
     # each fit (leading index) stops on its own, so a fit gives the same numbers alone or in a batch
-    active = np.ones(events.shape[:-2] + (1, 1), dtype=bool)
+    active = np.ones(fits, dtype=bool)
+    active_c = np.ones(fits * J, dtype=bool)
     for _ in range(max_sweeps):
-        change = np.zeros(active.shape)
+        change = np.zeros(fits)
         for (matrix, codes), obs in zip(factors, observed_margins):
-            fitted = _sum_by(matrix, exposure * rate)
-            num, den = obs + smoothing * overall, fitted + smoothing * overall
-            ratio = np.where((num > 0) & (den > 0) & active, num / np.where(den > 0, den, 1.0), 1.0)
-            rate *= np.take(ratio, codes, axis=-2)
-            change = np.maximum(change, np.abs(np.log(ratio)).max(axis=(-2, -1), keepdims=True))
+            fitted = np.asarray(matrix @ (exposure_c * rate))
+            num, den = obs + smoothing * overall_c, fitted + smoothing * overall_c
+            ratio = np.where((num > 0) & (den > 0) & active_c, num / np.where(den > 0, den, 1.0), 1.0)
+            rate *= ratio[codes]
+            change = np.maximum(change, np.abs(np.log(ratio)).reshape(ratio.shape[0], fits, J).max(axis=(0, 2)))
         active &= change >= tol
+        active_c = np.repeat(active, J)
         if not active.any():
             break
-    return rate
+    return np.ascontiguousarray(np.moveaxis(rate.reshape((n,) + lead + (J,)), 0, -2))
 
 
 def shrunk_baselines(events: np.ndarray, observed: np.ndarray, theta: np.ndarray,

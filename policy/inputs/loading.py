@@ -4,29 +4,38 @@ table, or the simulator that the demo registers for ``[data] simulate``.
 
 from __future__ import annotations
 
-from typing import Callable
-
-import pandas as pd
+import importlib
+from typing import TYPE_CHECKING, Callable
 
 from policy.errors import InputError
-from policy.inputs.cells import CellTable
-from policy.inputs.counting import _counts_columns
-from policy.inputs.scenario import Scenario
-from policy.inputs.stream import stream_cell_table
-from policy.inputs.tables import read_table
+from policy.inputs.registry import SIMULATOR_MODULES, register_simulator_module
 
-__all__ = ["load_cell_table", "register_simulator"]
+if TYPE_CHECKING:  # the readers are imported when a table is read: importing this module stays cheap
+    import pandas as pd
+
+    from policy.inputs.cells import CellTable
+    from policy.inputs.scenario import Scenario
+
+__all__ = ["load_cell_table", "register_simulator", "register_simulator_module"]
 
 
 #: The case simulator behind ``[data] simulate``: set by the demo package when it is imported
 #: (:func:`register_simulator`), so this stage never imports the demo.
-_SIMULATOR: Callable[[int, int | None], pd.DataFrame] | None = None
+_SIMULATOR: Callable[[int, int | None], "pd.DataFrame"] | None = None
 
 
-def register_simulator(simulate: Callable[[int, int | None], pd.DataFrame]) -> None:
+def register_simulator(simulate: Callable[[int, int | None], "pd.DataFrame"]) -> None:
     """Make ``simulate(n_cases, seed)`` the source of scenarios whose ``[data]`` says ``simulate``."""
     global _SIMULATOR
     _SIMULATOR = simulate
+
+
+def _simulator() -> Callable[[int, int | None], "pd.DataFrame"] | None:
+    for module in SIMULATOR_MODULES:  # named by the package (policy.inputs.registry)
+        if _SIMULATOR is not None:
+            break
+        importlib.import_module(module)
+    return _SIMULATOR
 
 
 def load_cell_table(scenario: Scenario, progress: bool | None = None) -> CellTable:
@@ -36,12 +45,18 @@ def load_cell_table(scenario: Scenario, progress: bool | None = None) -> CellTab
     progress bar when ``progress`` (None: when standard error is a terminal and the file is
     large).
     """
+    from policy.inputs.cells import CellTable
+    from policy.inputs.counting import _counts_columns
+    from policy.inputs.stream import stream_cell_table
+    from policy.inputs.tables import read_table
+
     kind = scenario.data.kind
     if kind == "simulate":
-        if _SIMULATOR is None:
+        simulate = _simulator()
+        if simulate is None:
             raise InputError(f"{scenario.file}: [data] simulate needs the demo's simulator, which is not loaded "
                              "(import policy, or policy.demo, first).")
-        frame = _SIMULATOR(scenario.data.simulate, scenario.seed)
+        frame = simulate(scenario.data.simulate, scenario.seed)
         return CellTable.from_cases(frame, scenario, file=f"simulated case table ({scenario.data.simulate:,} cases)")
     if kind == "case_table":
         # read in blocks (policy.inputs.stream): memory bounded by the cells, identical to reading it whole

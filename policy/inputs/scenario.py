@@ -21,6 +21,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 from policy.errors import InputError
 from policy.inputs.limits import number, simulated_cases, whole_number
+from policy.inputs.registry import SECTION_MODULES, register_section_module
 
 if sys.version_info >= (3, 11):
     import tomllib
@@ -30,6 +31,8 @@ else:  # pragma: no cover - exercised on Python 3.10 only
 __all__ = [
     "Key",
     "SCHEMA",
+    "load_section_modules",
+    "register_section_module",
     "Scenario",
     "DecisionLevel",
     "OutcomeKind",
@@ -190,6 +193,15 @@ def register_section(name: str, keys: Sequence[Key], parser: Callable[[Any, "Sce
     SECTION_PARSERS[name.strip("[]")] = parser
 
 
+def load_section_modules() -> dict[str, tuple[Key, ...]]:
+    """Import every module of :data:`SECTION_MODULES` (each registers its sections); the full :data:`SCHEMA`."""
+    import importlib
+
+    for module in SECTION_MODULES:  # named by the package (policy.inputs.registry)
+        importlib.import_module(module)
+    return SCHEMA
+
+
 @dataclass(frozen=True)
 class DataSource:
     """Where the data come from: exactly one of the four kinds."""
@@ -327,6 +339,7 @@ class Scenario:
         path = Path(path).resolve() if path is not None else None
         file = path.name if path is not None else "<scenario>"
         raw = dict(raw)
+        load_section_modules()
         allowed = {name.strip("[]") for name in SCHEMA}
         unknown = sorted(set(raw) - allowed)
         if unknown:

@@ -11,10 +11,12 @@ case ids are unique (below), never by the case rows themselves.
 - **Parquet** is read with ``pyarrow.parquet.ParquetFile.iter_batches``; text columns are read
   dictionary-encoded, so each block reaches pandas as categoricals (codes, no strings per row).
   A background thread reads and converts the next block while this one is counted.
-- **CSV** is read with pandas in chunks. Cell columns are read as text and typed at the end
-  from their distinct values by pandas' own parser, so a column such as ``1, 2, ..., 12`` gets
-  integer categories (sorted 1, 2, ..., 12) exactly as when the whole file is read at once,
-  whatever the values of one chunk.
+- **CSV** is read with pyarrow's streaming CSV reader (:mod:`policy.inputs.csv_blocks`): cell
+  columns dictionary-encoded, every block typed as pandas' reader types it; a file that reader
+  refuses is read with pandas in chunks instead. Cell columns are read as text and typed at the
+  end from their distinct values by pandas' own parser, so a column such as ``1, 2, ..., 12``
+  gets integer categories (sorted 1, 2, ..., 12) exactly as when the whole file is read at
+  once, whatever the values of one chunk.
 - **Blocks are aligned with the in-memory aggregation's chunks** (:data:`policy.inputs.counting.CHUNK_ROWS`
   rows), so per-cell cost sums are added in the same order and the cell table is identical, to
   the bit, to :meth:`policy.inputs.cells.CellTable.from_cases` on the whole table (tested).
@@ -42,6 +44,7 @@ import pandas as pd
 
 from policy.inputs.cells import CellTable
 from policy.inputs.counting import CHUNK_ROWS, BlockCounts, _case_columns, _check_unique_ids, count_block
+from policy.inputs.csv_blocks import ArrowRefused, arrow_csv_blocks
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
 from policy.inputs.csv_shape import check_csv_shape
@@ -64,9 +67,11 @@ class _Source:
     """A case table file read in blocks of exactly ``block_rows`` rows (the last one shorter)."""
 
     def __init__(self, path: Path, columns: list[str], what: str, text_columns: list[str], block_rows: int,
-                 plain: tuple[str, ...] = ()):
+                 plain: tuple[str, ...] = (), cost_columns: tuple[str, ...] = ()):
         self.path, self.columns, self.what, self.block_rows = path, columns, what, int(block_rows)
         self.text_columns = text_columns
+        self.plain, self.cost_columns = plain, cost_columns
+        self.with_pandas = False  # CSV: pyarrow's streaming reader first; pandas where it refuses
         self.kind = path.suffix.lower().lstrip(".")
         self.shape = None
         if path.is_dir():
@@ -160,6 +165,12 @@ class _Source:
         return frame
 
     def _csv_blocks(self, columns):
+        if not self.with_pandas:
+            cells = [c for c in self.text_columns if c in columns and c not in self.plain]
+            ids = next((c for c in self.plain if c in columns), None)
+            yield from arrow_csv_blocks(self.path, columns, cells, ids, [c for c in self.cost_columns if c in columns],
+                                        self.block_rows, self.path.name)
+            return
         text = {c: str for c in self.text_columns if c in columns}
         with open(self.path, "rb") as handle:
             try:
@@ -476,8 +487,21 @@ def stream_cell_table(path: str | Path, scenario: Scenario, what: str | None = N
     cell_columns = list(scenario.cell_columns)
     id_column = scenario.case_id
     text = cell_columns + ([id_column] if id_column else [])
-    source = _Source(path, columns, what, text, block_rows, plain=(id_column,) if id_column else ())
-    file = path.name
+    source = _Source(path, columns, what, text, block_rows, plain=(id_column,) if id_column else (),
+                     cost_columns=tuple(scenario.cost_columns))
+    try:
+        return _count_source(source, scenario, cell_columns, id_column, progress)
+    except ArrowRefused:
+        # a file pyarrow's reader refuses (a malformed line, text that is not UTF-8, ...) is read
+        # again with pandas, whose messages name what is wrong
+        source.with_pandas = True
+        return _count_source(source, scenario, cell_columns, id_column, progress)
+
+
+def _count_source(source: _Source, scenario: Scenario, cell_columns: list[str], id_column: str | None,
+                  progress: bool | None) -> CellTable:
+    """Count every block of ``source`` into one cell table (the body of :func:`stream_cell_table`)."""
+    file = source.path.name
     merged = _Merged(len(cell_columns))
     ids = _IdCheck(id_column, source.total if source.kind == "parquet" else None) if id_column else None
     with _progress_bar(progress, source, file) as advance:

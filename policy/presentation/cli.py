@@ -13,8 +13,6 @@ from typing import List, Optional
 import functools
 
 import typer
-from rich.panel import Panel
-from rich.table import Table
 from rich.text import Text
 
 from policy.cautions import CAUTIONS, assumptions_for
@@ -36,6 +34,20 @@ app = typer.Typer(
 # markup is off: labels from scenario files are printed as written, never as styles
 console = VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
 err_console = VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
+
+def Table(*args, **kwargs):
+    """A rich table (rich.table is imported when a command prints one, not at start-up)."""
+    from rich.table import Table as RichTable
+
+    return RichTable(*args, **kwargs)
+
+
+def Panel(*args, **kwargs):
+    """A rich panel (imported when used, like :func:`Table`)."""
+    from rich.panel import Panel as RichPanel
+
+    return RichPanel(*args, **kwargs)
+
 
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""
@@ -74,7 +86,7 @@ SeedOption = typer.Option(None, "--seed", help="Root seed of the bootstrap (defa
 ResamplingOption = typer.Option(None, "--resampling", help="'poisson' or 'multinomial' (default: [uncertainty] resampling).")
 OutcomesOption = typer.Option(None, "--outcomes", help="'model' or 'cases' (default: [uncertainty] outcomes).")
 IntervalOption = typer.Option(None, "--interval", help="Coverage of the intervals (default: [uncertainty] interval, 0.95).")
-WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: every core); the output does not depend on it.")
+WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: this process, or up to every idle core when the measured work pays for starting them); the output does not depend on it.")
 ProgressOption = typer.Option(True, "--progress/--no-progress", help="Show progress bars.")
 RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: here (this process), local or local:N "
                            "(a Dask cluster of N worker processes on this machine), or a Dask scheduler address such as "
@@ -663,13 +675,17 @@ def compare(
 
 
 def _runner(run_on: Optional[str], workers: Optional[int]):
-    """The runner of --run-on (None: the command's own default, e.g. --workers)."""
+    """The runner of --run-on (None: this machine's, from --workers; default: :class:`Adaptive`)."""
     from contextlib import nullcontext
 
     from policy.running.distributed import run_on as runner_for
 
     if run_on is None:
-        return nullcontext(None)
+        # one runner for the whole command: worker processes, if any, start once for all its tasks
+        from policy.assessment.uncertainty import make_runner
+
+        runner = make_runner(workers)
+        return runner if hasattr(runner, "close") else nullcontext(runner)
     if workers is not None:
         raise InputError("give --workers (processes of this machine) or --run-on, not both.")
     return runner_for(run_on)

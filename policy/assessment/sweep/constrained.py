@@ -244,7 +244,9 @@ def constrained_sweep(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, ra
     dual = np.full((B, P, K), np.nan)
     removed = np.full((B, P, K), np.nan)
     # fixed blocks of grid points (bound rows, then ratios), each solved warm within itself and
-    # cold at its start: the same bits whether the blocks run here, in other processes or on a cluster
+    # started at its first point from that point's unconstrained optimum (a basis computed from
+    # the block's own inputs): the same bits whether the blocks run here, in other processes or
+    # on a cluster
     points = [(b, i) for b in range(B) for i in range(P)]
     blocks = [tuple(points[k:k + SWEEP_BLOCK]) for k in range(0, len(points), SWEEP_BLOCK)]
     shared = _SweepShared(risk_levels, costs, specs, problem.columns, problem.settings, axis.outcome_index,
@@ -295,8 +297,9 @@ class _SweepShared:
 def solve_sweep_block(shared: _SweepShared, block: tuple) -> list:
     """The pure task of a constrained sweep: solve one block of grid points ``(b, i)`` in order.
 
-    The process's problem is built once and starts each block cold
-    (:meth:`~policy.decision.constrained.ConstrainedProblem.forget_basis`). Returns per point None
+    The process's problem is built once; each block forgets the last block's basis
+    (:meth:`~policy.decision.constrained.ConstrainedProblem.forget_basis`) and starts from the
+    basis of its first point's unconstrained optimum. Returns per point None
     (infeasible) or (cost per case, shares (L,), split rule cells, duals (K,), savings if removed (K,)).
     """
     if shared.problem is None:

@@ -16,8 +16,10 @@ Build once, re-solve fast
 :class:`ConstrainedProblem` assembles the rows and the objective once, declares the problem in
 cvxpy with the cost weights and the bounds as ``cp.Parameter`` (checked to be DPP), and by
 default solves the same data with HiGHS called directly through ``highspy``: the first solve by
-its interior-point method with crossover (a vertex, so as few split rule cells as the
-constraints allow), each later solve by its dual simplex warm-started from the last basis. A
+its dual simplex started from the basis of the unconstrained optimum (each rule cell at its
+cheapest level; dual feasible, so only the constraint rows that rule breaks need pivots), each
+later solve by the dual simplex warm-started from the last basis. Both end at a vertex, so as
+few rule cells are split as the constraints allow. A
 change of cost weights or bounds only changes the costs or the row bounds of the loaded model;
 risk levels of the same cells with other outcome probabilities (a bootstrap replicate) reload
 the model and start from the last basis. Any other LP solver cvxpy offers can be chosen

@@ -68,7 +68,7 @@ class ConstrainedProblem:
         self.declared = np.array([s.bound for s in self.specs], dtype=np.float64)
         self.active = np.ones(len(self.specs), dtype=bool)
         self._data = _assemble(risk_levels, costs.decision, self.specs, self.index, self.rule_cells, self.vocab)
-        self._model: _CvxpyModel | None = _CvxpyModel(self._data, self.specs)
+        self._model: _CvxpyModel | None = None  # declared in cvxpy only when a cvxpy solver or the problem is asked for
         self._highs: _HighsDriver | None = None
         self._dirty = {"cost": True, "bounds": True, "model": True}
 
@@ -209,7 +209,7 @@ class ConstrainedProblem:
         return self._present(delta, name)
 
     def forget_basis(self) -> "ConstrainedProblem":
-        """Make the next solve start cold, as on a newly built problem.
+        """Make the next solve start as on a newly built problem (from the unconstrained optimum's basis).
 
         Warm re-solves depend on the basis the last solve left; a degenerate LP has several,
         and two paths to the same optimum may differ in the last bits. Tasks that may run in any

@@ -25,16 +25,17 @@ INACTIVE_BOUND = 2.0
 LP_KEYS: tuple[Key, ...] = (
     Key("solver", (str,), False, "HIGHS", "LP solver: HIGHS (default) or another LP solver cvxpy offers, e.g. CLARABEL, SCIPY"),
     Key("direct", (bool,), False, True, "HIGHS only: call HiGHS directly with warm starts (true) or through cvxpy (false)"),
-    Key("method", (str,), False, "auto", "HIGHS only: first-solve method, 'auto', 'ipm' (interior point with crossover), 'simplex' or 'choose'"),
+    Key("method", (str,), False, "auto", "HIGHS only: first-solve method, 'auto' (dual simplex from the unconstrained optimum's basis), 'ipm' (interior point with crossover), 'simplex' (cold) or 'choose'"),
     Key("time_limit", (float,), doc="seconds a single solve may take; a solve that stops at it is an error"),
     Key("lenient_ties", (bool,), False, True, "among several optimal rules, return the most lenient (HIGHS direct only)"),
 )
 HIGHS_METHODS = ("auto", "ipm", "simplex", "choose")
 #: solvers that return a vertex (HiGHS's simplex, or its interior point with crossover; SCIPY runs HiGHS)
 VERTEX_SOLVERS = ("HIGHS", "SCIPY")
-#: with method 'auto', the first solve uses the interior-point method (with crossover) from this
-#: many decision probabilities (columns) on, the dual simplex below: the faster of the two on
-#: the benchmark LP (benchmarks/bench_constrained.py; docs/performance.md)
+#: where the LP cannot start warm (method 'auto' through cvxpy), the first solve uses the
+#: interior-point method (with crossover) from this many decision probabilities (columns) on,
+#: the dual simplex below: the faster of the two cold on the benchmark LP
+#: (benchmarks/bench_constrained.py; docs/performance.md)
 IPM_FROM_COLUMNS = 20_000
 
 
@@ -53,15 +54,20 @@ class LPSettings:
         return self.solver == "HIGHS" and self.direct
 
     def first_method(self, n_cols: int) -> str:
-        """The HiGHS method of a first (cold) solve of an LP with ``n_cols`` columns."""
+        """The HiGHS method of a cold first solve of an LP with ``n_cols`` columns (HiGHS called
+        directly with method ``auto`` starts warm instead, from the unconstrained optimum's basis)."""
         if self.method != "auto":
             return self.method
         return "ipm" if n_cols >= IPM_FROM_COLUMNS else "simplex"
 
     @property
+    def _first_label(self) -> str:
+        return "dual simplex from the unconstrained optimum's basis" if self.method == "auto" else self.method
+
+    @property
     def label(self) -> str:
         if self.uses_direct:
-            return f"HiGHS {highs_version()} via highspy (first solve: {self.method}; re-solves: warm dual simplex)"
+            return f"HiGHS {highs_version()} via highspy (first solve: {self._first_label}; re-solves: warm dual simplex)"
         return f"{self.solver} via cvxpy"
 
 
@@ -69,9 +75,12 @@ def lp_settings_from_table(raw: Any, file: str = "<scenario>", where: str = "[li
     """Validate a ``[linear_program]`` table."""
     s = read_section(raw, LP_KEYS, where, file)
     solver = s["solver"].upper()
-    import cvxpy as cp
+    if solver != "HIGHS" or not s["direct"]:
+        import cvxpy as cp  # only a solver called through cvxpy needs it (a second of start-up)
 
-    installed = cp.installed_solvers()
+        installed = cp.installed_solvers()
+    else:
+        installed = ["HIGHS"]
     if solver not in installed:
         raise InputError(f"{file}: key 'solver' in {where} is {s['solver']!r}; expected one of the installed solvers: "
                          f"{', '.join(installed)}.")
