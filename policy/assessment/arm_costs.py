@@ -123,6 +123,9 @@ class ArmCosts:
         out = ["Assumption-free comparison of the arms (realized cost of observed decisions and outcomes; "
                "assumes only that the aid was shown at random):"]
         for _, row in f.iterrows():
+            if not np.isfinite(row["realized_cost_per_1000_cases"]):
+                out.append(f"  {row['figure']}: not estimated (an arm with no cases)")
+                continue
             interval = (f" ({row['lower']:,.0f} to {row['upper']:,.0f})" if np.isfinite(row["lower"]) else "")
             out.append(f"  {row['figure']}: {row['realized_cost_per_1000_cases']:,.0f} {self.unit} per 1,000 cases"
                        f"{interval}; {row['if_missing_none']:,.0f} to {row['if_missing_all']:,.0f} whatever the "

@@ -241,6 +241,10 @@ class CrossFit:
                + (f" (sd over splits {first['cross_fitted_split_sd']:,.0f})." if self.repeats > 1 else
                   " (one split of the cases; --fold-repeats averages more).")]
         for _, r in frame.iloc[1:].iterrows():
+            if not np.isfinite(r["regret_per_1000_cases_cross_fitted"]):
+                out.append(f"{r['rule']}: not cross-fitted (its figures cannot be computed on these data, e.g. an arm "
+                           "with no cases).")
+                continue
             shift = f"{r['cross_fitted_minus_in_sample']:+,.0f}"
             move = (f"its optimism {shift}" if r["kind"] in CHOSEN else
                     f"its own cost moves by {shift} scored on held-out folds")

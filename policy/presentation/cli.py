@@ -574,10 +574,13 @@ def _comparison_table(comparison) -> Table:
 
 def _print_ranges(frame, unit: str) -> None:
     """Each rule's expected cost range at Gamma = 2 and under the monotone bounds (all in comparison_ranges.csv)."""
+    import numpy as np
+
     console.print(f"Expected cost per 1,000 cases ({unit}) if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
                   "regret ranges in comparison_regret_ranges.csv):", style="bold")
     for name, rows in frame.groupby("rule", sort=False):
         parts = [f"{label} {r['cost_per_1000_cases_lower']:,.0f} to {r['cost_per_1000_cases_upper']:,.0f}"
+                 if np.isfinite(r["cost_per_1000_cases_lower"]) else f"{label} not estimated"
                  for key, label in (("gamma=2", "Gamma = 2:"), ("bounds", "monotone bounds:"))
                  for _, r in rows[rows["assumption"] == key].iterrows()]
         console.print(f"  - {name}: " + "; ".join(parts))
