@@ -10,7 +10,7 @@ from policy.inputs.cells import CellLayout, CellTable
 from policy.inputs.loading import load_cell_table
 from policy.decision.constrained import ConstrainedProblem, ConstrainedRule, LPSettings, LPSolution, solve_constrained
 from policy.decision.constraints import ConstraintSpec
-from policy.decision.costs import Costs, costs_from_scenario, expected_cost
+from policy.decision.costs import CostFactor, Costs, costs_from_scenario, expected_cost
 from policy.errors import InfeasibleError, InputError, PolicyError, SolverError
 from policy.estimation.bounds import RiskBounds, manski_bounds, sensitivity_bounds
 from policy.decision.evaluate import Evaluation, evaluate
@@ -68,6 +68,7 @@ __all__ = [
     "check",
     "compare",
     "costs_from_scenario",
+    "CostFactor",
     "estimate",
     "estimate_risk_levels",
     "evaluate",

@@ -54,6 +54,7 @@ def command(fn):
 OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
 CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
 DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
+DecisionFactorOption = typer.Option(None, "--decision-cost-factor", help="Multiply a decision level's per-cell costs (from its cost_column) by a factor: VALUE=FACTOR, e.g. bond=1.5 (repeatable).")
 ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
 GroupBlindOption = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute.")
 PrincipalFairnessOption = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable).")
@@ -101,6 +102,20 @@ def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
         if not sep or not key or number is None:
             raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
         out[key.strip()] = number
+    return out
+
+
+def _decision_costs(decision_cost: Optional[List[str]], factors: Optional[List[str]] = None) -> dict:
+    """--decision-cost flat costs and --decision-cost-factor factors on per-cell costs, by level."""
+    from policy.decision.costs import CostFactor
+
+    out: dict = _pairs(decision_cost, "--decision-cost")
+    for key, value in _pairs(factors, "--decision-cost-factor").items():
+        if key in out:
+            raise InputError(f"--decision-cost and --decision-cost-factor both set level {key!r}; give one of them.")
+        if value < 0:
+            raise InputError(f"--decision-cost-factor {key}={value:g}: a factor must be >= 0.")
+        out[key] = CostFactor(value)
     return out
 
 
@@ -264,6 +279,7 @@ def solve(
     out: Path = OutOption,
     cost: Optional[List[str]] = CostOption,
     decision_cost: Optional[List[str]] = DecisionCostOption,
+    decision_cost_factor: Optional[List[str]] = DecisionFactorOption,
     constraint: Optional[List[str]] = ConstraintOption,
     group_blind: bool = GroupBlindOption,
     principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
@@ -283,7 +299,7 @@ def solve(
 
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
-    analysis = analyze(sc, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"), constraints=added,
+    analysis = analyze(sc, _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor), constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     paths = write_outputs(out, analysis.output_files())
     _print_analysis(analysis)
@@ -296,6 +312,7 @@ def report(
     out: Path = OutOption,
     cost: Optional[List[str]] = typer.Option(None, "--cost", help="Start from another outcome cost: KEY=NUMBER (repeatable)."),
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
+    decision_cost_factor: Optional[List[str]] = typer.Option(None, "--decision-cost-factor", help="Start from a factor on a decision level's per-cell costs: VALUE=FACTOR (repeatable)."),
     replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
 ):
@@ -303,7 +320,7 @@ def report(
     from policy.outputs import write_outputs
     from policy.presentation.report import build_report
 
-    built = build_report(scenario, _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost"),
+    built = build_report(scenario, _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor),
                          replicates=replicates, progress=progress)
     paths = write_outputs(out, built.output_files())
     console.print(str(built))
@@ -360,6 +377,7 @@ def sweep(
     no_figures: bool = typer.Option(False, "--no-figures", help="Write the tables only."),
     cost: Optional[List[str]] = CostOption,
     decision_cost: Optional[List[str]] = DecisionCostOption,
+    decision_cost_factor: Optional[List[str]] = DecisionFactorOption,
     constraint: Optional[List[str]] = ConstraintOption,
     group_blind: bool = GroupBlindOption,
     principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
@@ -400,7 +418,7 @@ def sweep(
         result = sweep_scenario(
             sc, ratio, ranges=_ranges(range_), scale=scale, per=per, gammas=gamma or None,
             bounds=False if no_bounds else None, missing=missing, grid_points=points, share=share,
-            outcome_costs=_pairs(cost, "--cost"), decision_costs=_pairs(decision_cost, "--decision-cost"),
+            outcome_costs=_pairs(cost, "--cost"), decision_costs=_decision_costs(decision_cost, decision_cost_factor),
             constraints=added, scenario_constraints=not ignore_constraints, lp_settings=settings, lp_points=lp_points,
             vary=varied, vary_values=values, removal=not duals_only, replicates=replicates, seed=seed, resampling=resampling,
             interval=interval, outcomes=outcomes, workers=workers, progress=progress, runner=runner)

@@ -51,6 +51,14 @@ def level_colours(n_levels: int) -> list[str]:
     return figure_colours(n_levels)
 
 
+def tint(colour: str, keep: float = 0.35) -> str:
+    """A light tint of a colour (``keep`` of it over white), behind dark text at AA contrast."""
+    from matplotlib.colors import to_hex, to_rgb
+
+    r, g, b = to_rgb(colour)
+    return to_hex((1 - keep + keep * r, 1 - keep + keep * g, 1 - keep + keep * b))
+
+
 def risk_level_colours(n: int) -> list[str]:
     """Colours of risk levels 0..n-1 (safe to not preventable) from matplotlib's ``cividis``,
     a sequential map readable with colour-vision deficiency (Nunez, Anderton and Renslow 2018)."""

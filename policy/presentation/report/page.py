@@ -94,10 +94,12 @@ def render_report(results: ReportResults | Analysis) -> Report:
     files: dict[str, Any] = {}
     for s in sections:
         files.update(s.files)
+    summary = next((s for s in sections if s.key == "summary"), None)
     page = env.get_template("report.html.j2").render(
         title=sc.title,
         cautions=list(CAUTIONS),
-        sections=sections,
+        summary=summary,
+        sections=[s for s in sections if s is not summary],
         figure_assumptions=figure_assumptions,
         files=sorted(files),
         data=json_for_script({"live": live_data(results)}),
@@ -164,7 +166,8 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
                                       replicates, progress)
     points = tuple(res.constrained for res in sweeps if res.constrained is not None)
-    return render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map))
+    return render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map,
+                                       dict(decision_costs or {})))
 
 
 def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mapping[str, float] | None = None,

@@ -147,7 +147,7 @@ def live_rule_section(results: ReportResults) -> Section:
          str(frame.loc[i, "level"]) + (" (split)" if frame.loc[i, "split"] else ""))
         for i in range(len(frame))
     ]
-    compared = [{"name": c.rule.name, "note": c.note, "cost": fmt_num(c.evaluation.cost_per_1000),
+    compared = [{"name": shown_name(c.rule), "note": c.note, "cost": fmt_num(c.evaluation.cost_per_1000),
                  "regret": fmt_num(1000.0 * c.evaluation.regret_per_case), "agreement": fmt_pct(c.evaluation.agreement)}
                 for c in results.compared]
     return Section(
@@ -158,6 +158,7 @@ def live_rule_section(results: ReportResults) -> Section:
             "unit": costs.unit,
             "controls": controls(results),
             "rule_columns": columns,
+            "rule_column_labels": [a.scenario.column_label(col) for col in columns],
             "rule_rows": rule_rows,
             "level_labels": list(ev.level_labels),
             "level_colours": level_colours(len(ev.level_labels)),
@@ -170,6 +171,13 @@ def live_rule_section(results: ReportResults) -> Section:
         assumptions=tuple(assumptions_for("rule")),
         files=a.output_files(),
     )
+
+
+def shown_name(rule) -> str:
+    """A compared rule's name in the live table: an optimum held at the scenario's costs says so."""
+    if rule.kind in ("optimal", "constrained"):
+        return f"{rule.name} at the scenario's costs (held fixed)"
+    return rule.name
 
 
 def groups_section(results: ReportResults) -> Section:

@@ -8,6 +8,7 @@ from typing import Callable
 
 from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct, inline_svg
 from policy.presentation.report.model import ReportResults, Section
+from policy.presentation.report.summary import summary_section
 from policy.presentation.report.sections import aid_effect_section, comparison_section, constrained_section, data_section, groups_section, live_rule_section, risk_level_section, scenario_section
 
 
@@ -104,6 +105,7 @@ def sweep_section(results: ReportResults) -> Section | None:
 
 #: the section builders, in page order; each takes ReportResults and returns a Section or None
 SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
+    summary_section,
     scenario_section,
     data_section,
     risk_level_section,
