@@ -231,3 +231,31 @@ def test_controls_say_how_a_per_cell_cost_moves():
     for c in live["controls"]:
         assert c["min"] <= c["value"] <= c["max"] and c["step"] > 0
 
+
+
+def test_report_reuses_its_cached_comparison_and_sweeps_until_an_input_changes(tmp_path, capsys):
+    import shutil
+
+    scenario = tmp_path / "demo.toml"
+    shutil.copy(ROOT / "scenarios" / "demo.toml", scenario)
+    out = tmp_path / "out"
+    base = ["report", scenario, "--out", out, "--no-progress"]
+    code, first, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Computing the comparison with 5 bootstrap replicates" in first
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert len(list((out / ".policy-report-cache").iterdir())) == 1
+    code, second, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Reusing the comparison and sweeps" in second
+    assert (out / "report.html").read_text(encoding="utf-8") == html
+    # another cost, another replicate count or an edited scenario file: computed afresh
+    for extra in (["--replicates", 5, "--cost", "new_offense=6000"], ["--replicates", 6]):
+        code, text, err = run_cli(base + extra, capsys)
+        assert code == 0, err
+        assert "Computing the comparison" in text, extra
+    scenario.write_text(scenario.read_text(encoding="utf-8").replace("seed = 20261202", "seed = 7"), encoding="utf-8")
+    code, text, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Computing the comparison" in text
+    assert (out / "report.html").read_text(encoding="utf-8") != html

@@ -38,6 +38,16 @@ def fmt_num(value: float, digits: int = 0) -> str:
     return text[1:] if text.startswith("-") and not any(ch in "123456789" for ch in text) else text
 
 
+def fmt_factor(value: float, significant: int = 6) -> str:
+    """A bound, factor or reached value as written by people: '40,000', '0.15', '1.5' (never '4e+04')."""
+    if value is None or not math.isfinite(float(value)):
+        return "\u2013"
+    v = float(f"{float(value):.{significant}g}")
+    if v == int(v) and abs(v) < 1e15:
+        return f"{int(v):,}"
+    return f"{v:,.{max(0, significant - 1 - int(math.floor(math.log10(abs(v)))))}f}".rstrip("0").rstrip(".")
+
+
 def input_value(value: float) -> str:
     """A number as an HTML number input's value: the shortest round-trip text, '1000' not '1000.0'."""
     text = repr(float(value))

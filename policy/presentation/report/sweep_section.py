@@ -34,18 +34,20 @@ def sweep_section(results: ReportResults) -> Section | None:
         kind = "robust_sweep" if len(res.assumptions) > 1 else "sweep"
         share = float(res.settings["share"])
         summary = sw.summary(share).drop(columns=["share"], errors="ignore")
+        never = f"never (below {fmt_pct(share, 0)} already at ratio {fmt_num(sw.lo, 2)})"
         view = TableView.from_frame(
             summary, f"Where {sw.level_labels[0]} stays optimal as the {axis.outcome_label} cost varies, "
                      "under each assumption",
             {"share_lenient_at_low": fmt_pct, "share_lenient_at_scenario": fmt_pct,
-             "up_to_ratio": lambda v: fmt_num(v, 2), "up_to_cost": fmt_num},
+             "up_to_ratio": lambda v: fmt_num(v, 2) if v == v else never,
+             "up_to_cost": lambda v: fmt_num(v) if v == v else "never"},
             rename={"share_lenient_at_low": f"share of cases, ratio {fmt_num(sw.lo, 2)}",
                     "share_lenient_at_scenario": "share of cases, scenario's ratio",
                     "up_to_ratio": f"stays optimal for at least {fmt_pct(share, 0)} of cases up to ratio",
-                    "up_to_cost": f"that is, up to a cost of ({axis.unit})"})
+                    "up_to_cost": f"that is, up to a cost in {axis.unit} of"})
         columns = list(sw.rule_cells.columns)
         breaks_view = TableView.from_frame(
-            sw.breakpoints(), f"Where a rule cell's optimal level changes along the {axis.outcome_label} ratio (exact)",
+            sw.breakpoints().rename(columns={c: results.scenario.column_label(c) for c in columns}), f"Where a rule cell's optimal level changes along the {axis.outcome_label} ratio (exact)",
             {"cases": fmt_num, "ratio": lambda v: fmt_num(v, 3), "cost": fmt_num},
             row_header=max(len(columns), 1), rename={"level_before": "optimal below", "level_after": "optimal above"})
         outputs = sweep_files(res, ("svg",))
