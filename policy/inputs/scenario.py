@@ -161,6 +161,7 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("protected", (list,), False, [], "protected attributes; also part of the cell", item_type=str),
         Key("rule", (list,), True, doc="columns a rule may use; each a covariate or protected attribute", item_type=str),
         Key("order", (dict,), False, {}, "optional display order of a covariate's values: name = [values]"),
+        Key("bins", (dict,), False, {}, "optional intervals of a numeric cell column: name = { cuts = [numbers], labels = [texts] }"),
         Key("labels", (dict,), False, {}, "optional display names of cell columns in outputs: name = \"label\" (default: the name with spaces for _)"),
     ),
     "[aid]": (
@@ -262,6 +263,8 @@ class Scenario:
     order: Mapping[str, tuple] = field(default_factory=dict)
     #: display names of cell columns given in ``[cells] labels``
     labels: Mapping[str, str] = field(default_factory=dict)
+    #: numeric cell columns cut into labelled intervals (``[cells] bins``; :mod:`policy.inputs.bins`)
+    bins: Mapping[str, Any] = field(default_factory=dict)
     aid: AidSettings = AidSettings()
     estimator: EstimatorSettings = EstimatorSettings()
     path: Path | None = None
@@ -375,6 +378,10 @@ class Scenario:
             if not isinstance(values, list) or not values:
                 raise InputError(f"{file}: [cells] order.{name} must be a non-empty list of values; got {values!r}.")
             order[name] = tuple(values)
+        from policy.inputs.bins import parse_bins
+
+        bins = parse_bins(cells["bins"], cell_columns, order, file)
+        order.update({name: b.labels for name, b in bins.items()})
         labels = {}
         for name, text in cells["labels"].items():
             if name not in cell_columns:
@@ -414,6 +421,7 @@ class Scenario:
             rule_covariates=tuple(cells["rule"]),
             order=order,
             labels=labels,
+            bins=bins,
             cost_unit=costs["unit"],
             cost_note=costs["note"],
             aid=AidSettings(**aid),

@@ -344,7 +344,9 @@ def comparison_section(results: ReportResults) -> Section:
         context={
             "costs": costs_view, "shares": shares_view, "misplaced": misplaced_view,
             "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
-            "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
+            "replicates": r.n_replicates, "seed": r.seed, "label": label,
+            # each rule's own note is in the list of rules above; the rest once here
+            "notes": [n for n in cmp.notes if not any(n == f"{rule.name}: {rule.note}" for rule in cmp.rules)],
             "observed_assumptions": assumptions_for("observed_rule"),
         },
         assumptions=tuple(assumptions_for("evaluation")),
