@@ -501,6 +501,10 @@ def test_on_a_phone_charts_are_full_width_and_tables_fit(demo_page, tmp_path):
     widths = page.evaluate("Array.from(document.querySelectorAll('figure svg, svg.bar'))"
                            ".filter(e => e.getClientRects().length).map(e => e.getBoundingClientRect().width)")
     assert widths and min(widths) >= PHONE["width"] - margins - 1, sorted(widths)[:5]
+    # and their text reads: no letter of a chart's text (drawn as SVG text) smaller than 9 CSS pixels
+    smallest = page.evaluate("Math.min(...Array.from(document.querySelectorAll('figure svg text')).map(t =>"
+                             " parseFloat(getComputedStyle(t).fontSize) * Math.hypot(t.getScreenCTM().a, t.getScreenCTM().b)))")
+    assert smallest >= 9.0, smallest
     # tables: none wider than the space it has
     over = page.evaluate("Array.from(document.querySelectorAll('table')).filter(t => t.getClientRects().length)"
                          ".filter(t => t.scrollWidth > t.parentElement.clientWidth + 1"

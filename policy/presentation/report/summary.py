@@ -90,7 +90,8 @@ def nearest_breakpoints(results: ReportResults) -> list[dict[str, str]]:
         below = table[table["cost"] < here - 1e-9 * max(1.0, here)]
         above = table[table["cost"] > here + 1e-9 * max(1.0, here)]
         lo_cost, hi_cost = sw.lo * axis.reference_cost, sw.hi * axis.reference_cost
-        entry = {"outcome_index": str(axis.outcome_index), "label": axis.outcome_label, "cost": fmt_num(here)}
+        entry = {"outcome_index": str(axis.outcome_index), "label": axis.outcome_label, "cost": fmt_num(here),
+                 "below_lead": "the rule changes at" if len(below) else "", "above_lead": "it changes at" if len(above) else ""}
         if len(below):
             row = below.iloc[-1]
             entry["below"] = fmt_num(row["cost"])

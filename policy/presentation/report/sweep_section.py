@@ -66,7 +66,16 @@ def sweep_section(results: ReportResults) -> Section | None:
                 rename={"ratio": "grid ratio nearest the scenario's", "price_per_1000_there": "price there",
                         "lowest_price_per_1000": "lowest price", "highest_price_per_1000": "highest price",
                         "infeasible_points": "ratios where the constraints cannot all hold"})
+        # the regret figure as text: each rule's exact regret at the range's ends and the scenario's ratio
+        points = [(f"ratio {fmt_num(sw.lo, 2)}", sw.lo), (f"scenario's ratio {fmt_num(axis.scenario_ratio, 2)}", axis.scenario_ratio),
+                  (f"ratio {fmt_num(sw.hi, 2)}", sw.hi)]
+        regret_rows = tuple((name,) + tuple(fmt_num(1000.0 * float(f(r))) for _, r in points) for name, f in sw.regret.items())
+        regret_view = TableView(f"The regret figure as a table: each rule's regret per 1,000 cases ({axis.unit}) as the "
+                                f"{axis.outcome_label} cost varies (exact; every knot in sweep_{axis.outcome}_regret.csv)",
+                                ("rule",) + tuple(label for label, _ in points), regret_rows,
+                                (False,) + (True,) * len(points))
         blocks.append({
+            "regret": regret_view,
             "title": f"Cost of one {axis.outcome_label}, as a ratio to the mean cost of {axis.reference_label}",
             "definition": axis.describe()["definition"],
             "scenario_ratio": fmt_num(axis.scenario_ratio, 3),

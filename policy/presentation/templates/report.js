@@ -168,7 +168,7 @@
 
   // the summary's texts as the tool wrote them at the scenario's costs (with intervals and the sweeps' breakpoints)
   var exactSummary = {};
-  ["sum-diff", "bp-below", "bp-below-text", "bp-above", "bp-above-text"].forEach(function (kind) {
+  ["sum-diff", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
     exactSummary[kind] = [];
     var nodes = document.querySelectorAll('[data-live="' + kind + '"]');
     for (var i = 0; i < nodes.length; i++) { exactSummary[kind].push(nodes[i].textContent); }
@@ -180,7 +180,7 @@
 
   function showBreakpoints(per, levels, exact) {
     if (exact) {
-      ["bp-below", "bp-below-text", "bp-above", "bp-above-text"].forEach(restore);
+      ["bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(restore);
     }
     var items = document.querySelectorAll("#summary-breakpoints li");
     for (var i = 0; i < items.length; i++) {
@@ -189,6 +189,8 @@
       if (exact) { continue; }
       var br = nearestBreaks(j, per, levels);
       var labels = live.level_labels;
+      item.querySelector('[data-live="bp-below-lead"]').textContent = br.down.g < 0 ? "" : "the rule changes at";
+      item.querySelector('[data-live="bp-above-lead"]').textContent = br.up.g < 0 ? "" : "it changes at";
       item.querySelector('[data-live="bp-below"]').textContent = br.down.g < 0 ? "no change" : fmtNum(br.down.cost, 0);
       item.querySelector('[data-live="bp-below-text"]').textContent = br.down.g < 0 ? "(down to 0)"
         : "(" + cellText(br.down.g) + ": " + labels[br.down.from] + " \u2192 " + labels[br.down.to] + ")";
