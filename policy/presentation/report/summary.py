@@ -25,6 +25,10 @@ KIND_WORDS = {"observed": "what courts did", "aid": "the aid's recommendation", 
               "optimal": "cost-minimizing at the scenario's costs", "constrained": "constrained optimum at the scenario's costs"}
 
 
+#: at most this many columns across the rule grid (more read badly beside the summary's figures)
+MAX_ACROSS = 6
+
+
 def _ordered_unique(values: pd.Series) -> list:
     seen: dict = {}
     for v in values:
@@ -33,8 +37,9 @@ def _ordered_unique(values: pd.Series) -> list:
 
 
 def rule_grid(results: ReportResults) -> dict[str, Any]:
-    """The rule as a grid over its columns: rows by one column (or the combination of all but
-    one), columns by the column with the fewest values; each cell names its rule cell.
+    """The rule as a grid over its columns: across, the columns with the fewest values (as many
+    as give at most :data:`MAX_ACROSS` grid columns, at least one), down the combinations of the
+    others; each cell names its rule cell.
 
     Returns a dict with ``row_title``, ``column_title``, ``columns`` (values as text), ``rows``
     (label, cells), each cell ``None`` (no such combination in the data) or ``(g, level, label,
@@ -55,11 +60,19 @@ def rule_grid(results: ReportResults) -> dict[str, Any]:
         rows = [(str(v), [(g, int(level[g]), labels[int(level[g])], fmt_num(cases[g]))])
                 for g, v in enumerate(cells[col])]
         return {"row_title": sc.column_label(col), "column_title": "", "columns": ["decision"], "rows": rows}
-    across = min(names, key=lambda c: (cells[c].nunique(), -names.index(c)))
-    down = [c for c in names if c != across]
-    key = cells[down].astype(str).agg(" \u00b7 ".join, axis=1)
-    column_values = _ordered_unique(cells[across])
-    where = {(k, v): g for g, (k, v) in enumerate(zip(key, cells[across]))}
+    # across: the columns with the fewest values, as many as keep at most MAX_ACROSS columns
+    by_size = sorted(names, key=lambda c: (cells[c].nunique(), names.index(c)))
+    across = [by_size[0]]
+    for c in by_size[1:-1]:
+        if np.prod([cells[a].nunique() for a in across]) * cells[c].nunique() > MAX_ACROSS:
+            break
+        across.append(c)
+    across = [c for c in names if c in across]
+    down = [c for c in names if c not in across]
+    join = lambda frame: frame.astype(str).agg(" \u00b7 ".join, axis=1)
+    key, head = join(cells[down]), join(cells[across])
+    column_values = _ordered_unique(head)
+    where = {(k, v): g for g, (k, v) in enumerate(zip(key, head))}
     rows = []
     for k in _ordered_unique(key):
         row = []
@@ -67,7 +80,8 @@ def rule_grid(results: ReportResults) -> dict[str, Any]:
             g = where.get((k, v))
             row.append(None if g is None else (g, int(level[g]), labels[int(level[g])], fmt_num(cases[g])))
         rows.append((k, row))
-    return {"row_title": " \u00b7 ".join(sc.column_label(c) for c in down), "column_title": sc.column_label(across),
+    return {"row_title": " \u00b7 ".join(sc.column_label(c) for c in down),
+            "column_title": " \u00b7 ".join(sc.column_label(c) for c in across),
             "columns": [str(v) for v in column_values], "rows": rows}
 
 
@@ -135,6 +149,18 @@ def compared_rows(results: ReportResults) -> list[dict[str, Any]]:
     return out
 
 
+def constrained_note(results: ReportResults) -> str:
+    """Where the scenario declares constraints: that the grid is the unconstrained optimum, and
+    what the constrained rule costs more (its price), so the reader does not take one for the other."""
+    con = results.analysis.constrained
+    if con is None:
+        return ""
+    return (f"The scenario declares constraints. The grid shows the cost-minimizing rule without them, which this "
+            f"page recomputes as costs move; {con.rule.name}, which meets them, costs "
+            f"{fmt_num(con.price_per_1000)} {con.unit} more per 1,000 cases and is in the section "
+            "\u201cThe constrained rule and its price\u201d (and in the comparison below).")
+
+
 def summary_section(results: ReportResults) -> Section:
     """The first screen: the rule's grid, headline, what it changes, where it would change, export."""
     a = results.analysis
@@ -159,6 +185,7 @@ def summary_section(results: ReportResults) -> Section:
             "interval_label": results.comparison.result.interval_label if results.comparison is not None else "",
             "breakpoints": nearest_breakpoints(results),
             "verdicts": [],
+            "constrained_note": constrained_note(results),
         },
         assumptions=tuple(assumptions_for("rule")),
     )
