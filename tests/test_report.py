@@ -259,3 +259,23 @@ def test_report_reuses_its_cached_comparison_and_sweeps_until_an_input_changes(t
     assert code == 0, err
     assert "Computing the comparison" in text
     assert (out / "report.html").read_text(encoding="utf-8") != html
+
+
+def test_rule_grid_lays_out_every_rule_cell_once():
+    from policy.presentation.report import ReportResults
+    from policy.presentation.report.summary import MAX_ACROSS, rule_grid
+
+    for name in ("demo.toml", "demo_constrained.toml"):
+        analysis = analyze(ROOT / "scenarios" / name)
+        grid = rule_grid(ReportResults(analysis))
+        rule = analysis.rule
+        seen = [cell[0] for _, cells in grid["rows"] for cell in cells if cell is not None]
+        assert sorted(seen) == list(range(rule.n_rule_cells)), name
+        assert 1 <= len(grid["columns"]) <= MAX_ACROSS
+        for _, cells in grid["rows"]:
+            for cell in cells:
+                if cell is not None:
+                    g, d, label, _ = cell
+                    assert d == int(rule.level[g]) and label == rule.level_labels[d]
+        # headings are the scenario's labels, never raw column names with underscores
+        assert "_" not in grid["row_title"] + grid["column_title"], (grid["row_title"], grid["column_title"])
