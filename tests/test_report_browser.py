@@ -448,7 +448,12 @@ def test_the_first_screen_decides(demo_page, tmp_path):
     rows = page.locator("#summary-compared tbody tr[data-summary-rule]")
     assert rows.count() == sum(1 for c in results.compared if c.rule.kind != "optimal")
     assert "(" in rows.first.locator('[data-live="sum-diff"]').inner_text()
-    # no raw column name in the grid's headings
+    # what it changes against what courts did, in words; the script writes the tool's sentence
+    from policy.presentation.report.summary import change_sentences
+
+    sentences = [t.strip() for t in page.locator('#summary [data-live="change"]').all_inner_texts()]
+    assert sentences == [text for _, text in change_sentences(results)] and sentences
+        # no raw column name in the grid's headings
     heads = page.locator("#rule-grid thead").inner_text()
     for column in rule.rule_cells.columns:
         assert column not in heads or column == results.scenario.column_label(column)

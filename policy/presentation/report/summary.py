@@ -149,6 +149,31 @@ def compared_rows(results: ReportResults) -> list[dict[str, Any]]:
     return out
 
 
+def change_sentence(name: str, labels, mine, theirs, cost_gap: str, less: bool) -> str:
+    """'Against NAME, the recommended rule gives L1 to a% of cases instead of b%, ..., and costs X less per 1,000 cases.'
+    (The page's script writes the same sentence when a cost moves.)"""
+    parts = [f"{lab} to {m} of cases instead of {t}" if k == 0 else f"{lab} to {m} instead of {t}"
+             for k, (lab, m, t) in enumerate(zip(labels, mine, theirs))]
+    return (f"Against \u201c{name}\u201d, the recommended rule gives " + ", ".join(parts)
+            + f", and costs {cost_gap} {'less' if less else 'more'} per 1,000 cases.")
+
+
+def change_sentences(results: ReportResults) -> list[tuple[int, str]]:
+    """What the recommended rule changes against what courts did (each observed rule), in words."""
+    ev = results.analysis.evaluation
+    mine = [fmt_pct(v, DIGITS["share"]) for v in ev.level_shares]
+    out = []
+    for i, c in enumerate(results.compared):
+        if c.rule.kind != "observed":
+            continue
+        e = c.evaluation
+        gap = 1000.0 * (e.cost_per_case - ev.cost_per_case)
+        out.append((i, change_sentence(c.rule.name, ev.level_labels, mine,
+                                       [fmt_pct(v, DIGITS["share"]) for v in e.level_shares],
+                                       fmt_num(abs(gap), DIGITS["cost"]), gap > 0)))
+    return out
+
+
 def constrained_note(results: ReportResults) -> str:
     """Where the scenario declares constraints: that the grid is the unconstrained optimum, and
     what the constrained rule costs more (its price), so the reader does not take one for the other."""
@@ -186,6 +211,7 @@ def summary_section(results: ReportResults) -> Section:
             "breakpoints": nearest_breakpoints(results),
             "verdicts": [],
             "constrained_note": constrained_note(results),
+            "changes": change_sentences(results),
         },
         assumptions=tuple(assumptions_for("rule")),
     )

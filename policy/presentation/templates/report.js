@@ -303,6 +303,15 @@
       if (!exact) {
         mine("sum-diff", function () { var t = fmtNum(1000 * (r.cost - ev.cost), digits.cost); return t.charAt(0) === "-" ? t : "+" + t; });
       }
+      mine("change", function () {
+        var gap = 1000 * (r.cost - ev.cost);
+        var parts = live.level_labels.map(function (lab, d) {
+          return lab + " to " + fmtPct(ev.shares[d], digits.share) + (d === 0 ? " of cases" : "") + " instead of "
+            + fmtPct(r.shares[d], digits.share);
+        });
+        return "Against \u201c" + rule.name + "\u201d, the recommended rule gives " + parts.join(", ") + ", and costs "
+          + fmtNum(Math.abs(gap), digits.cost) + (gap > 0 ? " less" : " more") + " per 1,000 cases.";
+      });
       for (var d = 0; d < L; d++) { mine("sum-share-" + d, function () { return fmtPct(r.shares[d], digits.share); }); }
       for (var j = 0; j < J; j++) { mine("sum-rate-" + j, function () { return fmtPct(r.rates[j], digits.rate); }); }
     });
