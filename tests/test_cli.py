@@ -98,3 +98,83 @@ def test_public_api_is_guarded():
     assert len(set(policy.__all__)) == len(policy.__all__)
     for name in ("analyze", "estimate_risk_levels", "optimal_rule", "evaluate", "load_scenario", "CellTable"):
         assert name in policy.__all__
+
+
+def test_a_factor_on_per_cell_costs_from_the_command_line_and_the_scenario(tmp_path, capsys):
+    """--decision-cost-factor bond=F multiplies every cell's bond cost, as cost_factor = F in the
+    scenario does, and as the report's control for a per-cell cost does."""
+    import numpy as np
+
+    from policy.decision.costs import CostFactor
+
+    demo = ROOT / "scenarios" / "demo.toml"
+    base = policy.analyze(demo)
+    factored = policy.analyze(demo, decision_costs={"bond": CostFactor(1.5)})
+    np.testing.assert_array_equal(factored.costs.decision[:, 2], base.costs.decision[:, 2] * 1.5)
+    np.testing.assert_array_equal(factored.costs.decision[:, :2], base.costs.decision[:, :2])
+    code, _, err = run_cli(["solve", demo, "--out", tmp_path / "cli", "--decision-cost-factor", "bond=1.5"], capsys)
+    assert code == 0, err
+    text = demo.read_text(encoding="utf-8").replace('cost_column = "bond_cost"', 'cost_column = "bond_cost"\ncost_factor = 1.5')
+    (tmp_path / "factor.toml").write_text(text, encoding="utf-8")
+    from_file = policy.analyze(tmp_path / "factor.toml")
+    np.testing.assert_array_equal(from_file.costs.decision, factored.costs.decision)
+    written = pd.read_csv(tmp_path / "cli" / "rule.csv")
+    assert list(written["level"]) == list(factored.rule.to_frame()["level"])
+    # a factor on a level whose cost is one number, both options for one level, a negative factor
+    for args in (["--decision-cost-factor", "supervision=2"], ["--decision-cost-factor", "bond=2", "--decision-cost", "bond=9"],
+                 ["--decision-cost-factor", "bond=-1"]):
+        code, _, err = run_cli(["solve", demo, "--out", tmp_path / "bad"] + args, capsys)
+        assert code == 2 and "factor" in err, (args, err)
+    assert not (tmp_path / "bad").exists()
+    # cost_factor without cost_column in a scenario file
+    bad = text.replace('cost = 750.0', 'cost = 750.0\ncost_factor = 2.0')
+    (tmp_path / "bad.toml").write_text(bad, encoding="utf-8")
+    code, _, err = run_cli(["check", tmp_path / "bad.toml"], capsys)
+    assert code == 2 and "cost_factor" in err and "cost_column" in err, err
+
+
+def test_costs_csv_writes_a_cost_as_given(tmp_path, capsys):
+    # 0.4 averaged over many equal cells is 0.39999999999999997 in binary floating point (common
+    # practice: the mean of n copies of x need not round-trip to x); one cost is written as given
+    code, _, err = run_cli(["solve", ROOT / "scenarios" / "demo.toml", "--out", tmp_path, "--decision-cost", "supervision=0.4"],
+                           capsys)
+    assert code == 0, err
+    text = (tmp_path / "costs.csv").read_text()
+    assert "supervised release,0.4," in text and "0.39999" not in text
+
+
+def test_check_and_compare_print_labels_and_formatted_numbers(tmp_path, capsys):
+    demo = ROOT / "scenarios" / "demo.toml"
+    code, out, err = run_cli(["check", demo], capsys)
+    assert code == 0, err
+    assert "{" not in out and "missed_court" not in out and "0.96" not in out
+    assert "failure to appear: 96.2%" in " ".join(out.split()) and "20,000" in out
+    code, out, err = run_cli(["compare", demo, "--out", tmp_path, "--replicates", "4", "--no-progress"], capsys)
+    assert code == 0, err
+    flat = " ".join(out.split())
+    assert "missed_court" not in flat and "safe (failure" in flat
+
+
+def test_help_names_values_not_python_types(capsys):
+    for verb in ("solve", "report", "sweep", "compare", "batch"):
+        code, out, _ = run_cli([verb, "--help"], capsys)
+        assert code == 0
+        assert "list[" not in out and "<int>" not in out and "<float>" not in out, verb
+    code, out, _ = run_cli(["solve", "--help"], capsys)
+    assert "--cost KEY=NUMBER" in out and "--decision-cost-factor VALUE=FACTOR" in out
+
+
+def test_sweep_regret_covers_every_compared_rule(tmp_path, capsys):
+    from policy.assessment.compare import compare
+
+    demo = ROOT / "scenarios" / "demo.toml"
+    code, _, err = run_cli(["sweep", demo, "--out", tmp_path, "--ratio", "new_offense", "--replicates", "0",
+                            "--no-figures", "--no-bounds", "--no-progress"], capsys)
+    assert code == 0, err
+    regret = pd.read_csv(tmp_path / "sweep_regret.csv")
+    names = set(regret["rule"])
+    compared = compare(demo, replicates=2)
+    for rule in compared.rules:
+        if rule.kind != "optimal":
+            assert rule.name in names, rule.name
+    assert any(n.startswith("everyone:") for n in names)

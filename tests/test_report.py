@@ -102,7 +102,8 @@ def test_report_builds_for_every_scenario(scenario, tmp_path, capsys):
     # the cautions come before any figure: before the first table and before the controls
     first_caution = text.index("not an assessment of any individual")
     assert first_caution < text.index("What the data hold")
-    assert html.index('id="cautions"') < html.index("<table") < html.index('id="cost-controls"')
+    # the cautions come first, then the controls beside the summary, then the summary's first table
+    assert html.index('id="cautions"') < html.index('id="cost-controls"') < html.index("<table")
     assert "local law" in text and "discretion" in text
     assert "Assumptions behind these figures" in text
     # every cost source of the scenario is on the page
@@ -143,7 +144,9 @@ def test_page_is_self_contained(tmp_path):
     assert not names & {"link", "img", "iframe", "object", "embed", "base", "audio", "video", "source"}
     for tag, attrs in page.tags:
         assert "src" not in attrs, (tag, attrs)
-        assert not attrs.get("href", "#").strip() or attrs.get("href", "#").startswith("#"), (tag, attrs)
+        href = attrs.get("href", "#")
+        # links go within the page, or to a table written beside it
+        assert not href.strip() or href.startswith("#") or href in report.files, (tag, attrs)
         for value in attrs.values():
             assert "://" not in (value or ""), (tag, attrs)
     assert ":root" in page.styles[0]  # the report's own style sheet comes first
@@ -185,7 +188,9 @@ def test_hostile_labels_are_text_everywhere(tmp_path, capsys):
     # no element came from a label: two scripts (island and program), no image, no unknown tag
     assert names.count("script") == 2
     assert "img" not in names and "zzz-hostile" not in names
-    assert names.count("a") == sum(1 for _, attrs in page.tags if attrs.get("href", "").startswith("#"))
+    files = {p.name for p in (tmp_path / "out").iterdir()}
+    assert names.count("a") == sum(1 for _, attrs in page.tags
+                                   if attrs.get("href", "").startswith("#") or attrs.get("href") in files)
     for _, attrs in page.tags:
         assert not any(key.startswith("on") for key in attrs), attrs
     # each label is on the page as written, as text
@@ -222,7 +227,55 @@ def test_controls_say_how_a_per_cell_cost_moves():
     live = island(report.html)["live"]
     bond = [c for c in live["controls"] if c["kind"] == "decision" and c["mode"] == "scale"]
     assert len(bond) == 1 and bond[0]["value"] == 1.0
-    assert "factor on each cell's cost from column bond_cost" in "".join(parse(report.html).text)
+    assert "a factor on each cell's own cost" in "".join(parse(report.html).text)
     for c in live["controls"]:
         assert c["min"] <= c["value"] <= c["max"] and c["step"] > 0
 
+
+
+def test_report_reuses_its_cached_comparison_and_sweeps_until_an_input_changes(tmp_path, capsys):
+    import shutil
+
+    scenario = tmp_path / "demo.toml"
+    shutil.copy(ROOT / "scenarios" / "demo.toml", scenario)
+    out = tmp_path / "out"
+    base = ["report", scenario, "--out", out, "--no-progress"]
+    code, first, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Computing the comparison with 5 bootstrap replicates" in first
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert len(list((out / ".policy-report-cache").iterdir())) == 1
+    code, second, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Reusing the comparison and sweeps" in second
+    assert (out / "report.html").read_text(encoding="utf-8") == html
+    # another cost, another replicate count or an edited scenario file: computed afresh
+    for extra in (["--replicates", 5, "--cost", "new_offense=6000"], ["--replicates", 6]):
+        code, text, err = run_cli(base + extra, capsys)
+        assert code == 0, err
+        assert "Computing the comparison" in text, extra
+    scenario.write_text(scenario.read_text(encoding="utf-8").replace("seed = 20261202", "seed = 7"), encoding="utf-8")
+    code, text, err = run_cli(base + ["--replicates", 5], capsys)
+    assert code == 0, err
+    assert "Computing the comparison" in text
+    assert (out / "report.html").read_text(encoding="utf-8") != html
+
+
+def test_rule_grid_lays_out_every_rule_cell_once():
+    from policy.presentation.report import ReportResults
+    from policy.presentation.report.summary import MAX_ACROSS, rule_grid
+
+    for name in ("demo.toml", "demo_constrained.toml"):
+        analysis = analyze(ROOT / "scenarios" / name)
+        grid = rule_grid(ReportResults(analysis))
+        rule = analysis.rule
+        seen = [cell[0] for _, cells in grid["rows"] for cell in cells if cell is not None]
+        assert sorted(seen) == list(range(rule.n_rule_cells)), name
+        assert 1 <= len(grid["columns"]) <= MAX_ACROSS
+        for _, cells in grid["rows"]:
+            for cell in cells:
+                if cell is not None:
+                    g, d, label, _ = cell
+                    assert d == int(rule.level[g]) and label == rule.level_labels[d]
+        # headings are the scenario's labels, never raw column names with underscores
+        assert "_" not in grid["row_title"] + grid["column_title"], (grid["row_title"], grid["column_title"])

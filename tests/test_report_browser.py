@@ -22,6 +22,7 @@ from policy import costs_from_scenario, evaluate, optimal_rule
 from policy.outputs import write_outputs
 from policy.running.pipeline import analyze
 from policy.presentation.report import DIGITS, build_report
+from policy.presentation.report.sections import shown_name
 
 from .conftest import ROOT, run_cli
 from .test_report import HOSTILE, hostile_scenario
@@ -112,7 +113,7 @@ def number(text: str) -> float:
 
 def compared_rows(page) -> dict:
     """Each compared rule's row: name -> (expected cost, regret, agreement) as shown."""
-    rows = page.locator("#compared-table tbody tr")
+    rows = page.locator("#compared-table tbody tr[data-compared]")
     out = {}
     for i in range(rows.count()):
         row = rows.nth(i)
@@ -151,7 +152,7 @@ def engine(results, outcome_costs=None, decision_costs=None, scale=None):
     if scale:
         costs = costs.with_decision_scale([scale.get(d, 1.0) for d in range(rl.n_levels)])
     rule = optimal_rule(rl, costs)
-    compared = {c.rule.name: evaluate(c.rule, rl, costs, reference=rule) for c in results.compared}
+    compared = {shown_name(c.rule): evaluate(c.rule, rl, costs, reference=rule) for c in results.compared}
     return rule, evaluate(rule, rl, costs), compared
 
 
@@ -383,10 +384,236 @@ def test_constrained_figures_come_from_the_nearest_precomputed_point(browser, co
     assert_constrained_matches(view, fresh)
     assert "nearest" in view["note"] and f"{nearest:,.0f}" in view["note"]
     # the constrained rule held at the scenario's costs is one of the compared rules, live
-    assert analysis.constrained.rule.name in shown(page)["compared"]
+    assert shown_name(analysis.constrained.rule) in shown(page)["compared"]
     assert_matches_engine(shown(page), results, *engine(results, {"new_offense": value}))
     # another cost moved too: the page says the constrained figures do not follow it
     page.locator("#cost-level-1-number").fill("500")
     assert "not reflected" in constrained_shown(page)["note"]
     assert_offline(opened, path)
     page.close()
+
+
+# ----------------------------------------------------------------------------------------------
+# The first screen, the layout at a laptop's and a phone's size, print, and the export
+# ----------------------------------------------------------------------------------------------
+WIDE = {"width": 1366, "height": 900}
+PHONE = {"width": 390, "height": 844}
+
+
+def box(page, selector: str) -> dict:
+    """An element's box in the viewport (CSS pixels)."""
+    return page.evaluate("s => { const r = document.querySelector(s).getBoundingClientRect();"
+                         " return {top: r.top, bottom: r.bottom, left: r.left, right: r.right, width: r.width}; }", selector)
+
+
+def in_view(page, selector: str, size: dict) -> bool:
+    """Whether the element is wholly inside the viewport (to a pixel: focus scrolls to fractional positions)."""
+    b = box(page, selector)
+    return b["top"] >= -1 and b["bottom"] <= size["height"] + 1 and b["left"] >= -1 and b["right"] <= size["width"] + 1
+
+
+def grid_levels(page) -> dict:
+    """The rule grid as shown: rule cell index -> decision level label."""
+    cells = page.locator("[data-grid-cell]")
+    return {int(cells.nth(i).get_attribute("data-grid-cell")):
+            cells.nth(i).locator('[data-live="grid-level"]').inner_text().strip() for i in range(cells.count())}
+
+
+def test_the_first_screen_decides(demo_page, tmp_path):
+    page, results = demo_page
+    page.set_viewport_size(WIDE)
+    page.evaluate("window.scrollTo(0, 0)")
+    # the summary follows the cautions, and it and the whole rule grid are in the first viewport
+    cautions, summary = box(page, "#cautions"), box(page, "#summary")
+    assert cautions["bottom"] <= summary["top"]
+    assert in_view(page, "#rule-grid", WIDE), box(page, "#rule-grid")
+    assert in_view(page, "#summary-title", WIDE)
+    page.screenshot(path=str(tmp_path / "first-screen-1366.png"))
+    # the grid has text in every cell: each rule cell's level, as the engine's rule says
+    rule = results.analysis.rule
+    shown_levels = grid_levels(page)
+    assert sorted(shown_levels) == list(range(rule.n_rule_cells))
+    for g, text in shown_levels.items():
+        assert text == rule.level_labels[int(rule.level[g])], (g, text)
+    # the headline names every decision level with its share
+    shares = [t.strip() for t in page.locator('#summary-shares [data-live="summary-share"]').all_inner_texts()]
+    ev = results.analysis.evaluation
+    assert len(shares) == len(ev.level_labels)
+    for text, share in zip(shares, ev.level_shares):
+        assert close(text, share, DIGITS["share"], 100)
+    headline = page.locator("#summary-shares").inner_text()
+    for label in ev.level_labels:
+        assert label in headline
+    # every compared rule but the optimum has a row in the summary, with the comparison's interval
+    rows = page.locator("#summary-compared tbody tr[data-summary-rule]")
+    assert rows.count() == sum(1 for c in results.compared if c.rule.kind != "optimal")
+    assert "(" in rows.first.locator('[data-live="sum-diff"]').inner_text()
+    # what it changes against what courts did, in words; the script writes the tool's sentence
+    from policy.presentation.report.summary import change_sentences
+
+    sentences = [t.strip() for t in page.locator('#summary [data-live="change"]').all_inner_texts()]
+    assert sentences == [text for _, text in change_sentences(results)] and sentences
+        # no raw column name in the grid's headings
+    heads = page.locator("#rule-grid thead").inner_text()
+    for column in rule.rule_cells.columns:
+        assert column not in heads or column == results.scenario.column_label(column)
+
+
+def test_a_cost_slider_and_the_figures_it_moves_are_in_view_together(demo_page, tmp_path):
+    page, results = demo_page
+    page.set_viewport_size(WIDE)
+    page.evaluate("window.scrollTo(0, 0)")
+    before = grid_levels(page)
+    sliders = page.locator('#cost-controls input[type="range"]')
+    for i in range(sliders.count()):
+        sliders.nth(i).focus()
+        assert in_view(page, "#rule-grid", WIDE), (i, box(page, "#rule-grid"))
+        assert in_view(page, "#cost-figure", WIDE), (i, box(page, "#cost-figure"))
+        assert in_view(page, f"#{sliders.nth(i).get_attribute('id')}", WIDE)
+    # scrolled down the page, the panel stays beside the figures
+    page.evaluate("window.scrollTo(0, 6000)")
+    j = results.scenario.outcome_index("new_offense")
+    slider = page.locator(f"#cost-outcome-{j}-range")
+    slider.focus()
+    assert in_view(page, f"#cost-outcome-{j}-range", WIDE)
+    page.evaluate("window.scrollTo(0, 0)")
+    slider.focus()
+    for _ in range(8):
+        page.keyboard.press("PageUp")
+    assert in_view(page, "#rule-grid", WIDE) and in_view(page, "#cost-figure", WIDE)
+    after = grid_levels(page)
+    assert after != before
+    value = float(slider.input_value())
+    rule, ev, _ = engine(results, {"new_offense": value})
+    for g, text in after.items():
+        assert text == rule.level_labels[int(rule.level[g])]
+    changed = page.locator("td.changed[data-grid-cell]")
+    assert changed.count() == int((rule.level != results.analysis.rule.level).sum()) > 0
+    assert "was" in changed.first.inner_text()
+    page.screenshot(path=str(tmp_path / "slider-focused-1366.png"))
+    page.locator("#reset-costs").click()
+
+
+def test_on_a_phone_charts_are_full_width_and_tables_fit(demo_page, tmp_path):
+    page, results = demo_page
+    page.set_viewport_size(PHONE)
+    page.evaluate("window.scrollTo(0, 0)")
+    page.screenshot(path=str(tmp_path / "first-screen-390.png"))
+    # nothing runs off the side of the page
+    assert page.evaluate("document.documentElement.scrollWidth") <= PHONE["width"]
+    # charts: every figure and bar as wide as the viewport less the page's margins
+    margins = 2 * 16
+    widths = page.evaluate("Array.from(document.querySelectorAll('figure svg, svg.bar'))"
+                           ".filter(e => e.getClientRects().length).map(e => e.getBoundingClientRect().width)")
+    assert widths and min(widths) >= PHONE["width"] - margins - 1, sorted(widths)[:5]
+    # and their text reads: no letter of a chart's text (drawn as SVG text) smaller than 9 CSS pixels
+    smallest = page.evaluate("Math.min(...Array.from(document.querySelectorAll('figure svg text')).map(t =>"
+                             " parseFloat(getComputedStyle(t).fontSize) * Math.hypot(t.getScreenCTM().a, t.getScreenCTM().b)))")
+    assert smallest >= 9.0, smallest
+    # tables: none wider than the space it has
+    over = page.evaluate("Array.from(document.querySelectorAll('table')).filter(t => t.getClientRects().length)"
+                         ".filter(t => t.scrollWidth > t.parentElement.clientWidth + 1"
+                         " || t.getBoundingClientRect().right > window.innerWidth + 1).map(t => t.id || t.className"
+                         " || (t.caption && t.caption.textContent))")
+    assert not over, over
+    # the summary and its grid come before the controls, and the grid fits the screen's width
+    assert box(page, "#summary")["top"] < box(page, "#control-panel")["top"]
+    grid = box(page, "#rule-grid")
+    assert grid["left"] >= 0 and grid["right"] <= PHONE["width"]
+    page.set_viewport_size({"width": 1280, "height": 1000})
+
+
+def pdf_pages(pdf: bytes) -> int:
+    """Pages of a PDF: its page objects (ISO 32000-1, 7.7.3.3: a page object has /Type /Page)."""
+    import re
+
+    return len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", pdf))
+
+
+def test_the_summary_prints_on_at_most_two_a4_pages(demo_page, tmp_path):
+    page, results = demo_page
+    page.emulate_media(media="print")
+    whole = page.pdf(format="A4", print_background=True)
+    (tmp_path / "report.pdf").write_bytes(whole)
+    # the summary (title, cautions, summary) alone: the rest of the page starts on a new page in print
+    assert page.evaluate("getComputedStyle(document.querySelector('.rest')).breakBefore") == "page"
+    # the grid and the summary's tables are not cut across pages
+    for selector in ("#rule-grid", "#summary-compared"):
+        assert page.evaluate(f"getComputedStyle(document.querySelector('{selector}')).breakInside") == "avoid"
+    page.add_style_tag(content=".rest, footer { display: none !important; }")
+    first = page.pdf(format="A4", print_background=True)
+    (tmp_path / "summary.pdf").write_bytes(first)
+    page.emulate_media(media="screen")
+    assert 1 <= pdf_pages(first) <= 2, pdf_pages(first)
+    assert pdf_pages(whole) > pdf_pages(first)
+
+
+def test_the_exported_command_line_reproduces_the_page(demo_page, tmp_path, capsys):
+    import json
+    import shlex
+    import tomllib
+    from urllib.parse import unquote
+
+    import pandas as pd
+
+    page, results = demo_page
+    analysis = results.analysis
+    j = analysis.scenario.outcome_index("new_offense")
+    page.locator(f"#cost-outcome-{j}-range").focus()
+    for _ in range(6):
+        page.keyboard.press("PageUp")
+    set_number(page, "cost-level-1", "612.5")
+    set_number(page, "cost-level-2", "1.37")
+    view = shown(page)
+    page.locator("#export summary").click()
+    command = page.locator("#export-command").input_value()
+    words = shlex.split(command)
+    assert words[:2] == ["policy", "solve"]
+    assert "--decision-cost-factor" in words and "bond=1.37" in words
+    out = tmp_path / "chosen"
+    args = words[1:]
+    args[args.index("--out") + 1] = str(out)
+    code, _, err = run_cli(args, capsys)
+    assert code == 0, err
+    # the command's figures are the page's, to the digits the page shows
+    evaluation = json.loads((out / "evaluation.json").read_text())
+    written = pd.read_csv(out / "rule.csv")
+    value = float(page.locator(f"#cost-outcome-{j}-number").input_value())
+    rule, ev, compared = engine(results, {"new_offense": value}, {"supervision": 612.5}, scale={2: 1.37})
+    assert_matches_engine(view, results, rule, ev, compared)
+    assert list(written["level"]) == [rule.level_labels[int(d)] for d in rule.level]
+    assert list(written["level"]) == [grid_levels(page)[g] for g in range(rule.n_rule_cells)]
+    overview = evaluation["overview"]
+    assert close(view["cost"], overview["cost_per_case"], DIGITS["cost"], 1000), overview
+    for d, text in enumerate(view["shares"]):
+        assert close(text, overview[f"share_level_{d}"], DIGITS["share"], 100), (text, overview)
+    for k, text in zip(analysis.scenario.outcome_keys, view["rates"]):
+        assert close(text, overview[f"rate_{k}"], DIGITS["rate"], 100), (text, overview)
+    # the snippet, put in the scenario, gives the same costs
+    snippet = tomllib.loads(page.locator("#export-snippet").input_value())
+    bond = [d for d in snippet["decisions"] if d["value"] == "bond"][0]
+    assert bond["cost_factor"] == 1.37 and [d for d in snippet["decisions"] if d["value"] == "supervision"][0]["cost"] == 612.5
+    assert [o for o in snippet["outcomes"] if o["key"] == "new_offense"][0]["cost"] == value
+    # the rule as CSV, from the page itself
+    href = page.locator("#export-rule").get_attribute("href")
+    assert href.startswith("data:text/csv;charset=utf-8,")
+    from io import StringIO
+
+    csv = pd.read_csv(StringIO(unquote(href.split(",", 1)[1])))
+    assert list(csv["level"]) == list(written["level"])
+    assert list(csv.columns[: len(rule.rule_cells.columns)]) == list(rule.rule_cells.columns)
+    # the breakpoints the page shows at these costs are the exact sweep's nearest ones
+    from policy.assessment.sweep import sweep_scenario
+    from policy.decision.costs import CostFactor
+
+    costs = {"new_offense": value}
+    decisions = {"supervision": 612.5, "bond": CostFactor(1.37)}
+    swept = sweep_scenario(analysis.scenario, ["new_offense"], ranges=[(0.0, 40.0)], outcome_costs=costs,
+                           decision_costs=decisions, gammas=[], bounds=False).sweep
+    table = swept.breakpoints()
+    item = page.locator(f'#summary-breakpoints li[data-outcome="{j}"]')
+    above = table[table["cost"] > value]["cost"].min()
+    below = table[table["cost"] < value]["cost"].max()
+    assert close(item.locator('[data-live="bp-above"]').inner_text(), above, 0), (above, item.inner_text())
+    assert close(item.locator('[data-live="bp-below"]').inner_text(), below, 0), (below, item.inner_text())
+    page.locator("#reset-costs").click()

@@ -89,3 +89,69 @@ def test_every_scenario_file_loads():
     assert files, "scenarios/ holds no scenario"
     for f in files:
         load_scenario(f)
+
+
+def test_numeric_cell_columns_binned_in_the_scenario(tmp_path):
+    """[cells] bins cut a numeric column into labelled intervals, closed below, open above."""
+    import numpy as np
+    import pandas as pd
+
+    import policy
+    from policy.errors import InputError
+    from policy.inputs.bins import Bins, default_labels
+
+    b = Bins((25.0, 40.0), ("young", "middle", "older"))
+    # searchsorted(side="right") puts a value equal to a cut in the interval above it (numpy docs)
+    assert list(b.labels_of(np.array([18, 24.9, 25, 39, 40, 77, np.nan]))) == ["young", "young", "middle", "middle",
+                                                                          "older", "older", None]
+    assert default_labels([25, 40]) == ("under 25", "25 to under 40", "40 or more")
+
+    rng = np.random.default_rng(3)
+    n = 600
+    ages = rng.integers(18, 70, n)
+    frame = pd.DataFrame({"age": ages, "decision": rng.choice(["r", "b"], n),
+                          "fta": rng.integers(0, 2, n)})
+    frame.to_csv(tmp_path / "cases.csv", index=False)
+    text = """[scenario]
+title = "binned ages (invented)"
+[data]
+case_table = "cases.csv"
+[[decisions]]
+value = "r"
+label = "release"
+cost = 0.0
+[[decisions]]
+value = "b"
+label = "bond"
+cost = 500.0
+[[outcomes]]
+key = "fta"
+label = "failure to appear"
+cost = 1000.0
+[costs]
+unit = "USD"
+[cells]
+covariates = ["age"]
+rule = ["age"]
+BINS
+"""
+    (tmp_path / "s.toml").write_text(text.replace("BINS", 'bins = { age = { cuts = [25, 40], labels = ["18-24", "25-39", "40+"] } }'))
+    analysis = policy.analyze(tmp_path / "s.toml")
+    frame_rule = analysis.rule.to_frame()
+    assert list(frame_rule["age"]) == ["18-24", "25-39", "40+"]
+    expected = [int((ages < 25).sum()), int(((ages >= 25) & (ages < 40)).sum()), int((ages >= 40).sum())]
+    assert list(frame_rule["cases"]) == expected
+    # bad bins: each message names the key and what was expected
+    for bins, words in (('{ age = { cuts = [40, 25] } }', "increase"),
+                        ('{ age = { cuts = [25], labels = ["a"] } }', "2 non-empty texts"),
+                        ('{ sex = { cuts = [1] } }', "not a cell column"),
+                        ('{ age = { cuts = [] } }', "non-empty list")):
+        (tmp_path / "bad.toml").write_text(text.replace("BINS", f"bins = {bins}"))
+        with pytest.raises(InputError, match=words):
+            policy.analyze(tmp_path / "bad.toml")
+    # a value that is not a number names the file, column, row and value
+    frame["age"] = frame["age"].astype(object)
+    frame.loc[7, "age"] = "unknown"
+    frame.to_csv(tmp_path / "cases.csv", index=False)
+    with pytest.raises(InputError, match=r"cases.csv: column 'age' is binned.*row 8 with 'unknown'"):
+        policy.analyze(tmp_path / "s.toml")

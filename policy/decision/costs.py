@@ -21,7 +21,7 @@ from policy.errors import InputError
 from policy.inputs.scenario import Scenario
 from policy.estimation.strata import RiskLevels
 
-__all__ = ["Costs", "costs_from_scenario", "expected_cost"]
+__all__ = ["CostFactor", "Costs", "costs_from_scenario", "expected_cost"]
 
 
 @dataclass(frozen=True)
@@ -69,9 +69,25 @@ class Costs:
 
     def to_frame(self) -> pd.DataFrame:
         """The weights as a table: kind (decision / outcome), name, mean cost per case, unit."""
-        rows = [("decision", lab, float(self.decision[:, d].mean()), self.unit) for d, lab in enumerate(self.level_labels)]
+        def mean(column: np.ndarray) -> float:
+            # one cost in every cell is written as given (0.4, not the mean's 0.39999999999999997)
+            return float(column[0]) if len(column) and column.min() == column.max() else float(column.mean())
+
+        rows = [("decision", lab, mean(self.decision[:, d]), self.unit) for d, lab in enumerate(self.level_labels)]
         rows += [("outcome", lab, float(c), self.unit) for lab, c in zip(self.outcome_labels, self.outcome)]
         return pd.DataFrame(rows, columns=["kind", "name", "cost", "unit"])
+
+
+class CostFactor(float):
+    """A decision-cost override that is a factor on the level's per-cell costs from its
+    ``cost_column`` (in place of the scenario's ``cost_factor``), not a flat cost per case.
+
+    ``decision_costs={"bond": CostFactor(1.5)}`` gives every cell 1.5 times its own bond cost;
+    ``{"bond": 1.5}`` would give every case a flat cost of 1.5.
+    """
+
+    def __repr__(self) -> str:
+        return f"CostFactor({float(self)!r})"
 
 
 def costs_from_scenario(scenario: Scenario, risk_levels: RiskLevels,
@@ -85,7 +101,8 @@ def costs_from_scenario(scenario: Scenario, risk_levels: RiskLevels,
     risk_levels : RiskLevels
         Supplies the cells and their per-cell cost columns.
     outcome_costs, decision_costs : mapping, optional
-        Overrides by outcome key / decision value (for what-if runs from the command line).
+        Overrides by outcome key / decision value (for what-if runs from the command line). A
+        decision override that is a :class:`CostFactor` multiplies the level's per-cell costs.
     """
     n = risk_levels.n_cells
     decision = np.empty((n, len(scenario.levels)))
@@ -93,9 +110,13 @@ def costs_from_scenario(scenario: Scenario, risk_levels: RiskLevels,
     for key in overrides:
         scenario.level_index(key, "decision cost override")
     for d, level in enumerate(scenario.levels):
-        if level.value in overrides or level.label in overrides:
-            decision[:, d] = float(overrides.get(level.value, overrides.get(level.label)))
+        given = overrides.get(level.value, overrides.get(level.label))
+        if given is not None and not isinstance(given, CostFactor):
+            decision[:, d] = float(given)
         elif level.cost is not None:
+            if given is not None:
+                raise InputError(f"a cost factor for decision level {level.value!r} needs a per-cell cost (cost_column); "
+                                 f"its cost is one number, {level.cost:g}: set it directly instead.")
             decision[:, d] = level.cost
         else:
             if level.cost_column not in risk_levels.cell_costs:
@@ -103,7 +124,8 @@ def costs_from_scenario(scenario: Scenario, risk_levels: RiskLevels,
                     f"{scenario.file}: decision level {level.value!r} takes its cost from column {level.cost_column!r}, "
                     "which the data do not hold."
                 )
-            decision[:, d] = risk_levels.cell_costs[level.cost_column]
+            factor = level.cost_factor if given is None else float(given)
+            decision[:, d] = np.asarray(risk_levels.cell_costs[level.cost_column], dtype=np.float64) * factor
     outcome = np.array([o.cost for o in scenario.outcomes], dtype=np.float64)
     for key, value in (outcome_costs or {}).items():
         outcome[scenario.outcome_index(key, "outcome cost override")] = float(value)

@@ -265,6 +265,10 @@ class CellTable:
                     rows = np.flatnonzero(bad)
                     raise InputError(f"{file}: {text} in {len(rows)} rows (first: row {rows[0] + 1}); counts must nest.")
         cell_codes, categories = [], {}
+        if scenario.bins:
+            from policy.inputs.bins import apply_bins
+
+            frame = apply_bins(frame, scenario.bins, file)
         for col in scenario.cell_columns:
             codes, cats = code_cell_column(frame[col], col, file, scenario.order.get(col),
                                            col in scenario.rule_covariates or col == scenario.aid.score)

@@ -317,6 +317,10 @@ def count_block(frame: pd.DataFrame, scenario: Scenario, file: str, whole: bool 
     """
     typed = frame.attrs.get("format") == "parquet"
     require_columns(frame.columns, _case_columns(scenario), file, f"named in {scenario.file}")
+    if scenario.bins:
+        from policy.inputs.bins import apply_bins
+
+        frame = apply_bins(frame, scenario.bins, file)
     if whole and len(frame) == 0:
         raise InputError(f"{file}: the case table has no rows.")
     if whole and scenario.case_id is not None:

@@ -148,6 +148,7 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("label", (str,), True, doc="the level's name in outputs"),
         Key("cost", (float,), doc="cost of imposing this level on one case, in the cost unit"),
         Key("cost_column", (str,), doc="column holding a per-case cost of this level, averaged per cell"),
+        Key("cost_factor", (float,), False, 1.0, "with cost_column: a factor on every cell's cost from the column (what-if runs; default 1)"),
         Key("cost_source", (str,), False, "", "where the cost comes from, with its provenance"),
     ),
     "[[outcomes]]": (
@@ -167,6 +168,8 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("protected", (list,), False, [], "protected attributes; also part of the cell", item_type=str),
         Key("rule", (list,), True, doc="columns a rule may use; each a covariate or protected attribute", item_type=str),
         Key("order", (dict,), False, {}, "optional display order of a covariate's values: name = [values]"),
+        Key("bins", (dict,), False, {}, "optional intervals of a numeric cell column: name = { cuts = [numbers], labels = [texts] }"),
+        Key("labels", (dict,), False, {}, "optional display names of cell columns in outputs: name = \"label\" (default: the name with spaces for _)"),
     ),
     "[aid]": (
         Key("name", (str,), False, "the risk aid", "name of the risk-assessment aid"),
@@ -220,6 +223,8 @@ class DecisionLevel:
     cost: float | None
     cost_column: str | None
     cost_source: str = ""
+    #: factor on every cell's cost from ``cost_column`` (1 unless a what-if run sets it)
+    cost_factor: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -272,6 +277,10 @@ class Scenario:
     decision: str = "decision"
     cost_note: str = ""
     order: Mapping[str, tuple] = field(default_factory=dict)
+    #: display names of cell columns given in ``[cells] labels``
+    labels: Mapping[str, str] = field(default_factory=dict)
+    #: numeric cell columns cut into labelled intervals (``[cells] bins``; :mod:`policy.inputs.bins`)
+    bins: Mapping[str, Any] = field(default_factory=dict)
     aid: AidSettings = AidSettings()
     estimator: EstimatorSettings = EstimatorSettings()
     path: Path | None = None
@@ -289,6 +298,10 @@ class Scenario:
     def cell_columns(self) -> tuple[str, ...]:
         """Every column that defines a cell: covariates then protected attributes."""
         return self.covariates + tuple(p for p in self.protected if p not in self.covariates)
+
+    def column_label(self, column: str) -> str:
+        """A cell column's display name: its ``[cells] labels`` entry, else the name with spaces for ``_``."""
+        return self.labels.get(column) or str(column).replace("_", " ")
 
     @property
     def level_values(self) -> tuple[str, ...]:
@@ -386,6 +399,17 @@ class Scenario:
             if twice:
                 raise InputError(f"{file}: [cells] order.{name} lists {twice[0]!r} twice; list each value once.")
             order[name] = tuple(values)
+        from policy.inputs.bins import parse_bins
+
+        bins = parse_bins(cells["bins"], cell_columns, order, file)
+        order.update({name: b.labels for name, b in bins.items()})
+        labels = {}
+        for name, text in cells["labels"].items():
+            if name not in cell_columns:
+                raise InputError(f"{file}: [cells] labels names {name!r}, which is not a cell column; expected one of: {', '.join(cell_columns)}.")
+            if not isinstance(text, str) or not text.strip():
+                raise InputError(f"{file}: [cells] labels.{name} must be a non-empty text; got {text!r}.")
+            labels[name] = text.strip()
         if aid["score"] is not None and aid["score"] not in cell_columns:
             raise InputError(f"{file}: [aid] score {aid['score']!r} must be a cell covariate; expected one of: {', '.join(cell_columns)}.")
         for p in est["target_covariates"] or ():
@@ -417,6 +441,8 @@ class Scenario:
             protected=protected,
             rule_covariates=tuple(cells["rule"]),
             order=order,
+            labels=labels,
+            bins=bins,
             cost_unit=costs["unit"],
             cost_note=costs["note"],
             aid=AidSettings(**aid),
@@ -460,7 +486,11 @@ def _levels(raw: Any, file: str) -> list[DecisionLevel]:
             raise InputError(f"{file}: {where} must give exactly one of 'cost' (a number) or 'cost_column' (a column name).")
         if d["cost"] is not None and d["cost"] < 0:
             raise InputError(f"{file}: key 'cost' in {where} must be >= 0; got {d['cost']!r}.")
-        out.append(DecisionLevel(str(d["value"]), d["label"], d["cost"], d["cost_column"], d["cost_source"]))
+        if "cost_factor" in entry and d["cost_column"] is None:
+            raise InputError(f"{file}: key 'cost_factor' in {where} applies only with 'cost_column'; give the cost itself in 'cost'.")
+        if not (d["cost_factor"] >= 0 and d["cost_factor"] < float("inf")):
+            raise InputError(f"{file}: key 'cost_factor' in {where} must be a finite number >= 0; got {d['cost_factor']!r}.")
+        out.append(DecisionLevel(str(d["value"]), d["label"], d["cost"], d["cost_column"], d["cost_source"], float(d["cost_factor"])))
     for attr in ("value", "label"):
         seen = [getattr(lv, attr) for lv in out]
         dup = sorted({v for v in seen if seen.count(v) > 1})

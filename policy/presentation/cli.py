@@ -13,12 +13,13 @@ from typing import List, Optional
 import functools
 
 import typer
-from rich.text import Text
 
-from policy.cautions import CAUTIONS, assumptions_for
+from policy.presentation.terminal import Table, _comparison_table, _difference_matrix, _print_analysis, _print_doubt, _print_ranges, _risk_table, console, err_console, show_arm_check, show_assumptions, show_cautions, show_written
+from policy.presentation.cli_options import ConstraintOption, CostOption, DecisionCostOption, DecisionFactorOption, GroupBlindOption, IgnoreConstraintsOption, IntervalOption, LPSolverOption, MaxRateOption, MaxShareOption, OutOption, OutcomesOption, OverwriteOption, PrincipalFairnessOption, ProgressOption, ReplicatesOption, ResamplingOption, RobustBoundsOption, RobustGammaOption, RunOnOption, SafeAgainstOption, SeedOption, WorkersOption, _constraint_options, _decision_costs, _doubt, _pairs, _ranges, _runner, _vary
+from policy.cautions import assumptions_for
 from policy.errors import InputError, PolicyError
 from policy.inputs.limits import MAX_REPLICATES, number as check_number
-from policy.presentation.checks import (MAX_GRID_POINTS, VisibleConsole, check_constraint_numbers, check_options,
+from policy.presentation.checks import (MAX_GRID_POINTS, check_options,
                                         claim, most_workers)
 
 app = typer.Typer(
@@ -31,22 +32,9 @@ app = typer.Typer(
         "decision about an individual."
     ),
 )
-# markup is off: labels from scenario files are printed as written, never as styles
-console = VisibleConsole(highlight=False, markup=False, width=120, soft_wrap=True)
-err_console = VisibleConsole(stderr=True, highlight=False, markup=False, soft_wrap=True)
-
-def Table(*args, **kwargs):
-    """A rich table (rich.table is imported when a command prints one, not at start-up)."""
-    from rich.table import Table as RichTable
-
-    return RichTable(*args, **kwargs)
 
 
-def Panel(*args, **kwargs):
-    """A rich panel (imported when used, like :func:`Table`)."""
-    from rich.panel import Panel as RichPanel
 
-    return RichPanel(*args, **kwargs)
 
 
 def command(fn):
@@ -70,147 +58,32 @@ def command(fn):
     return app.command()(run)
 
 
-OutOption = typer.Option(..., "--out", "-o", help="Output folder (created if missing).")
-OverwriteOption = typer.Option(False, "--overwrite", help="Replace files in the output folder that this tool did not write "
-                               "(or that were changed since); without it such files are left alone and the run is refused.")
-CostOption = typer.Option(None, "--cost", help="Override an outcome cost: KEY=NUMBER (repeatable).")
-DecisionCostOption = typer.Option(None, "--decision-cost", help="Override a decision level's cost: VALUE=NUMBER (repeatable).")
-ConstraintOption = typer.Option(None, "--constraint", help="Add a constraint with the keys of a [[constraints]] table: kind=capacity,at_least=bond,max_share=0.15 (repeatable; list values joined by |).")
-GroupBlindOption = typer.Option(False, "--group-blind", help="Add: the rule may not use any protected attribute.")
-PrincipalFairnessOption = typer.Option(None, "--principal-fairness", help="Add principal fairness for an outcome: OUTCOME=TOLERANCE, e.g. new_offense=0.02 (repeatable).")
-MaxShareOption = typer.Option(None, "--max-share", help="Add a capacity cap: LEVEL=SHARE of cases at that level or harsher, e.g. bond=0.15 (repeatable).")
-MaxRateOption = typer.Option(None, "--max-rate", help="Add an outcome-rate cap: OUTCOME=RATE, e.g. missed_court=0.15 (repeatable).")
-IgnoreConstraintsOption = typer.Option(False, "--ignore-scenario-constraints", help="Leave out the scenario's own [[constraints]].")
-ReplicatesOption = typer.Option(None, "--replicates", help="Bootstrap replicates (default: [uncertainty] replicates, 1000; 0: no intervals).")
-SeedOption = typer.Option(None, "--seed", help="Root seed of the bootstrap (default: [scenario] seed).")
-ResamplingOption = typer.Option(None, "--resampling", help="'poisson' or 'multinomial' (default: [uncertainty] resampling).")
-OutcomesOption = typer.Option(None, "--outcomes", help="'model' or 'cases' (default: [uncertainty] outcomes).")
-IntervalOption = typer.Option(None, "--interval", help="Coverage of the intervals (default: [uncertainty] interval, 0.95).")
-WorkersOption = typer.Option(None, "--workers", help="Worker processes (default: this process, or up to every idle core when the measured work pays for starting them); the output does not depend on it.")
-ProgressOption = typer.Option(True, "--progress/--no-progress", help="Show progress bars.")
-RunOnOption = typer.Option(None, "--run-on", help="Where independent tasks run: here (this process), local or local:N "
-                           "(a Dask cluster of N worker processes on this machine), or a Dask scheduler address such as "
-                           "tcp://10.0.0.5:8786. Results are the same wherever they run. Dask is an optional extra: "
-                           'pip install "policy-release-rules[distributed]".')
-RobustGammaOption = typer.Option(None, "--robust-gamma", help="Also solve the robust rule: least worst-case expected cost when the odds of an outcome may differ by this factor G >= 1 between cases given different decisions.")
-RobustBoundsOption = typer.Option(False, "--robust-bounds", help="Also solve the robust rule over the monotone-response bounds (monotonicity only).")
-SafeAgainstOption = typer.Option(None, "--safe-against", help="Also solve the safe rule against this rule (courts, courts-shown, courts-not-shown, aid, optimum or a candidate's name): least worst-case regret over the set of --robust-gamma or --robust-bounds.")
-LPSolverOption = typer.Option(None, "--lp-solver", help="LP solver for constrained rules (overrides [linear_program] solver), e.g. HIGHS, CLARABEL.")
 
 
-def _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver):
-    """Constraints added on the command line (as tables) and the LP settings in force."""
-    from dataclasses import replace
-
-    from policy.decision.constrained import lp_settings_from_table
-    from policy.decision.constraints import parse_constraint_text, shorthand_tables
-
-    check_constraint_numbers(principal_fairness, max_share, max_rate)
-    added = [parse_constraint_text(text) for text in constraint or []]
-    added += shorthand_tables(group_blind, principal_fairness or [], max_share or [], max_rate or [])
-    settings = sc.sections.get("linear_program")
-    if solver is not None:
-        chosen = lp_settings_from_table({"solver": solver}, "--lp-solver", "the option")
-        settings = replace(settings, solver=chosen.solver)
-    return added, settings
 
 
-def _doubt(gamma, bounds, safe_against):
-    """The robust/safe rule options as DoubtSettings (None when none was given)."""
-    from policy.decision.doubt import DoubtSettings
-
-    if gamma is not None and bounds:
-        raise InputError("give --robust-gamma or --robust-bounds, not both.")
-    if gamma is not None and not 1 <= gamma < float("inf"):
-        raise InputError(f"--robust-gamma must be a finite number >= 1 (or use --robust-bounds); got {gamma!r}.")
-    if safe_against is not None and gamma is None and not bounds:
-        raise InputError("--safe-against needs a set to guard against: add --robust-gamma G or --robust-bounds.")
-    doubt = DoubtSettings(gamma=gamma, bounds=bounds, safe_against=safe_against)
-    return doubt if doubt.wanted else None
 
 
-def _print_doubt(found) -> None:
-    console.print("Rules that hold under doubt:", style="bold")
-    console.print(found.summary())
-    console.print("Assumptions behind the robust and safe rules:", style="bold")
-    for a in found.robust.bounds.assumptions:
-        console.print(f"  - {a}")
 
 
-def _pairs(values: Optional[List[str]], what: str) -> dict[str, float]:
-    out: dict[str, float] = {}
-    for item in values or []:
-        key, sep, value = item.partition("=")
-        try:
-            number = float(value)
-        except ValueError:
-            number = None
-        if not sep or not key or number is None:
-            raise InputError(f"{what} {item!r} must look like NAME=NUMBER, e.g. new_offense=8000.")
-        out[key.strip()] = check_number(number, f"{what} {item}", low=0)
-    return out
 
 
-def show_cautions() -> None:
-    console.print(Panel("\n".join(f"- {c}" for c in CAUTIONS), title="Cautions", border_style="yellow"), soft_wrap=False)
 
 
-def show_assumptions(figure: str) -> None:
-    console.print("Assumptions behind these figures:", style="bold")
-    for a in assumptions_for(figure):
-        console.print(f"  - {a}")
 
 
-def show_arm_check(check) -> None:
-    """The randomized arm's verdict on unconfoundedness (printed right after the cautions)."""
-    if check is None:
-        return
-    lines = check.lines()
-    console.print(lines[0], style="bold red" if check.rejects else "green")
-    for line in lines[1:]:
-        console.print(line)
 
 
-def show_written(paths) -> None:
-    console.print(f"Wrote {len(paths)} files to {paths[0].parent if paths else '?'}: "
-                  + ", ".join(p.name for p in paths))
 
 
-def _rule_table(analysis) -> Table:
-    rule = analysis.rule
-    frame = rule.to_frame()
-    table = Table(title=f"{rule.name} (by {', '.join(rule.rule_cells.columns)})", show_lines=False)
-    for col in rule.rule_cells.columns:
-        table.add_column(col)
-    table.add_column("decision")
-    table.add_column("cases", justify="right")
-    for _, row in frame.iterrows():
-        level = row["level"] + (" (split)" if row["split"] else "")
-        table.add_row(*[str(row[c]) for c in rule.rule_cells.columns], level, f"{row.get('cases', float('nan')):,.0f}")
-    return table
 
 
-def _evaluation_table(evaluation, unit: str) -> Table:
-    table = Table(title="Expected consequences of the rule")
-    table.add_column("figure")
-    table.add_column("value", justify="right")
-    table.add_row(f"expected cost per 1,000 cases ({unit})", f"{evaluation.cost_per_1000:,.0f}")
-    for lab, share in zip(evaluation.level_labels, evaluation.level_shares):
-        table.add_row(f"share: {lab}", f"{share:.1%}")
-    for lab, rate in zip(evaluation.outcome_labels, evaluation.outcome_rates):
-        table.add_row(f"expected rate: {lab}", f"{rate:.1%}")
-    return table
 
 
-def _risk_table(rl) -> Table:
-    summary = rl.summary(by_group=False)
-    table = Table(title="Risk levels (share of cases)")
-    table.add_column("outcome")
-    for col in summary.columns:
-        table.add_column(col, justify="right")
-    for name, row in summary.iterrows():
-        table.add_row(str(name), *[f"{v:.1%}" for v in row])
-    return table
+
+
+
+
 
 
 @command
@@ -241,8 +114,8 @@ def check(scenario: Path = typer.Argument(..., help="Scenario file (TOML).")):
     table = Table(title=f"{report.scenario.title}: what the data hold")
     table.add_column("finding")
     table.add_column("value")
-    for key, value in report.findings.items():
-        table.add_row(key, str(value))
+    for key, value in report.rows():
+        table.add_row(key, value)
     console.print(table)
     console.print("The scenario and its data are valid.", style="green")
     show_arm_check(report.arm_check)
@@ -276,58 +149,10 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     show_written(paths)
 
 
-def _print_analysis(analysis) -> None:
-    console.print(analysis.scenario.title, style="bold")
-    console.print(_risk_table(analysis.risk_levels))
-    console.print(_rule_table(analysis))
-    console.print(_evaluation_table(analysis.evaluation, analysis.costs.unit))
-    if getattr(analysis, "constrained", None) is not None:
-        _print_constrained(analysis.constrained)
-    show_assumptions("rule")
-    show_cautions()
-    show_arm_check(getattr(analysis, "arm_check", None))
 
 
-def _constraint_table(constrained) -> Table:
-    frame = constrained.to_frame()
-    table = Table(title=f"Constraints (price {constrained.price_per_1000:,.0f} {constrained.unit} per 1,000 cases "
-                        "above the unconstrained optimum)")
-    for col in ("constraint", "bound", "reached", "binds", "saving if loosened one point, per 1,000", "saving if removed per 1,000"):
-        table.add_column(col, justify="left" if col == "constraint" else "right")
-    for _, row in frame.iterrows():
-        bound = "-" if row["kind"] == "group_blind" else f"{row['bound_key']} {row['bound']:g}"
-        table.add_row(f"{row['constraint']} ({row['kind']})", bound,
-                      "" if row["value"] != row["value"] else f"{row['value']:.4g}",
-                      "yes" if row["binding"] else "no",
-                      "" if row["saving_per_point_per_1000"] != row["saving_per_point_per_1000"] or row["kind"] == "group_blind"
-                      else f"{row['saving_per_point_per_1000']:,.0f}",
-                      f"{row['saving_if_removed_per_1000']:,.0f}")
-    return table
 
 
-def _print_constrained(constrained) -> None:
-    rule = constrained.rule
-    frame = rule.to_frame()
-    table = Table(title=f"{rule.name} (by {', '.join(rule.rule_cells.columns) or 'nothing'})")
-    for col in rule.rule_cells.columns:
-        table.add_column(col)
-    table.add_column("decision")
-    table.add_column("cases", justify="right")
-    for _, row in frame.iterrows():
-        if row["split"]:
-            level = " / ".join(f"{lab} {row[f'share_{v}']:.0%}" for v, lab in zip(rule.level_values, rule.level_labels)
-                               if row[f"share_{v}"] > 1e-6)
-        else:
-            level = row["level"]
-        table.add_row(*[str(row[c]) for c in rule.rule_cells.columns], level, f"{row.get('cases', float('nan')):,.0f}")
-    console.print(table)
-    console.print(_constraint_table(constrained))
-    console.print(_evaluation_table(constrained.evaluation, constrained.unit))
-    if len(rule.split_cells):
-        console.print(f"{len(rule.split_cells)} rule cells are split between levels: the optimum randomizes there "
-                      "(shares above); a court would apply the levels to those shares of the cell's cases.")
-    for note in constrained.notes:
-        console.print(f"note: {note}")
 
 
 @command
@@ -336,6 +161,7 @@ def solve(
     out: Path = OutOption,
     cost: Optional[List[str]] = CostOption,
     decision_cost: Optional[List[str]] = DecisionCostOption,
+    decision_cost_factor: Optional[List[str]] = DecisionFactorOption,
     constraint: Optional[List[str]] = ConstraintOption,
     group_blind: bool = GroupBlindOption,
     principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
@@ -361,7 +187,7 @@ def solve(
     sc = as_scenario(scenario)
     added, settings = _constraint_options(sc, constraint, group_blind, principal_fairness, max_share, max_rate, solver)
     doubt = _doubt(robust_gamma, robust_bounds, safe_against)
-    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor)
     inputs = claim(out, sc)
     analysis = analyze(sc, outcome_costs, decision_costs, constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
@@ -388,58 +214,47 @@ def report(
     out: Path = OutOption,
     cost: Optional[List[str]] = typer.Option(None, "--cost", help="Start from another outcome cost: KEY=NUMBER (repeatable)."),
     decision_cost: Optional[List[str]] = typer.Option(None, "--decision-cost", help="Start from another decision level's cost: VALUE=NUMBER (repeatable)."),
+    decision_cost_factor: Optional[List[str]] = typer.Option(None, "--decision-cost-factor", help="Start from a factor on a decision level's per-cell costs: VALUE=FACTOR (repeatable)."),
     replicates: Optional[int] = typer.Option(None, help="Bootstrap replicates of the comparison and the sweeps' bands (default: [uncertainty] replicates)."),
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
     overwrite: bool = OverwriteOption,
+    cache: bool = typer.Option(True, "--cache/--no-cache", help="Reuse the comparison and sweeps cached in the output folder when the scenario file, data, costs and replicates are unchanged."),
 ):
-    """Write the committee report: one self-contained HTML page with live cost controls, and its tables."""
+    """Write the committee report: one self-contained HTML page with live cost controls, and its tables.
+
+    The comparison's bootstrap and the sweeps' bands take most of the time (minutes at 1,000
+    replicates); they are cached in OUT/.policy-report-cache and reused while nothing they depend on changes.
+    """
     from policy.outputs import write_outputs
     from policy.presentation.report import build_report
+    from policy.presentation.report.cache import CACHE_FOLDER, cache_key, cache_name
+    from policy.running.pipeline import as_scenario
 
-    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    sc = as_scenario(scenario)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor)
     check_options(replicates=(replicates, 0, MAX_REPLICATES))
-    inputs = claim(out, scenario)
-    built = build_report(scenario, outcome_costs, decision_costs, replicates=replicates, progress=progress)
+    inputs = claim(out, sc)
+    n = replicates if replicates is not None else sc.sections["uncertainty"].replicates
+    if cache and (out / cache_name(cache_key(sc, outcome_costs, decision_costs, replicates))).is_file():
+        console.print(f"Reusing the comparison and sweeps cached in {out / CACHE_FOLDER} (same scenario file, data, "
+                      "costs and replicates); --no-cache computes them afresh.")
+    elif sc.data.kind != "risk_level_table" and n:
+        lo, hi = 0.3 * n, 0.8 * n
+        span = f"{lo:.0f} to {hi:.0f} seconds" if hi < 120 else f"{lo / 60:.0f} to {hi / 60:.0f} minutes"
+        console.print(f"Computing the comparison with {n:,} bootstrap replicates and {len(sc.outcomes)} sweeps with bands: "
+                      f"about {span} at 0.3 to 0.8 s per replicate (measured on a shared 2-core machine); the progress "
+                      "bars show the time left. --replicates 100 gives a draft in a tenth of the time.")
+    built = build_report(sc, outcome_costs, decision_costs, replicates=replicates, progress=progress,
+                         cache_folder=out if cache else None)
     paths = write_outputs(out, built.output_files(), inputs=inputs, overwrite=overwrite, command="report")
     console.print(str(built))
     show_cautions()
-    show_written(paths)
+    show_written([p for p in paths if CACHE_FOLDER not in p.parts])
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
 
 
-def _ranges(values: Optional[List[str]]) -> Optional[list]:
-    if not values:
-        return None
-    out = []
-    for item in values:
-        lo, sep, hi = item.partition(":")
-        try:
-            pair = (float(lo), float(hi))
-        except ValueError:
-            pair = None
-        if not sep or pair is None:
-            raise InputError(f"--range {item!r} must look like LOW:HIGH, e.g. 0:40.")
-        lo, hi = (check_number(v, f"--range {item}", low=0, expected="two finite numbers >= 0 (a cost ratio is not negative)")
-                  for v in pair)
-        if not lo < hi:
-            raise InputError(f"--range {item!r} must have LOW < HIGH (low < high); got {lo:g} to {hi:g}.")
-        out.append((lo, hi))
-    return out
 
 
-def _vary(text: Optional[str]) -> tuple:
-    if text is None:
-        return None, None
-    name, sep, values = text.rpartition("=")
-    try:
-        numbers = [float(v) for v in values.split(",") if v.strip()]
-    except ValueError:
-        numbers = []
-    if not sep or not name.strip() or not numbers:
-        raise InputError(f"--vary {text!r} must look like NAME=V1,V2,..., e.g. '#3 capacity=0.1,0.15,0.2' or 3=0.1,0.2.")
-    name = name.strip()
-    numbers = [check_number(v, f"--vary {text}", low=0) for v in numbers]
-    return (int(name) if name.isdigit() else name), numbers
 
 
 @command
@@ -460,6 +275,7 @@ def sweep(
     no_figures: bool = typer.Option(False, "--no-figures", help="Write the tables only."),
     cost: Optional[List[str]] = CostOption,
     decision_cost: Optional[List[str]] = DecisionCostOption,
+    decision_cost_factor: Optional[List[str]] = DecisionFactorOption,
     constraint: Optional[List[str]] = ConstraintOption,
     group_blind: bool = GroupBlindOption,
     principal_fairness: Optional[List[str]] = PrincipalFairnessOption,
@@ -499,7 +315,7 @@ def sweep(
     for g in gamma or []:
         check_number(g, "--gamma", low=1, expected="a sensitivity parameter Gamma: a finite number >= 1 (1: no confounding)")
     ranges = _ranges(range_)
-    outcome_costs, decision_costs = _pairs(cost, "--cost"), _pairs(decision_cost, "--decision-cost")
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor)
     inputs = claim(out, sc)
     formats = [] if no_figures else list(figure or ["png", "svg"])
     unknown = [f for f in formats if f not in ("png", "svg")]
@@ -540,65 +356,12 @@ def sweep(
     show_written(paths)
 
 
-def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
-    if value != value:  # NaN: not estimated (e.g. an arm with no cases)
-        return "not estimated"
-    if lo != lo or hi != hi:  # NaN: no interval
-        return format(value, fmt)
-    return f"{format(value, fmt)} ({format(lo, fmt)} to {format(hi, fmt)})"
 
 
-def _comparison_table(comparison) -> Table:
-    frame = comparison.comparison_frame()
-    keys = comparison.risk_levels.outcome_keys
-    table = Table(title=f"Rules compared ({comparison.result.interval_label} in brackets)")
-    table.add_column("rule")
-    table.add_column(f"expected cost per 1,000 cases ({comparison.costs.unit})", justify="right")
-    table.add_column("regret per 1,000 cases", justify="right")
-    table.add_column("same level as the optimum", justify="right")
-    table.add_column(f"safe ({keys[0]}) given a harsher level", justify="right")
-    table.add_column(f"preventable ({keys[0]}) given too lenient a level", justify="right")
-    for _, row in frame.iterrows():
-        table.add_row(
-            row["rule"],
-            _interval_text(row["cost_per_1000_cases"], row["cost_per_1000_cases_lower"], row["cost_per_1000_cases_upper"], ",.0f"),
-            _interval_text(row["regret_per_1000_cases"], row["regret_per_1000_cases_lower"], row["regret_per_1000_cases_upper"], ",.0f"),
-            _interval_text(row["agreement"], row["agreement_lower"], row["agreement_upper"], ".1%"),
-            _interval_text(row[f"safe_given_harsher_{keys[0]}"], row[f"safe_given_harsher_{keys[0]}_lower"],
-                           row[f"safe_given_harsher_{keys[0]}_upper"], ".1%"),
-            _interval_text(row[f"preventable_given_too_lenient_{keys[0]}"], row[f"preventable_given_too_lenient_{keys[0]}_lower"],
-                           row[f"preventable_given_too_lenient_{keys[0]}_upper"], ".1%"),
-        )
-    return table
 
 
-def _print_ranges(frame, unit: str) -> None:
-    """Each rule's expected cost range at Gamma = 2 and under the monotone bounds (all in comparison_ranges.csv)."""
-    import numpy as np
-
-    console.print(f"Expected cost per 1,000 cases ({unit}) if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
-                  "regret ranges in comparison_regret_ranges.csv):", style="bold")
-    for name, rows in frame.groupby("rule", sort=False):
-        parts = [f"{label} {r['cost_per_1000_cases_lower']:,.0f} to {r['cost_per_1000_cases_upper']:,.0f}"
-                 if np.isfinite(r["cost_per_1000_cases_lower"]) else f"{label} not estimated"
-                 for key, label in (("gamma=2", "Gamma = 2:"), ("bounds", "monotone bounds:"))
-                 for _, r in rows[rows["assumption"] == key].iterrows()]
-        console.print(f"  - {name}: " + "; ".join(parts))
 
 
-def _difference_matrix(comparison) -> Table:
-    """Paired cost differences, rules numbered: row rule minus column rule, its interval, and
-    the share of replicates in which the row rule is cheaper."""
-    matrix = comparison.summary()
-    table = Table(title=f"Paired differences in expected cost per 1,000 cases ({comparison.costs.unit}): row rule minus "
-                        f"column rule ({comparison.result.interval_label} of the difference from the same replicates; "
-                        "%: replicates in which the row rule is cheaper)")
-    table.add_column("rule")
-    for k in range(len(matrix)):
-        table.add_column(f"minus {k + 1}", justify="right")
-    for k, (name, row) in enumerate(matrix.iterrows()):
-        table.add_row(Text(f"{k + 1} {name}"), *(v.replace(" cheaper", "") if v != "0" else "" for v in row))
-    return table
 
 
 @command
@@ -677,21 +440,6 @@ def compare(
     show_written(paths)
 
 
-def _runner(run_on: Optional[str], workers: Optional[int]):
-    """The runner of --run-on (None: this machine's, from --workers; default: :class:`Adaptive`)."""
-    from contextlib import nullcontext
-
-    from policy.running.distributed import run_on as runner_for
-
-    if run_on is None:
-        # one runner for the whole command: worker processes, if any, start once for all its tasks
-        from policy.assessment.uncertainty import make_runner
-
-        runner = make_runner(workers)
-        return runner if hasattr(runner, "close") else nullcontext(runner)
-    if workers is not None:
-        raise InputError("give --workers (processes of this machine) or --run-on, not both.")
-    return runner_for(run_on)
 
 
 @command
@@ -748,6 +496,31 @@ def batch(
                   f"({len(paths)} files).")
     if result.failed:
         raise typer.Exit(2)
+
+
+def _plain_metavars() -> None:
+    """Show each option's value as NAME=VALUE, TEXT, NUMBER or PATH in --help, never a Python type like <list[str]>."""
+    import inspect
+
+    for info in app.registered_commands:
+        for param in inspect.signature(info.callback).parameters.values():
+            option = param.default
+            if not isinstance(option, typer.models.OptionInfo) or option.metavar:
+                continue
+            text = str(param.annotation)
+            words = (option.help or "").replace(",", " ").split()
+            pair = next((w.rstrip(").:") for w in words if "=" in w and w.split("=")[0].isupper()), None)
+            if "List" in text or "list" in text:
+                option.metavar = pair or "TEXT"
+            elif "Path" in text:
+                option.metavar = "PATH"
+            elif "int" in text or "float" in text:
+                option.metavar = "NUMBER"
+            elif "str" in text:
+                option.metavar = "TEXT"
+
+
+_plain_metavars()
 
 
 def main(argv: Optional[List[str]] = None) -> int:

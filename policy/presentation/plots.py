@@ -25,7 +25,7 @@ from matplotlib.ticker import PercentFormatter
 
 from policy.assessment.sweep import LenientMap, OneRatioSweep, SweepResult, assumption_lines
 
-__all__ = ["STYLE", "level_colours", "share_figure", "regret_figure", "price_figure", "map_figure", "figure_files",
+__all__ = ["STYLE", "level_colours", "assumption_colours", "RULE_COLOURS", "share_figure", "regret_figure", "price_figure", "map_figure", "figure_files",
            "save_figure", "sweep_files", "FORMATS"]
 
 FORMATS = ("png", "svg")
@@ -87,13 +87,22 @@ def level_colours(n_levels: int) -> list[str]:
     return [OKABE_ITO[n] for n in names[:n_levels]]
 
 
-def _robust_style(k: int, n: int, colour: str) -> dict:
-    """Line style of the k-th of n robust assumptions (1..n-1; 0 is the point estimate): the
-    lenient level's colour, lighter and with another dash pattern for each wider assumption."""
-    rgb = np.array(mpl.colors.to_rgb(colour))
-    mix = np.linspace(0.0, 0.62, max(n, 2))[k]
-    shade = (1 - mix) * rgb * 0.75 + mix * np.ones(3) * 0.85
-    return {"color": mpl.colors.to_hex(np.clip(shade, 0, 1)), "linestyle": DASHES[min(k, len(DASHES) - 1)]}
+#: compared rules get a colour family of their own, apart from the decision levels' (regret figures)
+RULE_COLOURS = ["#CC79A7", "#1a1a1a", "#E69F00", "#56B4E9", "#7A3E9D", "#8C6D31", "#999999"]
+#: robust assumptions are greys, darkest for the narrowest, apart from levels' and rules' colours
+RULE_MARKERS = ["o", "s", "^", "D", "v", "P", "X"]
+
+
+def assumption_colours(n: int) -> list[str]:
+    """Greys for n robust assumptions, dark (narrow) to light (wide): a family of their own."""
+    return [mpl.colors.to_hex((v, v, v)) for v in np.linspace(0.15, 0.62, max(n, 1))]
+
+
+def _robust_style(k: int, n: int, colour: str | None = None) -> dict:
+    """Line style of the k-th of n robust assumptions (1..n-1; 0 is the point estimate): a grey,
+    lighter and with another dash pattern for each wider assumption (``colour`` is not used: the
+    assumptions have their own colour family, apart from the decision levels')."""
+    return {"color": assumption_colours(n)[k], "linestyle": DASHES[min(k, len(DASHES) - 1)]}
 
 
 def _note_height(lines: Sequence[str], chars: int) -> float:
@@ -227,9 +236,9 @@ def regret_figure(sweep: OneRatioSweep) -> Figure:
                     "rule cells); a rule that uses finer information can have negative regret.")
     fig, (ax,), legend = _frame(7.2, 3.6, lines, (len(sweep.regret) + 1) // 2)
     with mpl.rc_context(STYLE):
-        palette = [OKABE_ITO[n] for n in ("blue", "orange", "reddish purple", "sky blue", "vermillion", "black")]
         for k, (name, f) in enumerate(sweep.regret.items()):
-            ax.plot(f.x, 1000.0 * f.y, color=palette[k % len(palette)], linestyle=DASHES[k % len(DASHES)], label=name)
+            ax.plot(f.x, 1000.0 * f.y, color=RULE_COLOURS[k % len(RULE_COLOURS)], linestyle=DASHES[k % len(DASHES)],
+                    marker=RULE_MARKERS[k % len(RULE_MARKERS)], markevery=0.12, markersize=3.5, label=name)
         ax.axhline(0.0, color="#4d4d4d", linewidth=0.8)
         _ratio_axis(ax, sweep.axis, sweep.scale, sweep.lo, sweep.hi)
         _mark_scenario(ax, sweep.axis.scenario_ratio, sweep.lo, sweep.hi)
@@ -313,7 +322,7 @@ def map_figure(lmap: LenientMap, points: int = 200, share: float = 0.5) -> Figur
         bar.formatter = PercentFormatter(1.0, decimals=0)
         bar.update_ticks()
         left.set_title(f"Share of cases: {lmap.level_labels[0]} optimal")
-        shades = mpl.colormaps["cividis"](np.linspace(0.95, 0.15, len(robust)))
+        shades = assumption_colours(len(robust))[::-1]
         handles = []
         for k, (info, g) in enumerate(zip(robust, grids)):
             inside = (g >= share - 1e-12).astype(float)
@@ -323,6 +332,10 @@ def map_figure(lmap: LenientMap, points: int = 200, share: float = 0.5) -> Figur
                               linestyles=[DASHES[min(k, len(DASHES) - 1)]])
             handles.append(mpl.patches.Patch(facecolor=shades[k], edgecolor="#222222",
                                              label=info.label + ("" if inside.any() else " (nowhere)")))
+        if not any((g >= share - 1e-12).any() for g in grids):
+            right.text(0.5, 0.5, f"No region: under no assumption is\n{lmap.level_labels[0]} optimal\nfor at least "
+                                 f"{share:.0%} of cases\nanywhere in this range.", ha="center", va="center",
+                       transform=right.transAxes, fontsize=9, color="#1a1a1a")
         right.set_title("Robust to confounding")
         marker = None
         for ax in (left, right):

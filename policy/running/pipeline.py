@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
+import numpy as np
 import pandas as pd
 
 from policy.cautions import CAUTIONS, assumptions_for
@@ -41,9 +42,28 @@ class CheckReport:
     #: the randomized arm's test of unconfoundedness, when the data have an arm
     arm_check: ArmCheck | None = None
 
+    def rows(self) -> list[tuple[str, str]]:
+        """The findings as (finding, text) with the scenario's labels, counts with thousands
+        separators and shares as percentages, e.g. ``("cases per arm", "aid shown: 9,968; not shown: 10,032")``."""
+        sc = self.scenario
+        names = {**dict(zip(sc.level_values, sc.level_labels)), **dict(zip(sc.outcome_keys, sc.outcome_labels)),
+                 "0": "aid not shown", "1": "aid shown"}
+
+        def text(key: str, value: Any) -> str:
+            if isinstance(value, dict):
+                share = key.startswith("share")
+                return "; ".join(f"{names.get(str(k), k)}: " + (f"{v:.1%}" if share else text(key, v)) for k, v in value.items())
+            if isinstance(value, (int, np.integer)):
+                return f"{int(value):,}"
+            if isinstance(value, (float, np.floating)):
+                return f"{float(value):,.0f}" if float(value) == int(value) else f"{float(value):,.1f}"
+            return str(value)
+
+        return [(key, text(key, value)) for key, value in self.findings.items()]
+
     def __str__(self) -> str:
         lines = [f"Scenario {self.scenario.file}: {self.scenario.title}"]
-        for key, value in self.findings.items():
+        for key, value in self.rows():
             lines.append(f"  {key}: {value}")
         return "\n".join(lines)
 
@@ -72,7 +92,7 @@ def check(scenario: Scenario | str | Path) -> CheckReport:
         "cells": s["cells"],
         "cases per arm": s["cases_per_arm"] if cells.has_arm else "no arm column",
         "cases per decision level": s["cases_per_level"],
-        f"sparse cells (< {s['sparse_below']} cases)": f"{s['sparse_cells']} holding {s['cases_in_sparse_cells']} cases",
+        f"sparse cells (< {s['sparse_below']} cases)": f"{s['sparse_cells']:,} holding {s['cases_in_sparse_cells']:,} cases",
         "median cases per cell": s["median_cases_per_cell"],
         "cell-levels never observed, per outcome": s["cell_levels_never_observed"],
         "share of cases with the outcome observed": {k: round(v, 4) for k, v in s["outcome_observed_share"].items()},

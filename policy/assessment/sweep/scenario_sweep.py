@@ -149,6 +149,21 @@ class SweepResult:
         return files
 
 
+def _scenario_rules(scenario, cells, rl) -> list[Rule]:
+    """The rules a comparison scores besides the optimum: the aid's recommendation, the scenario's
+    candidate rules and what courts did (in each arm), so a sweep's regret covers each of them."""
+    from policy.decision.candidates import aid_rule, candidate_rules, observed_rules
+
+    rules: list[Rule] = []
+    if cells is not None:
+        aid = aid_rule(cells, scenario.aid.name, scenario.level_labels)
+        rules += [aid] if aid is not None else []
+    rules += candidate_rules(scenario, rl.layout, rl.weights)
+    if cells is not None:
+        rules += observed_rules(cells, scenario.aid.name, scenario.level_labels)
+    return rules
+
+
 def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[float] | None] | None = None,
                    scale: str = "linear", per: str | None = None, gammas: Sequence[float] | None = None,
                    bounds: bool | None = None, missing: str = "worst_case", rules: Sequence[Rule] | None = None,
@@ -183,8 +198,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     missing : {'worst_case', 'ignore'}
         Missing outcome records in the bounds.
     rules : sequence of Rule, optional
-        Compared rules (one ratio); default: the rule optimal at the scenario's own costs and
-        the rule that releases every case at the most lenient level.
+        Compared rules (one ratio); default: the rule optimal at the scenario's own costs, the
+        aid's recommendation, the scenario's candidate rules, what courts did (per arm) and the
+        rule that releases every case at the most lenient level.
     grid_points : int
         Display grid per axis (two ratios).
     share : float
@@ -277,7 +293,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
             lenient_all = Rule.from_levels(f"everyone: {rl.level_labels[0]}", "candidate", rl.layout,
                                            list(rl.layout.rule_columns), np.zeros(len(base_rule.rule_cells), dtype=np.int64),
                                            rl.level_values, rl.level_labels, rl.weights)
-            rules = [base_rule, lenient_all]
+            rules = [base_rule] + _scenario_rules(scenario, cells, rl) + [lenient_all]
         s = sweep_one(rl, costs, axes[0], *box[0], rules=rules, assumptions=assumptions, scale=scale)
         step("exact sweep")
         constrained = None

@@ -38,6 +38,16 @@ def fmt_num(value: float, digits: int = 0) -> str:
     return text[1:] if text.startswith("-") and not any(ch in "123456789" for ch in text) else text
 
 
+def fmt_factor(value: float, significant: int = 6) -> str:
+    """A bound, factor or reached value as written by people: '40,000', '0.15', '1.5' (never '4e+04')."""
+    if value is None or not math.isfinite(float(value)):
+        return "\u2013"
+    v = float(f"{float(value):.{significant}g}")
+    if v == int(v) and abs(v) < 1e15:
+        return f"{int(v):,}"
+    return f"{v:,.{max(0, significant - 1 - int(math.floor(math.log10(abs(v)))))}f}".rstrip("0").rstrip(".")
+
+
 def input_value(value: float) -> str:
     """A number as an HTML number input's value: the shortest round-trip text, '1000' not '1000.0'."""
     text = repr(float(value))
@@ -49,6 +59,14 @@ def level_colours(n_levels: int) -> list[str]:
     from policy.presentation.plots import level_colours as figure_colours  # noqa: F401
 
     return figure_colours(n_levels)
+
+
+def tint(colour: str, keep: float = 0.35) -> str:
+    """A light tint of a colour (``keep`` of it over white), behind dark text at AA contrast."""
+    from matplotlib.colors import to_hex, to_rgb
+
+    r, g, b = to_rgb(colour)
+    return to_hex((1 - keep + keep * r, 1 - keep + keep * g, 1 - keep + keep * b))
 
 
 def risk_level_colours(n: int) -> list[str]:

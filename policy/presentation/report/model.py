@@ -90,6 +90,10 @@ class ReportResults:
         One-ratio sweeps (:func:`policy.assessment.sweep.sweep_scenario`), with their robust lenient regions.
     lenient_map : SweepResult, optional
         A two-ratio lenient map.
+    decision_costs : mapping, optional
+        The decision-cost overrides the analysis was run with (flat costs, or
+        :class:`policy.decision.costs.CostFactor` factors on per-cell costs), so that the page
+        can state its starting costs as the command line that reproduces them.
     """
 
     analysis: Analysis
@@ -99,6 +103,7 @@ class ReportResults:
     comparison_note: str = ""
     sweeps: tuple[Any, ...] = ()
     lenient_map: Any = None
+    decision_costs: Any = None
 
     @property
     def scenario(self) -> Scenario:

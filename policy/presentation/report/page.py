@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Mapping, Sequence
 
@@ -61,10 +61,14 @@ class Report:
     sections: tuple[Section, ...]
     files: Mapping[str, Any]
     results: ReportResults | None = None
+    #: files written beside the report that are not its tables (the cache of its costly results)
+    cache: Mapping[str, Any] = field(default_factory=dict)
+    #: whether the comparison and the sweeps came from that cache
+    reused: bool = False
 
     def output_files(self) -> dict[str, Any]:
-        """``report.html`` and the tables beside it, for :func:`policy.outputs.write_outputs`."""
-        return {"report.html": self.html, **self.files}
+        """``report.html``, the tables beside it and the cache, for :func:`policy.outputs.write_outputs`."""
+        return {"report.html": self.html, **self.files, **self.cache}
 
     def __str__(self) -> str:
         return (f"Report on {self.scenario.title}: {len(self.sections)} sections "
@@ -94,12 +98,14 @@ def render_report(results: ReportResults | Analysis) -> Report:
     files: dict[str, Any] = {}
     for s in sections:
         files.update(s.files)
+    summary = next((s for s in sections if s.key == "summary"), None)
     page = env.get_template("report.html.j2").render(
         title=sc.title,
         cautions=list(CAUTIONS),
         arm_check=getattr(results.analysis, "arm_check", None),
         arm_costs=getattr(results.comparison, "arm_costs", None),
-        sections=sections,
+        summary=summary,
+        sections=[s for s in sections if s is not summary],
         figure_assumptions=figure_assumptions,
         files=sorted(files),
         data=json_for_script({"live": live_data(results)}),
@@ -129,7 +135,7 @@ def compared_rules(comparison) -> list[ComparedRule]:
 
 def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
                  decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
-                 progress: bool = False) -> Report:
+                 progress: bool = False, cache_folder: str | Path | None = None) -> Report:
     """Run the stages for a scenario and assemble their results into the committee report.
 
     Parameters
@@ -143,30 +149,48 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
         ``[uncertainty]``).
     progress : bool
         Show the bootstrap's progress bar.
+    cache_folder : path, optional
+        The report's output folder: reuse the comparison and the sweeps cached there for the same
+        scenario file, data, costs and replicates (:mod:`policy.presentation.report.cache`), and
+        return them in :attr:`Report.cache` to be written there.
 
     Returns
     -------
     Report
     """
     from policy.assessment.compare import compare
+    from policy.presentation.report.cache import cache_bytes, cache_key, cache_name, load_cached
 
     scenario = as_scenario(scenario)
     analysis = analyze(scenario, outcome_costs, decision_costs)
+    key = cache_key(scenario, outcome_costs, decision_costs, replicates) if cache_folder is not None else None
+    cached = load_cached(cache_folder, key) if key is not None else None
     comparison, why = None, ""
-    if scenario.data.kind == "risk_level_table":
+    if cached is not None:
+        comparison = cached["comparison"]
+    elif scenario.data.kind != "risk_level_table":
+        comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
+                             decision_costs=decision_costs, progress=progress)
+    if comparison is None:
         why = ("The risk levels came from a table estimated elsewhere: it holds no observed decisions and no counts, "
                "so there is nothing courts did to compare and no bootstrap interval.")
         compared = [held_rule(analysis)]
     else:
-        comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
-                             decision_costs=decision_costs, progress=progress)
         compared = compared_rules(comparison)
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
-    sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
-                                      replicates, progress)
+    if cached is not None:
+        sweeps, lenient_map = cached["sweeps"], cached["lenient_map"]
+    else:
+        sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
+                                          replicates, progress)
     points = tuple(res.constrained for res in sweeps if res.constrained is not None)
-    return render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map))
+    report = render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map,
+                                         dict(decision_costs or {})))
+    if key is None:
+        return report
+    payload = {"comparison": comparison, "sweeps": list(sweeps), "lenient_map": lenient_map}
+    return replace(report, cache={cache_name(key): cache_bytes(payload)}, reused=cached is not None)
 
 
 def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mapping[str, float] | None = None,

@@ -10,7 +10,7 @@ import pandas as pd
 from policy.cautions import ASSUMPTIONS, assumptions_for
 from policy.presentation.report.ranges_view import ranges_view
 from policy.assessment.stability import unstable_lines
-from policy.presentation.report.formatting import DIGITS, TableView, fmt_interval, fmt_num, fmt_pct, level_colours, risk_level_colours
+from policy.presentation.report.formatting import DIGITS, TableView, fmt_factor, fmt_interval, fmt_num, fmt_pct, level_colours, risk_level_colours
 from policy.presentation.report.model import Bar, ReportResults, Section
 from policy.presentation.report.live import _constant, controls
 
@@ -29,7 +29,8 @@ def scenario_section(results: ReportResults) -> Section:
                 source = f"set for this report, not the scenario's; the scenario's: {source}"
         else:
             mean = float(np.average(costs.decision[:, d], weights=results.analysis.risk_levels.weights))
-            cost = f"per case from column {level.cost_column} (mean {fmt_num(mean, 0)})"
+            factor = "" if level.cost_factor == 1 else f" \u00d7 {fmt_factor(level.cost_factor)}"
+            cost = f"per case from column {level.cost_column}{factor} (mean {fmt_num(mean, 0)})"
         levels.append((str(d), level.label, level.value, cost, source))
     outcomes = []
     for o, value in zip(sc.outcomes, costs.outcome):
@@ -47,14 +48,14 @@ def scenario_section(results: ReportResults) -> Section:
             "unit": unit,
             "cost_note": sc.cost_note,
             "levels": TableView(f"Decision levels, most lenient first (costs in {unit} per case)",
-                                ("level", "label", "value in the data", f"cost ({unit})", "source of the cost"),
+                                ("level", "label", "value in the data", f"cost in {unit}", "source of the cost"),
                                 tuple(levels), (True, False, False, True, False)),
             "outcomes": TableView(f"Outcome kinds (costs in {unit} per adverse outcome)",
-                                  ("outcome", "key", f"cost ({unit})", "source of the cost"),
+                                  ("outcome", "key", f"cost in {unit}", "source of the cost"),
                                   tuple(outcomes), (False, False, True, False)),
-            "rule_columns": list(results.analysis.rule.rule_cells.columns),
-            "protected": list(sc.protected),
-            "covariates": list(sc.covariates),
+            "rule_columns": [sc.column_label(c) for c in results.analysis.rule.rule_cells.columns],
+            "protected": [sc.column_label(c) for c in sc.protected],
+            "covariates": [sc.column_label(c) for c in sc.covariates],
             "seed": sc.seed,
         },
         assumptions=(ASSUMPTIONS["costs"],),
@@ -107,6 +108,7 @@ def data_section(results: ReportResults) -> Section:
 def risk_level_section(results: ReportResults) -> Section:
     """Risk levels: share of cases at each, overall and by protected group."""
     rl = results.analysis.risk_levels
+    who = results.scenario.column_label
     shares = rl.shares()
     names = rl.risk_level_names
     colours = risk_level_colours(len(names))
@@ -120,7 +122,7 @@ def risk_level_section(results: ReportResults) -> Section:
     for key in rl.outcome_keys:
         part = wide[wide["outcome"] == key]
         frame = pd.DataFrame({
-            "group": [("all cases" if a == "all" else f"{a}: {g}") for a, g in zip(part["attribute"], part["group"])],
+            "group": [("all cases" if a == "all" else f"{who(a)}: {g}") for a, g in zip(part["attribute"], part["group"])],
             "cases": [float(cases[(a, g)]) for a, g in zip(part["attribute"], part["group"])],
         })
         for r, name in enumerate(names):
@@ -149,7 +151,7 @@ def live_rule_section(results: ReportResults) -> Section:
          str(frame.loc[i, "level"]) + (" (split)" if frame.loc[i, "split"] else ""))
         for i in range(len(frame))
     ]
-    compared = [{"name": c.rule.name, "note": c.note, "cost": fmt_num(c.evaluation.cost_per_1000),
+    compared = [{"name": shown_name(c.rule), "note": c.note, "cost": fmt_num(c.evaluation.cost_per_1000),
                  "regret": fmt_num(1000.0 * c.evaluation.regret_per_case), "agreement": fmt_pct(c.evaluation.agreement)}
                 for c in results.compared]
     return Section(
@@ -160,6 +162,7 @@ def live_rule_section(results: ReportResults) -> Section:
             "unit": costs.unit,
             "controls": controls(results),
             "rule_columns": columns,
+            "rule_column_labels": [a.scenario.column_label(col) for col in columns],
             "rule_rows": rule_rows,
             "level_labels": list(ev.level_labels),
             "level_colours": level_colours(len(ev.level_labels)),
@@ -174,11 +177,19 @@ def live_rule_section(results: ReportResults) -> Section:
     )
 
 
+def shown_name(rule) -> str:
+    """A compared rule's name in the live table: an optimum held at the scenario's costs says so."""
+    if rule.kind in ("optimal", "constrained"):
+        return f"{rule.name} at the scenario's costs (held fixed)"
+    return rule.name
+
+
 def groups_section(results: ReportResults) -> Section:
     """Decision shares and outcome rates by group, and where risk levels land, at the scenario's costs."""
     ev = results.analysis.evaluation
     by_group = ev.by_group()
-    by_group.insert(0, "who", [("all cases" if a == "all" else f"{a}: {g}") for a, g in zip(by_group["attribute"], by_group["group"])])
+    who = results.scenario.column_label
+    by_group.insert(0, "who", [("all cases" if a == "all" else f"{who(a)}: {g}") for a, g in zip(by_group["attribute"], by_group["group"])])
     by_group = by_group.drop(columns=["attribute", "group"])
     fmts = {c: (fmt_pct if c.startswith(("share:", "rate:")) else fmt_num) for c in by_group.columns if c != "who"}
     label = dict(zip(ev.outcome_keys, ev.outcome_labels))
@@ -195,6 +206,7 @@ def groups_section(results: ReportResults) -> Section:
     gaps = gaps.assign(outcome=gaps["outcome"].map(lambda k: label.get(k, "(all)")))
     gaps = gaps[["kind", "attribute", "outcome", "risk_level_name", "threshold", "gap", "highest_group", "lowest_group"]]
     gaps["kind"] = gaps["kind"].str.replace("_", " ")
+    gaps["attribute"] = gaps["attribute"].map(lambda a: who(a) if isinstance(a, str) else a)
     return Section(
         key="groups",
         title="Who gets what, at the scenario's costs",
@@ -235,10 +247,10 @@ def constrained_section(results: ReportResults) -> Section | None:
     table = con.to_frame()
     rows = []
     for _, r in table.iterrows():
-        bound = "" if r["kind"] == "group_blind" else f"{r['bound_key']} {r['bound']:g} ({r['unit']})"
+        bound = "" if r["kind"] == "group_blind" else f"{r['bound_key'].replace('_', ' ')} {fmt_factor(r['bound'])} ({r['unit']})"
         rows.append((str(r["constraint"]), str(r["kind"]).replace("_", " "), str(r["arguments"]), bound,
                      "binds" if r["binding"] else "does not bind",
-                     "\u2013" if not np.isfinite(r["value"]) else f"{r['value']:.4g}",
+                     "\u2013" if not np.isfinite(r["value"]) else fmt_factor(r["value"], 4),
                      fmt_num(r["saving_per_point_per_1000"]), fmt_num(r["saving_if_removed_per_1000"])))
     constraints = TableView(
         f"The constraints and what each costs (per 1,000 cases, {unit})",
@@ -252,7 +264,7 @@ def constrained_section(results: ReportResults) -> Section | None:
     rule_rows = tuple(tuple(str(v) for v in frame.loc[i, columns])
                       + (fmt_num(frame.loc[i, "cases"]), _split_text(frame.loc[i], con.rule.level_values, con.rule.level_labels))
                       for i in range(len(frame)))
-    rule = TableView(f"{con.rule.name}, by rule cell", tuple(columns) + ("cases", "decision"), rule_rows,
+    rule = TableView(f"{con.rule.name}, by rule cell", tuple(results.scenario.column_label(c) for c in columns) + ("cases", "decision"), rule_rows,
                      tuple([False] * len(columns) + [True, False]), row_header=max(len(columns), 1))
     figures = [("expected cost per 1,000 cases", fmt_num(ev.cost_per_1000), fmt_num(unc.cost_per_1000))]
     figures += [(f"share: {lab}", fmt_pct(a, DIGITS["share"]), fmt_pct(b, DIGITS["share"]))
@@ -355,7 +367,9 @@ def comparison_section(results: ReportResults) -> Section:
         context={
             "costs": costs_view, "shares": shares_view, "misplaced": misplaced_view,
             "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
-            "replicates": r.n_replicates, "seed": r.seed, "label": label, "notes": list(cmp.notes),
+            "replicates": r.n_replicates, "seed": r.seed, "label": label,
+            # each rule's own note is in the list of rules above; the rest once here
+            "notes": [n for n in cmp.notes if not any(n == f"{rule.name}: {rule.note}" for rule in cmp.rules)],
             "observed_assumptions": assumptions_for("observed_rule"),
             "assumption_free": cmp.arm_costs.lines() if getattr(cmp, "arm_costs", None) is not None else [],
             "ranges": ranges_view(cmp), **extra,

@@ -8,6 +8,7 @@ from typing import Callable
 
 from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct, inline_svg
 from policy.presentation.report.model import ReportResults, Section
+from policy.presentation.report.summary import summary_section
 from policy.presentation.report.sections import aid_effect_section, comparison_section, constrained_section, data_section, groups_section, live_rule_section, risk_level_section, scenario_section
 
 
@@ -33,18 +34,20 @@ def sweep_section(results: ReportResults) -> Section | None:
         kind = "robust_sweep" if len(res.assumptions) > 1 else "sweep"
         share = float(res.settings["share"])
         summary = sw.summary(share).drop(columns=["share"], errors="ignore")
+        never = f"never (below {fmt_pct(share, 0)} already at ratio {fmt_num(sw.lo, 2)})"
         view = TableView.from_frame(
             summary, f"Where {sw.level_labels[0]} stays optimal as the {axis.outcome_label} cost varies, "
                      "under each assumption",
             {"share_lenient_at_low": fmt_pct, "share_lenient_at_scenario": fmt_pct,
-             "up_to_ratio": lambda v: fmt_num(v, 2), "up_to_cost": fmt_num},
+             "up_to_ratio": lambda v: fmt_num(v, 2) if v == v else never,
+             "up_to_cost": lambda v: fmt_num(v) if v == v else "never"},
             rename={"share_lenient_at_low": f"share of cases, ratio {fmt_num(sw.lo, 2)}",
                     "share_lenient_at_scenario": "share of cases, scenario's ratio",
                     "up_to_ratio": f"stays optimal for at least {fmt_pct(share, 0)} of cases up to ratio",
-                    "up_to_cost": f"that is, up to a cost of ({axis.unit})"})
+                    "up_to_cost": f"that is, up to a cost in {axis.unit} of"})
         columns = list(sw.rule_cells.columns)
         breaks_view = TableView.from_frame(
-            sw.breakpoints(), f"Where a rule cell's optimal level changes along the {axis.outcome_label} ratio (exact)",
+            sw.breakpoints().rename(columns={c: results.scenario.column_label(c) for c in columns}), f"Where a rule cell's optimal level changes along the {axis.outcome_label} ratio (exact)",
             {"cases": fmt_num, "ratio": lambda v: fmt_num(v, 3), "cost": fmt_num},
             row_header=max(len(columns), 1), rename={"level_before": "optimal below", "level_after": "optimal above"})
         outputs = sweep_files(res, ("svg",))
@@ -63,7 +66,16 @@ def sweep_section(results: ReportResults) -> Section | None:
                 rename={"ratio": "grid ratio nearest the scenario's", "price_per_1000_there": "price there",
                         "lowest_price_per_1000": "lowest price", "highest_price_per_1000": "highest price",
                         "infeasible_points": "ratios where the constraints cannot all hold"})
+        # the regret figure as text: each rule's exact regret at the range's ends and the scenario's ratio
+        points = [(f"ratio {fmt_num(sw.lo, 2)}", sw.lo), (f"scenario's ratio {fmt_num(axis.scenario_ratio, 2)}", axis.scenario_ratio),
+                  (f"ratio {fmt_num(sw.hi, 2)}", sw.hi)]
+        regret_rows = tuple((name,) + tuple(fmt_num(1000.0 * float(f(r))) for _, r in points) for name, f in sw.regret.items())
+        regret_view = TableView(f"The regret figure as a table: each rule's regret per 1,000 cases ({axis.unit}) as the "
+                                f"{axis.outcome_label} cost varies (exact; every knot in sweep_{axis.outcome}_regret.csv)",
+                                ("rule",) + tuple(label for label, _ in points), regret_rows,
+                                (False,) + (True,) * len(points))
         blocks.append({
+            "regret": regret_view,
             "title": f"Cost of one {axis.outcome_label}, as a ratio to the mean cost of {axis.reference_label}",
             "definition": axis.describe()["definition"],
             "scenario_ratio": fmt_num(axis.scenario_ratio, 3),
@@ -104,6 +116,7 @@ def sweep_section(results: ReportResults) -> Section | None:
 
 #: the section builders, in page order; each takes ReportResults and returns a Section or None
 SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
+    summary_section,
     scenario_section,
     data_section,
     risk_level_section,

@@ -93,16 +93,54 @@
   }
 
   function evaluateCompared(rule, per, levels) {
-    var cost = 0, agree = 0;
+    var cost = 0, agree = 0, rates = new Float64Array(J), shares = new Float64Array(L);
     for (var x = 0; x < n; x++) {
       var row = rule.delta[rule.index[x]];
       var opt = levels[ridx[x]];
       for (var d = 0; d < L; d++) {
         cost += w[x] * row[d] * per[x * L + d];
+        shares[d] += w[x] * row[d];
+        for (var j = 0; j < J; j++) { rates[j] += w[x] * row[d] * p[(x * J + j) * L + d]; }
       }
       agree += w[x] * row[opt];
     }
-    return { cost: cost / totalWeight, agreement: agree / totalWeight };
+    for (var j2 = 0; j2 < J; j2++) { rates[j2] /= totalWeight; }
+    for (var d2 = 0; d2 < L; d2++) { shares[d2] /= totalWeight; }
+    return { cost: cost / totalWeight, agreement: agree / totalWeight, rates: rates, shares: shares };
+  }
+
+  // ---- where the rule would change: the nearest exact breakpoint of one outcome's cost -----
+  // Per rule cell g and level d the total cost is A(g, d) + c_j B(g, d), a line in c_j; the rule
+  // changes where the first other line crosses the chosen level's line (policy/assessment/sweep).
+  function nearestBreaks(j, per, levels) {
+    var A = new Float64Array(G * L), B = new Float64Array(G * L);
+    for (var x = 0; x < n; x++) {
+      var g = ridx[x];
+      for (var d = 0; d < L; d++) {
+        var b = w[x] * p[(x * J + j) * L + d];
+        B[g * L + d] += b;
+        A[g * L + d] += w[x] * per[x * L + d] - outcomeCost[j] * b;
+      }
+    }
+    var c = outcomeCost[j], slack = 1e-9 * Math.max(1, Math.abs(c));
+    var up = { cost: Infinity, g: -1, from: 0, to: 0 }, down = { cost: -Infinity, g: -1, from: 0, to: 0 };
+    for (var g2 = 0; g2 < G; g2++) {
+      var s = levels[g2];
+      for (var d2 = 0; d2 < L; d2++) {
+        var den = B[g2 * L + s] - B[g2 * L + d2];
+        if (d2 === s || den === 0) { continue; }
+        var at = (A[g2 * L + d2] - A[g2 * L + s]) / den;
+        if (den > 0 && at > c + slack && at < up.cost) { up = { cost: at, g: g2, from: s, to: d2 }; }
+        if (den < 0 && at < c - slack && at >= 0 && at > down.cost) { down = { cost: at, g: g2, from: s, to: d2 }; }
+      }
+    }
+    return { up: up, down: down };
+  }
+
+  function cellText(g) {
+    var names = live.export.rule_column_labels;
+    if (!names.length) { return "every case"; }
+    return names.map(function (name, k) { return name + " " + live.rule_cells[g][k]; }).join(", ");
   }
 
   // ---- the page ---------------------------------------------------------------------------
@@ -128,11 +166,116 @@
     });
   }
 
+  // the summary's texts as the tool wrote them at the scenario's costs (with intervals and the sweeps' breakpoints)
+  var exactSummary = {};
+  ["sum-diff", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
+    exactSummary[kind] = [];
+    var nodes = document.querySelectorAll('[data-live="' + kind + '"]');
+    for (var i = 0; i < nodes.length; i++) { exactSummary[kind].push(nodes[i].textContent); }
+  });
+  function restore(kind) {
+    var nodes = document.querySelectorAll('[data-live="' + kind + '"]');
+    for (var i = 0; i < nodes.length; i++) { nodes[i].textContent = exactSummary[kind][i]; }
+  }
+
+  function showBreakpoints(per, levels, exact) {
+    if (exact) {
+      ["bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(restore);
+    }
+    var items = document.querySelectorAll("#summary-breakpoints li");
+    for (var i = 0; i < items.length; i++) {
+      var item = items[i], j = Number(item.getAttribute("data-outcome"));
+      item.querySelector('[data-live="bp-now"]').textContent = fmtNum(outcomeCost[j], 0);
+      if (exact) { continue; }
+      var br = nearestBreaks(j, per, levels);
+      var labels = live.level_labels;
+      item.querySelector('[data-live="bp-below-lead"]').textContent = br.down.g < 0 ? "" : "the rule changes at";
+      item.querySelector('[data-live="bp-above-lead"]').textContent = br.up.g < 0 ? "" : "it changes at";
+      item.querySelector('[data-live="bp-below"]').textContent = br.down.g < 0 ? "no change" : fmtNum(br.down.cost, 0);
+      item.querySelector('[data-live="bp-below-text"]').textContent = br.down.g < 0 ? "(down to 0)"
+        : "(" + cellText(br.down.g) + ": " + labels[br.down.from] + " \u2192 " + labels[br.down.to] + ")";
+      item.querySelector('[data-live="bp-above"]').textContent = br.up.g < 0 ? "no change" : fmtNum(br.up.cost, 0);
+      item.querySelector('[data-live="bp-above-text"]').textContent = br.up.g < 0 ? "(at any higher cost)"
+        : "(" + cellText(br.up.g) + ": " + labels[br.up.from] + " \u2192 " + labels[br.up.to] + ")";
+    }
+  }
+
+  function showGrid(levels) {
+    var cells = document.querySelectorAll("[data-grid-cell]");
+    for (var i = 0; i < cells.length; i++) {
+      var td = cells[i], g = Number(td.getAttribute("data-grid-cell")), d = levels[g];
+      td.setAttribute("data-level", String(d));
+      td.style.background = live.level_colours[d][1];
+      td.style.borderLeftColor = live.level_colours[d][0];
+      td.querySelector('[data-live="grid-level"]').textContent = live.level_labels[d];
+      var was = live.scenario_levels[g];
+      td.querySelector('[data-live="grid-changed"]').textContent = d !== was ? " \u00b7 was " + live.level_labels[was] : "";
+      td.classList.toggle("changed", d !== was);
+    }
+  }
+
+  // ---- export: the chosen costs as the command line and a scenario snippet; the rule as CSV --
+  function word(text) {
+    return /^[A-Za-z0-9_.,:\/=+@%-]+$/.test(text) ? text : "'" + text.replace(/'/g, "'\\''") + "'";
+  }
+
+  function costOptions() {
+    var ex = live.export, parts = [];
+    for (var j = 0; j < J; j++) { parts.push("--cost " + word(ex.outcome_keys[j] + "=" + String(outcomeCost[j]))); }
+    for (var d = 0; d < L; d++) {
+      var s = decisionSetting[d];
+      parts.push((s.mode === "scale" ? "--decision-cost-factor " : "--decision-cost ") + word(ex.level_values[d] + "=" + String(s.value)));
+    }
+    return parts.join(" ");
+  }
+
+  function snippet() {
+    var ex = live.export;
+    var lines = ["# Costs chosen on the page (" + live.unit + "). Put these cost keys in the scenario's tables of the same",
+                 "# value / key (labels, sources and other keys stay as they are)."];
+    for (var d = 0; d < L; d++) {
+      var s = decisionSetting[d];
+      lines.push("", "[[decisions]]", "value = " + JSON.stringify(ex.level_values[d]));
+      if (s.mode === "scale") {
+        lines.push("cost_column = " + JSON.stringify(ex.level_columns[d]), "cost_factor = " + String(s.value));
+      } else {
+        lines.push("cost = " + String(s.value));
+      }
+    }
+    for (var j = 0; j < J; j++) {
+      lines.push("", "[[outcomes]]", "key = " + JSON.stringify(ex.outcome_keys[j]), "cost = " + String(outcomeCost[j]));
+    }
+    return lines.join("\n") + "\n";
+  }
+
+  function csvField(text) {
+    return /[",\r\n]/.test(text) ? '"' + text.replace(/"/g, '""') + '"' : text;
+  }
+
+  function ruleCsv(levels) {
+    var rows = [live.export.rule_columns.concat(["level", "level_value", "cases"]).map(csvField).join(",")];
+    for (var g = 0; g < G; g++) {
+      rows.push(live.rule_cells[g].concat([live.level_labels[levels[g]], live.export.level_values[levels[g]],
+        String(live.rule_cases[g])]).map(csvField).join(","));
+    }
+    return rows.join("\r\n") + "\r\n";
+  }
+
+  function showExport(levels) {
+    var options = costOptions();
+    var scen = live.export.scenario;
+    document.getElementById("export-command").value = "policy solve " + scen + " --out chosen-costs " + options;
+    document.getElementById("export-report-command").value = "policy report " + scen + " --out report-at-chosen-costs " + options;
+    document.getElementById("export-snippet").value = snippet();
+    document.getElementById("export-rule").setAttribute("href", "data:text/csv;charset=utf-8," + encodeURIComponent(ruleCsv(levels)));
+  }
+
   function update() {
     var per = perCaseCosts();
     var levels = optimalLevels(per);
     var ev = evaluateOptimal(per, levels);
     each("share", function (el, i) { el.textContent = fmtPct(ev.shares[i], digits.share); });
+    each("summary-share", function (el, i) { el.textContent = fmtPct(ev.shares[i], digits.share); });
     each("rate", function (el, i) { el.textContent = fmtPct(ev.rates[i], digits.rate); });
     each("cost", function (el) { el.textContent = fmtNum(1000 * ev.cost, digits.cost); });
     var left = 0;
@@ -149,12 +292,33 @@
       el.parentNode.classList.toggle("changed", moved);
     });
     each("changed", function (el, g) { el.textContent = levels[g] !== live.scenario_levels[g] ? "changed" : ""; });
+    var exact = atScenarioCosts();
     live.compared.forEach(function (rule, i) {
       var r = evaluateCompared(rule, per, levels);
-      each("compared-cost", function (el, k) { if (k === i) { el.textContent = fmtNum(1000 * r.cost, digits.cost); } });
-      each("regret", function (el, k) { if (k === i) { el.textContent = fmtNum(1000 * (r.cost - ev.cost), digits.cost); } });
-      each("agreement", function (el, k) { if (k === i) { el.textContent = fmtPct(r.agreement, digits.share); } });
+      var mine = function (kind, fn) { each(kind, function (el, k) { if (k === i) { el.textContent = fn(); } }); };
+      mine("compared-cost", function () { return fmtNum(1000 * r.cost, digits.cost); });
+      mine("regret", function () { return fmtNum(1000 * (r.cost - ev.cost), digits.cost); });
+      mine("agreement", function () { return fmtPct(r.agreement, digits.share); });
+      mine("sum-cost", function () { return fmtNum(1000 * r.cost, digits.cost); });
+      if (!exact) {
+        mine("sum-diff", function () { var t = fmtNum(1000 * (r.cost - ev.cost), digits.cost); return t.charAt(0) === "-" ? t : "+" + t; });
+      }
+      mine("change", function () {
+        var gap = 1000 * (r.cost - ev.cost);
+        var parts = live.level_labels.map(function (lab, d) {
+          return lab + " to " + fmtPct(ev.shares[d], digits.share) + (d === 0 ? " of cases" : "") + " instead of "
+            + fmtPct(r.shares[d], digits.share);
+        });
+        return "Against \u201c" + rule.name + "\u201d, the recommended rule gives " + parts.join(", ") + ", and costs "
+          + fmtNum(Math.abs(gap), digits.cost) + (gap > 0 ? " less" : " more") + " per 1,000 cases.";
+      });
+      for (var d = 0; d < L; d++) { mine("sum-share-" + d, function () { return fmtPct(r.shares[d], digits.share); }); }
+      for (var j = 0; j < J; j++) { mine("sum-rate-" + j, function () { return fmtPct(r.rates[j], digits.rate); }); }
     });
+    if (exact) { restore("sum-diff"); }
+    showGrid(levels);
+    showBreakpoints(per, levels, exact);
+    showExport(levels);
     live.controls.forEach(function (c) {
       var mean = document.getElementById(c.id + "-mean");
       if (mean) { mean.textContent = fmtNum(meanDecisionCost(c.index), 0); }
@@ -167,8 +331,8 @@
       printed.textContent = "Printed at the scenario's own costs.";
     } else {
       status.textContent = "Figures at the costs chosen here: the rule differs from the one at the scenario's costs in "
-        + changed + " of " + G + " rule cells; " + live.level_labels[0] + " for " + fmtPct(ev.shares[0], digits.share)
-        + " of cases.";
+        + changed + " of " + G + " rule cells; " + live.level_labels.map(function (lab, d) {
+          return fmtPct(ev.shares[d], digits.share) + " " + lab; }).join(", ") + ".";
       printed.textContent = "Printed at the costs chosen on the page: " + describeCosts() + ".";
     }
   }
