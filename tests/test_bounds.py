@@ -33,13 +33,21 @@ def test_manski_worked_example():
     assert upper[0, 1] == pytest.approx(0.55, abs=1e-12)
 
 
-def test_manski_worked_example_no_assumption_bounds_are_wider():
+def test_manski_worked_example_no_assumption_bounds():
     # Same worked example (reference-values.md, derived): without monotonicity the bounds on
-    # P(y(1)=1) are [0.15, 0.65]; the monotone bounds must lie inside them.
+    # P(y(1)=1) are [0.15, 0.65] (Manski 1997, seen: the no-assumption bounds
+    # [P(y=1, z=1), P(y=1, z=1) + P(z != 1)]). Monotonicity links Y(1) only to recorded
+    # outcomes, so with the outcome recorded only for the cases given level 1 and treated as
+    # unknown elsewhere (worst case), the monotone bounds are exactly the no-assumption bounds.
     share = np.array([0.2, 0.5, 0.3])
     rate = np.array([0.5, 0.3, 0.2])
-    lower, upper = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
-    assert 0.15 <= lower[0, 1] and upper[0, 1] <= 0.65
+    recorded = np.array([0.0, 1.0, 0.0])
+    lower, upper = monotone_response_bounds(share, (share * recorded)[None, :], (share * rate * recorded)[None, :])
+    assert lower[0, 1] == pytest.approx(0.15, abs=1e-12)
+    assert upper[0, 1] == pytest.approx(0.65, abs=1e-12)
+    # with every outcome recorded the monotone bounds [0.21, 0.55] lie strictly inside them
+    mlo, mhi = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
+    assert 0.15 < mlo[0, 1] and mhi[0, 1] < 0.65
 
 
 def test_manski_counts_and_shares_agree_and_bounds_are_monotone():
@@ -97,16 +105,65 @@ def test_manski_bounds_with_missing_records():
         monotone_response_bounds(cases, observed, events, missing="drop")
 
 
+def _extremal_population(share, rate, end):
+    """Case types (decision z, recorded outcome y, weight, potential outcomes Y(0..L-1)) that
+    reproduce the data and put Y(d) as low (``end='lower'``) or high as monotonicity allows.
+
+    A case given z with Y(z) = y has Y(d) >= y for d < z and Y(d) <= y for d > z. The lowest
+    such vector is y up to z and 0 after; the highest is 1 before z and y from z on.
+    """
+    L = len(share)
+    types = []
+    for z in range(L):
+        for y, weight in ((1, share[z] * rate[z]), (0, share[z] * (1 - rate[z]))):
+            d = np.arange(L)
+            if end == "lower":
+                potential = np.where(d <= z, y, 0)
+            else:
+                potential = np.where(d < z, 1, y)
+            types.append((z, y, weight, potential.astype(float)))
+    return types
+
+
 def test_manski_bounds_are_attained():
-    # Sharpness (Manski 1997, seen): a population consistent with the data attains each end.
-    # Lower end: Y(d) = Y(z) for cases given z >= d, Y(d) = 0 for z < d (allowed since Y(z) >= 0).
+    # Sharpness (Manski 1997, seen): a population consistent with the data and with
+    # monotonicity attains each end. Build it type by type and check that it is such a
+    # population: monotone potential outcomes, the recorded outcome is Y(z), and it reproduces
+    # the decision shares and outcome rates; then its P(Y(d) = 1) is the bound at every d.
     share = np.array([0.25, 0.45, 0.3])
     rate = np.array([0.4, 0.25, 0.1])
     lo, hi = monotone_response_bounds(share, share[None, :], (share * rate)[None, :])
-    for d in range(3):
-        attained_low = sum(share[z] * rate[z] for z in range(d, 3))
-        attained_high = sum(share[z] * rate[z] for z in range(0, d + 1)) + share[d + 1:].sum()
-        assert lo[0, d] == pytest.approx(attained_low) and hi[0, d] == pytest.approx(attained_high)
+    for end, bound in (("lower", lo[0]), ("upper", hi[0])):
+        types = _extremal_population(share, rate, end)
+        for z, y, _, potential in types:
+            assert (np.diff(potential) <= 0).all()          # a harsher decision never raises Y
+            assert potential[z] == y                         # consistent with the record
+        weight = np.array([t[2] for t in types])
+        given = np.array([t[0] for t in types])
+        recorded = np.array([t[1] for t in types])
+        np.testing.assert_allclose(np.bincount(given, weights=weight), share, atol=1e-15)
+        np.testing.assert_allclose(np.bincount(given, weights=weight * recorded) / share, rate, atol=1e-12)
+        attained = weight @ np.stack([t[3] for t in types])  # P(Y(d) = 1) for d = 0..L-1
+        np.testing.assert_allclose(bound, attained, atol=1e-12)
+    assert (hi[0] - lo[0] > 0.1).all()                       # not a point interval
+
+
+def test_ignoring_records_missing_at_random_gives_the_full_data_bounds():
+    # Missing completely at random within each (cell, level), at rates that differ by level:
+    # the recorded cases are a scaled copy of all cases there, so with missing="ignore" the
+    # bounds must be those of the full data (common practice: the defining property of
+    # ignoring records missing at random). Worst-case treatment must be strictly wider.
+    rng = np.random.default_rng(21)
+    for _ in range(200):
+        L = int(rng.integers(2, 5))
+        truth, cases, observed, events = _random_population(rng, L=L)
+        kept = rng.uniform(0.2, 0.9, size=L)
+        full = monotone_response_bounds(cases, observed, events)
+        ignore = monotone_response_bounds(cases, observed * kept, events * kept, missing="ignore")
+        np.testing.assert_allclose(ignore[0], full[0], atol=1e-12)
+        np.testing.assert_allclose(ignore[1], full[1], atol=1e-12)
+        worst = monotone_response_bounds(cases, observed * kept, events * kept)
+        assert (worst[1] - worst[0] > ignore[1] - ignore[0] + 1e-9).all()
 
 
 def test_manski_bounds_contain_the_simulator_truth_in_every_cell():
