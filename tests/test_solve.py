@@ -51,6 +51,14 @@ def test_textbook_threshold_one_outcome_two_levels():
 def test_ties_go_to_the_more_lenient_level():
     total = np.array([[5.0, 5.0, 7.0], [3.0, 2.0, 2.0], [1.0, 1.0 + 1e-13, 1.0]])
     np.testing.assert_array_equal(argmin_lenient(total), [0, 1, 0])
+    # within the tolerance a lenient level counts as tied even where its cost is a rounding
+    # error above the minimum (so a tolerance of zero fails) ...
+    np.testing.assert_array_equal(argmin_lenient(np.array([[1.0 + 1e-13, 1.0, 5.0]])), [0])
+    # ... and the tolerance is relative: a difference of 1e-3 on costs of 1e7 is 1e-10 of them
+    # (tied), while on costs of 1 it is a real difference
+    np.testing.assert_array_equal(argmin_lenient(np.array([[1e7 + 1e-3, 1e7], [1.0 + 1e-3, 1.0]])), [0, 1])
+    # just outside the relative tolerance the cheaper harsher level wins
+    np.testing.assert_array_equal(argmin_lenient(np.array([[1e7 * (1 + 1e-8), 1e7]])), [1])
     # an exact tie in expected cost: prevented risk times harm cost equals the decision cost
     p = np.array([[[0.5, 0.2]]])
     rl = make_risk_levels(p, groups=[0])
