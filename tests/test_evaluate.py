@@ -95,3 +95,20 @@ def test_presentations(demo_scenario):
     np.testing.assert_allclose(summary.sum(axis=1), 1.0)
     assert list(a.risk_levels.summary(by_group=False).index) == list(a.risk_levels.outcome_labels)
     assert "Risk levels from" in str(a.risk_levels)
+
+
+def test_misplaced_shares_with_three_levels_by_hand():
+    # one outcome, three levels, so risk levels 0..3: risk level 1 is too leniently treated at
+    # level 0, risk level 2 at levels 0 and 1, risk level 3 is preventable by no level.
+    # cell 0 (30 cases): p = (0.5, 0.3, 0.1), q = (0.5, 0.2, 0.2, 0.1), rule (0.2, 0.5, 0.3)
+    # cell 1 (10 cases): p = (0.4, 0.4, 0.0), q = (0.6, 0.0, 0.4, 0.0), rule: level 1
+    p = np.array([[[0.5, 0.3, 0.1]], [[0.4, 0.4, 0.0]]])
+    rl = make_risk_levels(p, weights=[30, 10], groups=[0, 1])
+    costs = Costs(np.zeros((2, 3)), np.array([1000.0]))
+    delta = np.array([[0.2, 0.5, 0.3], [0.0, 1.0, 0.0]])
+    mis = evaluate(delta, rl, costs).misplaced().iloc[0]
+    # too lenient: cell 0: 30 * (0.2 * 0.2 + 0.2 * (0.2 + 0.5)) = 5.4; cell 1: 10 * 0.4 * 1 = 4;
+    # preventable cases (risk levels 1 and 2): 30 * 0.4 + 10 * 0.4 = 16
+    assert mis["preventable_given_too_lenient"] == pytest.approx(9.4 / 16, rel=1e-12)
+    # safe cases given level 1 or 2: 30 * 0.5 * 0.8 + 10 * 0.6 * 1 = 18 of 30 * 0.5 + 10 * 0.6 = 21
+    assert mis["safe_given_harsher"] == pytest.approx(18 / 21, rel=1e-12)
