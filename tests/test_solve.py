@@ -107,3 +107,40 @@ def test_cheaper_harm_never_makes_the_rule_harsher(demo_scenario):
     levels = [optimal_rule(rl, base.with_outcome_cost(2, c)).level for c in (200_000, 100_000, 50_000, 0)]
     for harsher, lenient in zip(levels, levels[1:]):
         assert (lenient <= harsher).all()
+
+
+def test_tie_tolerance_at_its_edges_and_over_leading_axes():
+    from policy.decision.solve import TIE_TOLERANCE
+
+    # costs below 1 use an absolute floor of the tolerance: 0.5e-9 above a minimum of 0 is a
+    # tie, 1.5e-9 is not
+    np.testing.assert_array_equal(argmin_lenient(np.array([[0.5e-9, 0.0], [1.5e-9, 0.0]])), [0, 1])
+    # a cost exactly at the edge of the tolerance still counts as tied
+    np.testing.assert_array_equal(argmin_lenient(np.array([[1.0 + TIE_TOLERANCE, 1.0]])), [0])
+    # with no tolerance: a plain argmin with exact ties to the first (most lenient) level
+    np.testing.assert_array_equal(argmin_lenient(np.array([[2.0, 1.0, 1.0], [3.0, 3.0, 4.0]]), tol=0.0), [1, 0])
+    # extra leading axes (bootstrap replicates): the argmin runs along the last axis only
+    rng = np.random.default_rng(4)
+    total = rng.random((2, 4, 3))
+    np.testing.assert_array_equal(argmin_lenient(total), total.argmin(axis=-1))
+
+
+def test_optimal_rule_names_its_cells_levels_and_cases():
+    rng = np.random.default_rng(11)
+    n = 12
+    p = -np.sort(-rng.random((n, 1, 3)), axis=-1)
+    w = rng.integers(1, 40, n).astype(float)
+    rl = make_risk_levels(p, w, groups=np.arange(n) % 4)
+    costs = Costs(np.tile([0.0, 200.0, 400.0], (n, 1)), np.array([1500.0]))
+    rule = optimal_rule(rl, costs)
+    assert rule.name == "cost-minimizing rule" and rule.kind == "optimal"
+    assert rule.level_values == rl.level_values and rule.level_labels == rl.level_labels
+    index, cells = rl.layout.rule_index()
+    np.testing.assert_array_equal(rule.index, index)
+    pd.testing.assert_frame_equal(rule.rule_cells, cells)
+    # cases per rule cell, as pandas sums them (common practice)
+    np.testing.assert_allclose(rule.weights, pd.Series(w).groupby(np.arange(n) % 4).sum().to_numpy())
+    # other rule columns: one rule cell per cell here, each at its own argmin
+    fine = optimal_rule(rl, costs, columns=["cell"], name="per cell")
+    assert fine.name == "per cell" and fine.n_rule_cells == n
+    np.testing.assert_array_equal(fine.level, costs.expected(rl.p).argmin(axis=1))
