@@ -25,6 +25,8 @@ Exit status 0 when the run completed (whatever survived: reading survivors is a 
 from __future__ import annotations
 
 import argparse
+import ast
+import difflib
 import json
 import os
 import re
@@ -70,6 +72,21 @@ def mutmut_settings(files: list[str], tests: list[str]) -> str:
         'pytest_add_cli_args = ["-p", "no:cacheprovider", "-q"]\n'
         "use_git_change_detection = false\n"
     )
+
+
+def mutant_diff(scratch: Path, name: str) -> str:
+    """The lines a mutant changes, read from mutmut's mutated copy of the module (the original
+    of each function is kept there as ``<function>__mutmut_orig``); faster than ``mutmut show``."""
+    module, function = name.rsplit(".", 1)
+    path = scratch / "mutants" / (module.replace(".", "/") + ".py")
+    text = path.read_text(encoding="utf-8")
+    sources = {node.name: ast.get_source_segment(text, node)
+               for node in ast.walk(ast.parse(text)) if isinstance(node, ast.FunctionDef)}
+    original = sources.get(re.sub(r"__mutmut_\d+$", "__mutmut_orig", function), "").splitlines()
+    mutant = sources.get(function, "").splitlines()
+    lines = difflib.unified_diff(original, mutant, lineterm="", n=0)
+    return "\n".join(line for line in lines
+                     if line[:1] in "+-" and not line.startswith(("+++", "---")) and "__mutmut_" not in line)
 
 
 def run(cmd: list[str], cwd: Path, env: dict) -> subprocess.CompletedProcess:
@@ -122,8 +139,7 @@ def main(argv: list[str] | None = None) -> int:
             report["modules"][path] = dict(counts, total=len(mine))
             for name, st in sorted(mine.items()):
                 if st != "killed":
-                    diff = run([sys.executable, "-m", "mutmut", "show", name], scratch, env).stdout
-                    report["survivors"][name] = {"status": st, "diff": diff}
+                    report["survivors"][name] = {"status": st, "diff": mutant_diff(scratch, name)}
         for path, counts in report["modules"].items():
             total = counts["total"]
             killed = counts.get("killed", 0)

@@ -144,3 +144,55 @@ def test_optimal_rule_names_its_cells_levels_and_cases():
     fine = optimal_rule(rl, costs, columns=["cell"], name="per cell")
     assert fine.name == "per cell" and fine.n_rule_cells == n
     np.testing.assert_array_equal(fine.level, costs.expected(rl.p).argmin(axis=1))
+
+
+def test_cost_copies_change_only_what_they_say():
+    decision = np.array([[0.0, 100.0, 300.0], [0.0, 120.0, 260.0]])
+    base = Costs(decision, np.array([1000.0, 5000.0]), "USD", ("a", "b", "c"), ("o0", "o1"))
+    one = base.with_outcome_cost(1, 7000.0)
+    np.testing.assert_array_equal(one.outcome, [1000.0, 7000.0])
+    np.testing.assert_array_equal(base.outcome, [1000.0, 5000.0])  # the original is untouched
+    both = base.with_outcome_costs([10, 20])
+    assert both.outcome.dtype == np.float64
+    np.testing.assert_array_equal(both.outcome, [10.0, 20.0])
+    np.testing.assert_array_equal(both.decision, decision)
+    with pytest.raises(InputError, match=r"expected 2 outcome costs; got \(3,\)"):
+        base.with_outcome_costs([1, 2, 3])
+    scaled = base.with_decision_scale([1, 0.5, 2])
+    np.testing.assert_array_equal(scaled.decision, [[0.0, 50.0, 600.0], [0.0, 60.0, 520.0]])
+    np.testing.assert_array_equal(scaled.outcome, base.outcome)
+    frame = base.to_frame()
+    assert list(frame.columns) == ["kind", "name", "cost", "unit"]
+    assert frame.values.tolist() == [
+        ["decision", "a", 0.0, "USD"], ["decision", "b", 110.0, "USD"], ["decision", "c", 280.0, "USD"],
+        ["outcome", "o0", 1000.0, "USD"], ["outcome", "o1", 5000.0, "USD"],
+    ]
+
+
+def test_scenario_costs_overrides_by_label_checks_and_names(demo_scenario):
+    from dataclasses import replace
+
+    from policy.decision.costs import expected_cost
+
+    rl = estimate_risk_levels(demo_scenario)
+    costs = costs_from_scenario(demo_scenario, rl)
+    assert costs.unit == demo_scenario.cost_unit
+    assert costs.level_labels == demo_scenario.level_labels and costs.outcome_labels == demo_scenario.outcome_labels
+    np.testing.assert_array_equal(expected_cost(rl, costs), costs.expected(rl.p))
+    # a decision cost override may name the level by its label; an outcome cost may be fractional
+    by_label = costs_from_scenario(demo_scenario, rl, {"new_offense": 1234.5}, {demo_scenario.level_labels[1]: 99.5})
+    assert (by_label.decision[:, 1] == 99.5).all() and by_label.outcome[1] == 1234.5
+    # the messages say which override was wrong
+    with pytest.raises(InputError, match="decision cost override 'parole'"):
+        costs_from_scenario(demo_scenario, rl, None, {"parole": 1})
+    with pytest.raises(InputError, match="outcome cost override 'arson'"):
+        costs_from_scenario(demo_scenario, rl, {"arson": 1})
+    # zero costs are allowed; a negative one, of either kind, is not
+    assert costs_from_scenario(demo_scenario, rl, {"new_offense": 0}).outcome[1] == 0
+    with pytest.raises(InputError, match="costs must be >= 0"):
+        costs_from_scenario(demo_scenario, rl, {"new_offense": -1})
+    with pytest.raises(InputError, match="costs must be >= 0"):
+        costs_from_scenario(demo_scenario, rl, None, {"supervision": -1})
+    # a level whose cost comes from a column the data do not hold
+    with pytest.raises(InputError, match="takes its cost from column 'bond_cost', which the data do not hold"):
+        costs_from_scenario(demo_scenario, replace(rl, cell_costs={}))
