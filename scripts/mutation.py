@@ -27,6 +27,7 @@ from __future__ import annotations
 import argparse
 import ast
 import difflib
+import functools
 import json
 import os
 import re
@@ -74,14 +75,20 @@ def mutmut_settings(files: list[str], tests: list[str]) -> str:
     )
 
 
+@functools.lru_cache(maxsize=None)
+def function_sources(path: Path) -> dict[str, str]:
+    """Source of every function of a file, by name."""
+    text = path.read_text(encoding="utf-8")
+    lines = text.splitlines()
+    return {node.name: "\n".join(lines[node.lineno - 1:node.end_lineno])
+            for node in ast.walk(ast.parse(text)) if isinstance(node, ast.FunctionDef)}
+
+
 def mutant_diff(scratch: Path, name: str) -> str:
     """The lines a mutant changes, read from mutmut's mutated copy of the module (the original
     of each function is kept there as ``<function>__mutmut_orig``); faster than ``mutmut show``."""
     module, function = name.rsplit(".", 1)
-    path = scratch / "mutants" / (module.replace(".", "/") + ".py")
-    text = path.read_text(encoding="utf-8")
-    sources = {node.name: ast.get_source_segment(text, node)
-               for node in ast.walk(ast.parse(text)) if isinstance(node, ast.FunctionDef)}
+    sources = function_sources(scratch / "mutants" / (module.replace(".", "/") + ".py"))
     original = sources.get(re.sub(r"__mutmut_\d+$", "__mutmut_orig", function), "").splitlines()
     mutant = sources.get(function, "").splitlines()
     lines = difflib.unified_diff(original, mutant, lineterm="", n=0)
@@ -100,6 +107,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--report", type=Path, default=None, help="write the counts and every survivor's diff as JSON here")
     ap.add_argument("--workdir", type=Path, default=None, help="scratch folder to run in (default: a temporary one, removed after)")
     ap.add_argument("--list", action="store_true", help="list the known modules and their test files")
+    ap.add_argument("--report-only", action="store_true",
+                    help="do not run: report the results already in --workdir (from an earlier run)")
     args = ap.parse_args(argv)
     if args.list:
         for key, (path, tests) in MODULES.items():
@@ -111,20 +120,23 @@ def main(argv: list[str] | None = None) -> int:
     files = [MODULES[m][0] for m in args.modules]
     tests = sorted({t for m in args.modules for t in MODULES[m][1]})
 
+    if args.report_only and args.workdir is None:
+        ap.error("--report-only needs the --workdir of an earlier run")
     scratch = args.workdir or Path(tempfile.mkdtemp(prefix="policy-mutation-"))
     scratch.mkdir(parents=True, exist_ok=True)
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}  # the mutated copy, not this tree
+    env["PYTHONHASHSEED"] = "0"
     try:
-        copy_project(scratch)
-        with open(scratch / "pyproject.toml", "a", encoding="utf-8") as f:
-            f.write(mutmut_settings(files, tests))
-        env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}  # the mutated copy, not this tree
-        env["PYTHONHASHSEED"] = "0"
-        print(f"mutating {', '.join(files)}; tests: {' '.join(tests)}; in {scratch}", flush=True)
-        done = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.max_children)],
-                              cwd=scratch, env=env, text=True)
-        if done.returncode != 0:
-            print(f"mutmut run failed with exit status {done.returncode}", file=sys.stderr)
-            return 1
+        if not args.report_only:
+            copy_project(scratch)
+            with open(scratch / "pyproject.toml", "a", encoding="utf-8") as f:
+                f.write(mutmut_settings(files, tests))
+            print(f"mutating {', '.join(files)}; tests: {' '.join(tests)}; in {scratch}", flush=True)
+            done = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.max_children)],
+                                  cwd=scratch, env=env, text=True)
+            if done.returncode != 0:
+                print(f"mutmut run failed with exit status {done.returncode}", file=sys.stderr)
+                return 1
         listing = run([sys.executable, "-m", "mutmut", "results", "--all", "true"], scratch, env)
         status = {}
         for line in listing.stdout.splitlines():

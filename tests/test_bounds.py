@@ -352,6 +352,8 @@ def test_bounds_table_contains_and_text():
     edge = b.contains(lower - 5e-13) & b.contains(upper + 5e-13)
     assert edge.all()
     assert not b.contains(lower - 1e-9).any() and not b.contains(upper + 1e-9).any()
+    # exactly at the tolerance is still inside
+    assert b.contains(lower - 1e-12).all() and b.contains(upper + 1e-12).all()
     np.testing.assert_allclose(b.width, upper - lower)
     text = str(b)
     assert text.startswith("Gamma = 2: intervals for 3 cells x 1 outcome kinds x 2 levels;")
@@ -365,7 +367,7 @@ def test_bounds_inputs_are_checked_with_clear_messages(demo_scenario):
     with pytest.raises(InputError, match="missing must be one of worst_case, ignore; got 'drop'"):
         monotone_response_bounds(np.ones(2), np.ones((1, 2)), np.zeros((1, 2)), missing="drop")
     # bounds alone (no Gamma) also need the counts
-    with pytest.raises(InputError, match="ask for no Gamma values and no bounds"):
+    with pytest.raises(InputError, match=r"does not hold; use a case or counts table, or ask for no Gamma values and no bounds\.$"):
         robust_assumptions(rl, None, [], bounds=True)
     # cells and risk levels that differ in the number of cells, or in the levels only
     fewer = replace(rl, layout=rl.layout.take(np.arange(rl.n_cells - 1)), p=rl.p[:-1])

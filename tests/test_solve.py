@@ -189,9 +189,9 @@ def test_scenario_costs_overrides_by_label_checks_and_names(demo_scenario):
         costs_from_scenario(demo_scenario, rl, {"arson": 1})
     # zero costs are allowed; a negative one, of either kind, is not
     assert costs_from_scenario(demo_scenario, rl, {"new_offense": 0}).outcome[1] == 0
-    with pytest.raises(InputError, match="costs must be >= 0"):
+    with pytest.raises(InputError, match=r"^costs must be >= 0\.$"):
         costs_from_scenario(demo_scenario, rl, {"new_offense": -1})
-    with pytest.raises(InputError, match="costs must be >= 0"):
+    with pytest.raises(InputError, match=r"^costs must be >= 0\.$"):
         costs_from_scenario(demo_scenario, rl, None, {"supervision": -1})
     # a level whose cost comes from a column the data do not hold
     with pytest.raises(InputError, match="takes its cost from column 'bond_cost', which the data do not hold"):
