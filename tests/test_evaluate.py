@@ -139,6 +139,10 @@ def test_evaluation_carries_its_names_counts_and_stratum_rates():
     # risk level 0: mass 15 and 6
     np.testing.assert_allclose(at_least[0, 0, 0], [(15 * 0.8 + 6) / 21, 15 * 0.3 / 21])
     within = ev.within_risk_levels()
+    assert list(within.columns) == ["attribute", "group", "outcome", "risk_level", "risk_level_name", "level",
+                                    "share", "stratum_cases"]
+    assert set(zip(within["attribute"], within["group"])) == {("all", "all"), ("group", "0"), ("group", "1")}
+    assert set(within["outcome"]) == {"o0"} and set(within["risk_level_name"]) == set(rl.risk_level_names)
     row = within[(within["attribute"] == "all") & (within["risk_level"] == 2)]
     np.testing.assert_allclose(row["share"], [0.6 * 0.2, (6 * 0.5 + 4) / 10, 0.6 * 0.3])
     np.testing.assert_allclose(row["stratum_cases"], 10.0)
