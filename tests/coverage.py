@@ -7,7 +7,8 @@ docs/method.md. Two truths are covered:
 - the *population* truth: stratum shares and the aid's effect computed from the simulator's
   exact per-cell risk levels and court decision probabilities (:func:`policy.demo.quarrow.true_risk_levels`);
 - the estimator's *finite-n target* E[estimate]: the mean of the point estimates over the data
-  sets. The cell estimator shrinks toward a logistic target model, so its expectation differs
+  sets. The cell estimator shrinks toward a target (a main-effects log-linear model fitted by
+  iterative proportional fitting, times Mantel-Haenszel level ratios), so its expectation differs
   from the population truth by a shrinkage bias that no interval can remove; coverage of
   E[estimate] checks that the intervals have the right width and centre for what the estimator
   estimates.

@@ -13,10 +13,17 @@ import policy
 
 from .conftest import ROOT, run_cli
 
-SCENARIO_FILES = sorted((ROOT / "scenarios").glob("*.toml"))
+#: every scenario file under scenarios/, the batch folder scenarios/counties/ included
+SCENARIO_FILES = sorted((ROOT / "scenarios").rglob("*.toml"))
 
 
-@pytest.mark.parametrize("scenario", SCENARIO_FILES, ids=[p.stem for p in SCENARIO_FILES])
+def test_the_scenario_list_holds_the_county_folder():
+    names = {p.relative_to(ROOT / "scenarios").as_posix() for p in SCENARIO_FILES}
+    assert {"demo.toml", "counties/ostrevale.toml", "counties/pellingford.toml", "counties/wexmarrow.toml"} <= names
+
+
+@pytest.mark.parametrize("scenario", SCENARIO_FILES,
+                         ids=[p.relative_to(ROOT / "scenarios").with_suffix("").as_posix() for p in SCENARIO_FILES])
 def test_every_scenario_runs_through_check_and_solve(scenario, tmp_path, capsys):
     code, out, err = run_cli(["check", scenario], capsys)
     assert code == 0, err

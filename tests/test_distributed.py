@@ -9,15 +9,17 @@ from __future__ import annotations
 import os
 import signal
 import sys
-import threading
-import time
 from pathlib import Path
 
+import cloudpickle
 import pytest
+import distributed  # a test dependency (the `test` extra): missing, the suite fails here, never skips
+from distributed.diagnostics.plugin import WorkerPlugin
 
 from .conftest import SCENARIOS, run_cli
 
-distributed = pytest.importorskip("distributed")
+# the worker plugin below travels to the worker processes by value
+cloudpickle.register_pickle_by_value(sys.modules[__name__])
 
 DEMO_CONSTRAINED = SCENARIOS / "demo_constrained.toml"
 
@@ -56,30 +58,44 @@ def test_constrained_sweep_on_a_cluster_gives_the_bytes_of_this_process(cluster,
     same_bytes(tmp_path / "here", tmp_path / "cluster")
 
 
-class Killer(threading.Thread):
-    """Kills (SIGKILL) the first worker process seen running one of the tool's tasks."""
+class KillOnStart(WorkerPlugin):
+    """Kills (SIGKILL) its own worker process as that worker starts one of the tool's tasks, once
+    for the whole cluster: the first worker to start such a task creates ``flag`` (exclusively,
+    so only one can) and dies. Nothing is timed or polled: the kill happens in the worker's own
+    transition of the task to executing, so the run always loses a task mid-run."""
 
-    def __init__(self, address: str, prefix: str = "policy-run_chunk"):
-        super().__init__(daemon=True)
-        self.client = distributed.Client(address)
-        self.pids = self.client.run(os.getpid)
+    name = "kill-on-start"
+
+    def __init__(self, flag: str, prefix: str = "policy-run_chunk"):
+        self.flag = flag
         self.prefix = prefix
-        self.killed = None
-        self.stop = threading.Event()
 
-    def run(self) -> None:
-        deadline = time.monotonic() + 120
-        while not self.stop.is_set() and time.monotonic() < deadline:
-            for worker, keys in self.client.processing().items():
-                if any(str(k).startswith(self.prefix) for k in keys) and worker in self.pids:
-                    os.kill(self.pids[worker], signal.SIGKILL)
-                    self.killed = worker
-                    return
-            time.sleep(0.005)
+    def transition(self, key, start, finish, **kwargs):
+        if finish != "executing" or not str(key).startswith(self.prefix):
+            return
+        try:
+            fd = os.open(self.flag, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+        except FileExistsError:
+            return
+        os.write(fd, str(key).encode())
+        os.close(fd)
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
+class Killer:
+    """Installs :class:`KillOnStart` on every worker of a cluster (also on restarted ones)."""
+
+    def __init__(self, address: str, flag: Path):
+        self.flag = flag
+        self.client = distributed.Client(address)
+        self.client.register_plugin(KillOnStart(str(flag)))
+
+    @property
+    def killed(self) -> str | None:
+        """The key of the task whose worker was killed, or None."""
+        return self.flag.read_text() if self.flag.exists() else None
 
     def close(self) -> None:
-        self.stop.set()
-        self.join(10)
         self.client.close()
 
 
@@ -87,8 +103,7 @@ def test_a_worker_killed_mid_run_and_the_run_completes_with_the_same_bytes(clust
     args = ["compare", DEMO_CONSTRAINED, "--replicates", "100", "--seed", "9", "--no-progress"]
     code, _, err = run_cli(args + ["--out", tmp_path / "here"], capsys)
     assert code == 0, err
-    killer = Killer(cluster.scheduler_address)
-    killer.start()
+    killer = Killer(cluster.scheduler_address, tmp_path / "killed")
     try:
         code, _, err = run_cli(args + ["--out", tmp_path / "cluster", "--run-on", cluster.scheduler_address], capsys)
     finally:
@@ -105,8 +120,7 @@ def test_tasks_that_cannot_complete_stop_the_run_and_nothing_is_written(tmp_path
     with dask.config.set({"distributed.scheduler.allowed-failures": 0}), \
             distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
                                      dashboard_address=None) as cluster:
-        killer = Killer(cluster.scheduler_address)
-        killer.start()
+        killer = Killer(cluster.scheduler_address, tmp_path / "killed")
         try:
             code, _, err = run_cli(["compare", DEMO_CONSTRAINED, "--replicates", "100", "--no-progress",
                                     "--out", tmp_path / "out", "--run-on", cluster.scheduler_address], capsys)

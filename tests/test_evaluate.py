@@ -95,3 +95,54 @@ def test_presentations(demo_scenario):
     np.testing.assert_allclose(summary.sum(axis=1), 1.0)
     assert list(a.risk_levels.summary(by_group=False).index) == list(a.risk_levels.outcome_labels)
     assert "Risk levels from" in str(a.risk_levels)
+
+
+def test_misplaced_shares_with_three_levels_by_hand():
+    # one outcome, three levels, so risk levels 0..3: risk level 1 is too leniently treated at
+    # level 0, risk level 2 at levels 0 and 1, risk level 3 is preventable by no level.
+    # cell 0 (30 cases): p = (0.5, 0.3, 0.1), q = (0.5, 0.2, 0.2, 0.1), rule (0.2, 0.5, 0.3)
+    # cell 1 (10 cases): p = (0.4, 0.4, 0.0), q = (0.6, 0.0, 0.4, 0.0), rule: level 1
+    p = np.array([[[0.5, 0.3, 0.1]], [[0.4, 0.4, 0.0]]])
+    rl = make_risk_levels(p, weights=[30, 10], groups=[0, 1])
+    costs = Costs(np.zeros((2, 3)), np.array([1000.0]))
+    delta = np.array([[0.2, 0.5, 0.3], [0.0, 1.0, 0.0]])
+    mis = evaluate(delta, rl, costs).misplaced().iloc[0]
+    # too lenient: cell 0: 30 * (0.2 * 0.2 + 0.2 * (0.2 + 0.5)) = 5.4; cell 1: 10 * 0.4 * 1 = 4;
+    # preventable cases (risk levels 1 and 2): 30 * 0.4 + 10 * 0.4 = 16
+    assert mis["preventable_given_too_lenient"] == pytest.approx(9.4 / 16, rel=1e-12)
+    # safe cases given level 1 or 2: 30 * 0.5 * 0.8 + 10 * 0.6 * 1 = 18 of 30 * 0.5 + 10 * 0.6 = 21
+    assert mis["safe_given_harsher"] == pytest.approx(18 / 21, rel=1e-12)
+
+
+def test_evaluation_carries_its_names_counts_and_stratum_rates():
+    # the three-level example above, evaluated as a bare array and against a reference rule
+    p = np.array([[[0.5, 0.3, 0.1]], [[0.4, 0.4, 0.0]]])
+    rl = make_risk_levels(p, weights=[30, 10], groups=[0, 1])
+    costs = Costs(np.zeros((2, 3)), np.array([1000.0]), "USD")
+    delta = np.array([[0.2, 0.5, 0.3], [0.0, 1.0, 0.0]])
+    ev = evaluate(delta, rl, costs)
+    assert (ev.rule_name, ev.rule_kind, ev.unit, ev.cases) == ("rule", "given", "USD", 40.0)
+    assert ev.reference_name is None and ev.assumptions == rl.assumptions
+    ref = Rule.per_cell("a", "candidate", rl.layout, delta, rl.level_values, rl.level_labels)
+    assert evaluate(delta, rl, costs, name="b", reference=ref).reference_name == "a"
+    # groups: 'all' first, then the protected attribute (cell 0 in group 0, cell 1 in group 1)
+    assert ev.groups[0] == ("all", "all")
+    np.testing.assert_allclose(ev.group_cases, [40.0, 30.0, 10.0])
+    rate0 = 0.2 * 0.5 + 0.5 * 0.3 + 0.3 * 0.1
+    np.testing.assert_allclose(ev.group_outcome_rates[:, 0], [(30 * rate0 + 10 * 0.4) / 40, rate0, 0.4])
+    assert list(ev.misplaced().columns) == ["outcome", "safe_given_harsher", "preventable_given_too_lenient"]
+    # P(D >= t | R = r) overall, by hand: cell 0 q = (0.5, 0.2, 0.2, 0.1), cell 1 q = (0.6, 0, 0.4, 0)
+    at_least = ev.at_least()
+    assert at_least.shape == (3, 1, 4, 2)
+    # risk level 2: mass 30 * 0.2 = 6 (rule 0.2, 0.5, 0.3) and 10 * 0.4 = 4 (level 1)
+    np.testing.assert_allclose(at_least[0, 0, 2], [(6 * 0.8 + 4) / 10, 6 * 0.3 / 10])
+    # risk level 0: mass 15 and 6
+    np.testing.assert_allclose(at_least[0, 0, 0], [(15 * 0.8 + 6) / 21, 15 * 0.3 / 21])
+    within = ev.within_risk_levels()
+    assert list(within.columns) == ["attribute", "group", "outcome", "risk_level", "risk_level_name", "level",
+                                    "share", "stratum_cases"]
+    assert set(zip(within["attribute"], within["group"])) == {("all", "all"), ("group", "0"), ("group", "1")}
+    assert set(within["outcome"]) == {"o0"} and set(within["risk_level_name"]) == set(rl.risk_level_names)
+    row = within[(within["attribute"] == "all") & (within["risk_level"] == 2)]
+    np.testing.assert_allclose(row["share"], [0.6 * 0.2, (6 * 0.5 + 4) / 10, 0.6 * 0.3])
+    np.testing.assert_allclose(row["stratum_cases"], 10.0)

@@ -85,7 +85,7 @@ def test_every_key_is_documented():
 
 
 def test_every_scenario_file_loads():
-    files = sorted((ROOT / "scenarios").glob("*.toml"))
+    files = sorted((ROOT / "scenarios").rglob("*.toml"))
     assert files, "scenarios/ holds no scenario"
     for f in files:
         load_scenario(f)

@@ -19,10 +19,12 @@ from policy.estimation.strata import (
     risk_level_distribution,
 )
 from policy.estimation.from_scenario import risk_levels_from_frame
+from policy.running.pipeline import estimate
 
 
-# Published pool-adjacent-violators vectors (docs/reference-values.md, "Isotonic regression test
-# vectors"); non-decreasing fits are obtained by negating our non-increasing projection.
+# Pool-adjacent-violators vectors worked by hand (docs/reference-values.md, "Isotonic regression
+# test vectors", derived; each also agrees with scipy.optimize.isotonic_regression); non-decreasing
+# fits are obtained by negating our non-increasing projection.
 @pytest.mark.parametrize(
     "y, w, expected",
     [
@@ -33,7 +35,7 @@ from policy.estimation.from_scenario import risk_levels_from_frame
         ([3, 2, 1], [1, 1, 4], [1.5, 1.5, 1.5]),  # derived
     ],
 )
-def test_isotonic_published_vectors(y, w, expected):
+def test_isotonic_hand_worked_vectors(y, w, expected):
     got = -isotonic_nonincreasing(-np.asarray(y, float), None if w is None else np.asarray(w, float))
     np.testing.assert_allclose(got, expected, rtol=1e-12)
 
@@ -125,6 +127,62 @@ def test_moment_prior_strength_recovers_known_overdispersion():
     assert est[0] == pytest.approx(kappa, rel=0.12)
 
 
+def test_moment_prior_strength_by_hand():
+    # Kleinman (1973): for beta-binomial proportions with intra-unit correlation rho,
+    # n Var(r) = m (1 - m) (1 + (n - 1) rho) (the beta-binomial variance; derived). Two units of
+    # n = 10 with 7 and 3 events around m = 0.5: sum n (r - m)^2 = 2 * 10 * 0.04 = 0.8, and
+    # 0.8 = 2 * 0.25 + 0.25 * (9 + 9) rho gives rho = 0.3 / 4.5 = 1/15, prior strength
+    # 1/rho - 1 = 14 (with n in place of n - 1 it would be 5 / 0.3 - 1 = 15.67).
+    est = moment_prior_strength(np.array([[7.0], [3.0]]), np.array([[10.0], [10.0]]), np.full((2, 1), 0.5), cell_axis=0)
+    assert est[0] == pytest.approx(14.0, rel=1e-12)
+    # units of one case carry no information on rho: they add m (1 - m) to both sides
+    est = moment_prior_strength(np.array([[7.0], [3.0], [1.0]]), np.array([[10.0], [10.0], [1.0]]),
+                                np.full((3, 1), 0.5), cell_axis=0)
+    assert est[0] == pytest.approx(14.0, rel=1e-12)
+
+
+def test_level_risk_ratio_is_clipped_at_one():
+    # Two cells where the harsher level shows more events than the lenient one: statsmodels'
+    # Mantel-Haenszel pooled risk ratio (independent reference) is above 1, and under
+    # monotonicity the estimator clips it to 1 (docs/method.md); the next level's ratio, below 1,
+    # is kept as it is, so the chained ratios are (1, 1, RR_2).
+    from statsmodels.stats.contingency_tables import StratifiedTable
+
+    events = np.array([[4.0, 6.0, 2.0], [10.0, 9.0, 3.0]])
+    observed = np.array([[40.0, 30.0, 20.0], [50.0, 30.0, 25.0]])
+
+    def mh(k):
+        a, n1, c, n0 = events[:, k], observed[:, k], events[:, k - 1], observed[:, k - 1]
+        tables = np.stack([np.stack([a, n1 - a], -1), np.stack([c, n0 - c], -1)], -2).transpose(1, 2, 0)
+        return StratifiedTable(tables).riskratio_pooled
+
+    assert mh(1) > 1.5 and mh(2) < 0.6
+    theta = level_risk_ratios(events[:, None, :], observed[:, None, :])[0]
+    np.testing.assert_allclose(theta, [1.0, 1.0, mh(2)], rtol=1e-12)
+
+
+def test_projection_weights_are_observed_cases_plus_prior_strength():
+    # docs/method.md: each cell's shrunk rates are projected onto non-increasing sequences with
+    # weights observed cases + prior strength. One cell, one outcome, two levels, prior strength
+    # 4: the level ratio is clipped to 1 (the raw rate rises, 0.2 -> 0.5) and the cell's
+    # baseline is its pooled rate m = 22/104, so the shrunk rates are (20 + 4 m) / 104 and
+    # (2 + 4 m) / 8; they break the order and pool to their mean weighted by 104 and 8.
+    events = np.array([[[20.0, 2.0]]])
+    observed = np.array([[[100.0, 4.0]]])
+    p, kappa, target = RiskLevelEstimator(prior_strength=4.0).estimate_p(events, observed, [])
+    m = 22 / 104
+    np.testing.assert_allclose(target, m, rtol=1e-12)
+    r0, r1 = (20 + 4 * m) / 104, (2 + 4 * m) / 8
+    assert r1 > r0
+    pooled = (104 * r0 + 8 * r1) / 112
+    np.testing.assert_allclose(p[0, 0], [pooled, pooled], rtol=1e-12)
+    # scipy's weighted isotonic regression (independent reference) agrees
+    ref = isotonic_regression([r0, r1], weights=[104.0, 8.0], increasing=False).x
+    np.testing.assert_allclose(p[0, 0], ref, rtol=1e-12)
+    # and the weights matter here: equal weights, or observed cases alone, give other values
+    assert abs(pooled - (r0 + r1) / 2) > 0.05 and abs(pooled - (100 * r0 + 4 * r1) / 104) > 0.004
+
+
 def test_batched_estimation_equals_one_at_a_time(demo_scenario, demo_cases):
     frame, _ = demo_cases
     cells = CellTable.from_cases(frame, demo_scenario)
@@ -150,8 +208,13 @@ def test_estimates_are_monotone_probabilities(demo_scenario):
     shares = rl.shares()
     by = shares.groupby(["outcome", "attribute", "group"])["share"].sum()
     np.testing.assert_allclose(by.to_numpy(), 1.0, atol=1e-9)
-    # the never-observed flags match the cell table
-    assert rl.borrowed.any()
+    # the never-observed flags match the cell table: a (cell, outcome, level) is borrowed
+    # exactly where no outcome of that kind was recorded there and it is not a structural zero
+    cells, rl_again = estimate(demo_scenario)
+    np.testing.assert_array_equal(rl_again.p, rl.p)
+    never = cells.observed.sum(axis=1) == 0
+    np.testing.assert_array_equal(rl.borrowed, never & ~rl.structural_zero)
+    assert rl.borrowed.any() and not rl.borrowed.all()
 
 
 def _aligned_truth(rl):

@@ -161,11 +161,8 @@ def test_case_table_files_take_the_streaming_path(tmp_path, capsys, cases30k):
 
 
 TWENTY_MILLION = 20_000_000
-#: peak resident memory allowed for counting 20,000,000 rows (the process, imports included):
-#: read whole, the same columns take about 3.8 GB in pandas (text as Python strings, measured
-#: with memory_usage(deep=True)); measured here 0.76 to 0.96 GB (Arrow's allocator keeps freed
-#: memory for a while), under the 1.5 GB of the benchmark target
-MEMORY_BOUND_MB = 1_200
+# Peak memory of this count is a benchmark figure, not a test assertion (machines are shared):
+# benchmarks/bench_stream.py measures it and checks it against its bound.
 
 
 def _write_big(path, demo_scenario) -> pd.DataFrame:
@@ -183,23 +180,17 @@ def _write_big(path, demo_scenario) -> pd.DataFrame:
     return base
 
 
-def test_twenty_million_rows_in_bounded_memory(tmp_path, demo_scenario):
+@pytest.mark.slow
+def test_twenty_million_rows_are_counted_exactly(tmp_path, demo_scenario):
     path = tmp_path / "cases20m.parquet"
     base = _write_big(path, demo_scenario)
     code = textwrap.dedent(f"""
-        import json, resource, sys
+        import json, sys
         sys.path.insert(0, {str(ROOT)!r})
         from policy import load_scenario
         from policy.inputs.stream import stream_cell_table
         table = stream_cell_table({str(path)!r}, load_scenario({str(ROOT / 'scenarios' / 'demo.toml')!r}), progress=False)
-        # the peak of this process's own memory: VmHWM starts afresh at exec, while ru_maxrss
-        # keeps the high-water mark of the forked copy of the (larger) test process
-        try:
-            hwm = [line for line in open("/proc/self/status") if line.startswith("VmHWM:")]
-            peak = int(hwm[0].split()[1]) / 1024
-        except (OSError, IndexError):
-            peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-        print(json.dumps({{"cases": table.n_cases, "per_level": table.cases.sum(axis=(0, 1)).tolist(), "peak_mb": peak}}))
+        print(json.dumps({{"cases": table.n_cases, "per_level": table.cases.sum(axis=(0, 1)).tolist()}}))
     """)
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=600)
     assert done.returncode == 0, done.stderr
@@ -208,7 +199,6 @@ def test_twenty_million_rows_in_bounded_memory(tmp_path, demo_scenario):
     # reference: pandas value_counts of the decisions of the million rows repeated 20 times (common practice)
     expected = base["decision"].value_counts().reindex(list(demo_scenario.level_values)).to_numpy() * 20
     assert got["per_level"] == expected.tolist()
-    assert got["peak_mb"] < MEMORY_BOUND_MB, got
 
 
 def test_progress_bar_reads_the_same(tmp_path, demo_scenario, cases30k, capsys):

@@ -132,8 +132,8 @@ def test_envelope_breakpoints_are_the_crossings_of_the_neighbouring_lines():
 
 def test_textbook_threshold_for_two_levels_and_one_outcome():
     # Elkan (2001), "The Foundations of Cost-Sensitive Learning" (seen in the abstract): act iff
-    # the prevented probability p0 - p1 >= C_act / C_harm (derived in reference-values.md). With
-    # the ratio r = C_harm / C_act the breakpoint is r* = 1 / (p0 - p1).
+    # the prevented probability p0 - p1 > C_act / C_harm (derived in reference-values.md; an exact
+    # tie stays lenient). With the ratio r = C_harm / C_act the breakpoint is r* = 1 / (p0 - p1).
     rng = np.random.default_rng(3)
     rl, costs = synthetic(rng, n_cells=200, J=1, L=2)
     costs = Costs(np.column_stack([np.zeros(200), np.full(200, 750.0)]), costs.outcome, "USD", rl.level_labels, rl.outcome_labels)

@@ -197,7 +197,8 @@ class Evaluation:
         return pd.DataFrame(rows, columns=["outcome", "safe_given_harsher", "preventable_given_too_lenient"])
 
     def by_group(self) -> pd.DataFrame:
-        """Decision shares and outcome rates per group: attribute, group, cases, share_<level>, rate_<outcome>."""
+        """Decision shares and outcome rates per group: attribute, group, cases, ``share: <level label>``,
+        ``rate: <outcome label>``."""
         out = pd.DataFrame(self.groups, columns=["attribute", "group"])
         out["cases"] = self.group_cases
         for d, lab in enumerate(self.level_labels):

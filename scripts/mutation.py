@@ -1,0 +1,171 @@
+"""Mutation testing of the core formula modules with mutmut, outside the default test run.
+
+mutmut (https://github.com/boxed/mutmut) plants one small change at a time in a module (an
+operator, a constant, a keyword argument) and runs the tests that reach the changed function; a
+change no test notices ("survived") marks a behaviour no test pins down. Results and the
+reading of every survivor are kept in docs/mutation.md.
+
+The run happens in a copy of the project (``policy/``, ``tests/``, ``scenarios/`` and
+``pyproject.toml``) in a scratch folder, with mutmut's settings written into that copy's
+``pyproject.toml``, so the working tree gets no ``mutants/`` folder and no settings that a
+normal test run would see. Only each module's own fast test files run (the ``slow`` marker stays
+excluded by the project's pytest settings).
+
+Usage::
+
+    pip install -e ".[mutation]"
+    python scripts/mutation.py                       # the default modules
+    python scripts/mutation.py solve costs --max-children 2 --report /tmp/mutation.json
+    python scripts/mutation.py --list                # the modules it knows and their tests
+
+Exit status 0 when the run completed (whatever survived: reading survivors is a person's job),
+1 when mutmut itself failed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import ast
+import difflib
+import functools
+import json
+import os
+import re
+import shutil
+import subprocess
+import sys
+import tempfile
+from collections import Counter
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+#: module key -> (file to mutate, the fast test files that check it)
+MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
+    "solve": ("policy/decision/solve.py", ("tests/test_solve.py",)),
+    "costs": ("policy/decision/costs.py", ("tests/test_solve.py",)),
+    "bounds": ("policy/estimation/bounds.py", ("tests/test_bounds.py",)),
+    "evaluate": ("policy/decision/evaluate.py", ("tests/test_evaluate.py",)),
+    "strata": ("policy/estimation/strata.py", ("tests/test_strata.py",)),
+    "constraints": ("policy/decision/constraints.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
+    "envelope": ("policy/assessment/sweep/envelope.py", ("tests/test_sweep.py",)),
+}
+DEFAULT = ("solve", "costs", "bounds")
+
+
+def copy_project(dest: Path) -> None:
+    ignore = shutil.ignore_patterns("__pycache__", "*.pyc", "mutants", ".hypothesis")
+    for name in ("policy", "tests", "scenarios"):
+        shutil.copytree(ROOT / name, dest / name, ignore=ignore)
+    shutil.copy(ROOT / "pyproject.toml", dest / "pyproject.toml")
+
+
+def mutmut_settings(files: list[str], tests: list[str]) -> str:
+    def toml_list(values):
+        return "[" + ", ".join(json.dumps(v) for v in values) + "]"
+
+    return (
+        "\n[tool.mutmut]\n"
+        'source_paths = ["policy"]\n'
+        'also_copy = ["scenarios"]\n'
+        f"only_mutate = {toml_list(files)}\n"
+        f"pytest_add_cli_args_test_selection = {toml_list(tests)}\n"
+        'pytest_add_cli_args = ["-p", "no:cacheprovider", "-q"]\n'
+        "use_git_change_detection = false\n"
+    )
+
+
+@functools.lru_cache(maxsize=None)
+def function_sources(path: Path) -> dict[str, str]:
+    """Source of every function of a file, by name."""
+    text = path.read_text(encoding="utf-8")
+    lines = text.splitlines()
+    return {node.name: "\n".join(lines[node.lineno - 1:node.end_lineno])
+            for node in ast.walk(ast.parse(text)) if isinstance(node, ast.FunctionDef)}
+
+
+def mutant_diff(scratch: Path, name: str) -> str:
+    """The lines a mutant changes, read from mutmut's mutated copy of the module (the original
+    of each function is kept there as ``<function>__mutmut_orig``); faster than ``mutmut show``."""
+    module, function = name.rsplit(".", 1)
+    sources = function_sources(scratch / "mutants" / (module.replace(".", "/") + ".py"))
+    original = sources.get(re.sub(r"__mutmut_\d+$", "__mutmut_orig", function), "").splitlines()
+    mutant = sources.get(function, "").splitlines()
+    lines = difflib.unified_diff(original, mutant, lineterm="", n=0)
+    return "\n".join(line for line in lines
+                     if line[:1] in "+-" and not line.startswith(("+++", "---")) and "__mutmut_" not in line)
+
+
+def run(cmd: list[str], cwd: Path, env: dict) -> subprocess.CompletedProcess:
+    return subprocess.run(cmd, cwd=cwd, env=env, text=True, capture_output=True)
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("modules", nargs="*", default=list(DEFAULT), help=f"module keys (default: {' '.join(DEFAULT)})")
+    ap.add_argument("--max-children", type=int, default=1, help="parallel test processes (default 1: the machine is shared)")
+    ap.add_argument("--report", type=Path, default=None, help="write the counts and every survivor's diff as JSON here")
+    ap.add_argument("--workdir", type=Path, default=None, help="scratch folder to run in (default: a temporary one, removed after)")
+    ap.add_argument("--list", action="store_true", help="list the known modules and their test files")
+    ap.add_argument("--report-only", action="store_true",
+                    help="do not run: report the results already in --workdir (from an earlier run)")
+    args = ap.parse_args(argv)
+    if args.list:
+        for key, (path, tests) in MODULES.items():
+            print(f"{key:12s} {path:40s} {' '.join(tests)}")
+        return 0
+    unknown = [m for m in args.modules if m not in MODULES]
+    if unknown:
+        ap.error(f"unknown module {unknown[0]!r}; expected one of: {', '.join(MODULES)}")
+    files = [MODULES[m][0] for m in args.modules]
+    tests = sorted({t for m in args.modules for t in MODULES[m][1]})
+
+    if args.report_only and args.workdir is None:
+        ap.error("--report-only needs the --workdir of an earlier run")
+    scratch = args.workdir or Path(tempfile.mkdtemp(prefix="policy-mutation-"))
+    scratch.mkdir(parents=True, exist_ok=True)
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}  # the mutated copy, not this tree
+    env["PYTHONHASHSEED"] = "0"
+    try:
+        if not args.report_only:
+            copy_project(scratch)
+            with open(scratch / "pyproject.toml", "a", encoding="utf-8") as f:
+                f.write(mutmut_settings(files, tests))
+            print(f"mutating {', '.join(files)}; tests: {' '.join(tests)}; in {scratch}", flush=True)
+            done = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.max_children)],
+                                  cwd=scratch, env=env, text=True)
+            if done.returncode != 0:
+                print(f"mutmut run failed with exit status {done.returncode}", file=sys.stderr)
+                return 1
+        listing = run([sys.executable, "-m", "mutmut", "results", "--all", "true"], scratch, env)
+        status = {}
+        for line in listing.stdout.splitlines():
+            m = re.match(r"\s*(\S+): (.+)$", line)
+            if m:
+                status[m.group(1)] = m.group(2).strip()
+        report: dict = {"modules": {}, "survivors": {}}
+        for path in files:
+            dotted = path[:-3].replace("/", ".")
+            mine = {k: v for k, v in status.items() if k.startswith(dotted + ".")}
+            counts = Counter(mine.values())
+            report["modules"][path] = dict(counts, total=len(mine))
+            for name, st in sorted(mine.items()):
+                if st != "killed":
+                    report["survivors"][name] = {"status": st, "diff": mutant_diff(scratch, name)}
+        for path, counts in report["modules"].items():
+            total = counts["total"]
+            killed = counts.get("killed", 0)
+            rest = ", ".join(f"{k} {v}" for k, v in sorted(counts.items()) if k not in ("total", "killed"))
+            print(f"{path}: {total} mutants, {killed} killed ({killed / max(total, 1):.0%}); {rest or 'no others'}")
+        for name, info in report["survivors"].items():
+            print(f"\n--- {name}: {info['status']}\n{info['diff']}")
+        if args.report:
+            args.report.write_text(json.dumps(report, indent=2), encoding="utf-8")
+        return 0
+    finally:
+        if args.workdir is None:
+            shutil.rmtree(scratch, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,74 @@
+"""Constraint keys that change what the linear program means: a capacity cap in cases
+(``max_cases``) and principal fairness held only at chosen risk levels (``risk_levels``).
+
+Each is solved and checked against the independent formulation in tests/constrained_reference.py
+(the LP written cell by cell from docs/method.md section 5 and solved by
+scipy.optimize.linprog(method="highs"); common practice: check an LP against a separately built
+formulation of it), and each test also shows that the key changes the optimum, so a solver that
+ignored the key could not pass.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from policy.decision.constrained import ConstrainedProblem
+from policy.decision.solve import optimal_rule
+
+from .constrained_reference import constraint_violation, random_instance, reference_solve
+
+
+def rel_close(a: float, b: float, rel: float = 1e-6) -> bool:
+    return abs(a - b) <= rel * max(1.0, abs(a), abs(b))
+
+
+def _cases_at_or_above(rl, columns, delta_rule_cells, t):
+    """Expected cases given level t or harsher, from rule-cell decision probabilities."""
+    index, _ = rl.layout.rule_index(columns)
+    return float((rl.weights * delta_rule_cells[index, t:].sum(axis=1)).sum())
+
+
+@pytest.mark.parametrize("seed", [0, 3, 7])
+def test_capacity_in_cases_caps_the_number_of_cases(seed):
+    rl, costs, columns = random_instance(seed, n_scores=3, n_buckets=3, n_groups=2)
+    t = 1
+    free = optimal_rule(rl, costs, columns)
+    index, _ = rl.layout.rule_index(columns)
+    free_cases = float((rl.weights * free.delta[index, t:].sum(axis=1)).sum())
+    assert free_cases > 10  # the unconstrained optimum puts cases at L1 or harsher
+    max_cases = round(0.5 * free_cases, 1)  # a cap in cases that binds
+    spec = {"kind": "capacity", "at_least": "L1", "max_cases": max_cases}
+    lp = ConstrainedProblem(rl, costs, [spec], columns=columns).solve_lp()
+    expected, ref_delta = reference_solve(rl, costs, columns, [spec])
+    assert expected is not None
+    assert rel_close(lp.cost_per_case, expected)
+    # the cap holds, and binds: the optimum uses the whole allowance and costs more than the free one
+    assert _cases_at_or_above(rl, columns, lp.delta, t) == pytest.approx(max_cases, rel=1e-6)
+    assert _cases_at_or_above(rl, columns, ref_delta, t) == pytest.approx(max_cases, rel=1e-6)
+    free_cost = float((rl.weights[:, None] * free.delta[index] * costs.expected(rl.p)).sum() / rl.weights.sum())
+    assert lp.cost_per_case > free_cost + 1e-6
+    # the same cap written as a share of all cases gives the same LP
+    as_share = {"kind": "capacity", "at_least": "L1", "max_share": max_cases / rl.weights.sum()}
+    assert rel_close(ConstrainedProblem(rl, costs, [as_share], columns=columns).solve_lp().cost_per_case, lp.cost_per_case)
+
+
+@pytest.mark.parametrize("seed, levels", [(0, [1]), (3, [0, 2]), (5, [3])])
+def test_principal_fairness_at_chosen_risk_levels(seed, levels):
+    rl, costs, columns = random_instance(seed, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    base = {"kind": "principal_fairness", "outcome": "o0", "tolerance": 0.02}
+    at_one = dict(base, risk_levels=levels)
+    every = ConstrainedProblem(rl, costs, [base], columns=columns).solve_lp()
+    only_one = ConstrainedProblem(rl, costs, [at_one], columns=columns).solve_lp()
+    expected_every, _ = reference_solve(rl, costs, columns, [base])
+    expected_one, _ = reference_solve(rl, costs, columns, [at_one])
+    assert rel_close(every.cost_per_case, expected_every)
+    assert rel_close(only_one.cost_per_case, expected_one)
+    # holding the gap at some risk levels asks less than at all of them, and here strictly less
+    assert only_one.cost_per_case < every.cost_per_case - 1e-6
+    # the rule found holds the gap where it was asked for (the definition, cell by cell) ...
+    index, _ = rl.layout.rule_index(columns)
+    cell_delta = only_one.delta[index]
+    assert constraint_violation(rl, columns, at_one, cell_delta) <= 1e-7
+    # ... and not at every risk level (otherwise the key made no difference)
+    assert constraint_violation(rl, columns, base, cell_delta) > 1e-4
