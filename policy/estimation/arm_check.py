@@ -293,13 +293,17 @@ class ArmCheck:
             return "The arm check could not be run: no cell x decision level has recorded outcomes in both arms."
         worst = self.tests.sort_values("p_value", kind="stable").iloc[0]
         if self.rejects:
+            small = (f" (A test at level {self.alpha:g} also rejects about {self.alpha:.0%} of data sets that satisfy "
+                     "the assumption; a Gamma this small may be such a false alarm, or slight confounding.)"
+                     if self.gamma_lower < 1.1 else "")
             return (f"WARNING: the randomized arm contradicts unconfoundedness given the cell (or the exclusion "
                     f"restriction): within cells and decision levels, outcome rates differ with and without the aid "
                     f"(worst: {worst['outcome']}, p = {worst['p_value']:.2g}; Bonferroni-adjusted p = "
                     f"{self.p_value:.2g} < {self.alpha:g}). The data show confounding of at least Gamma = "
                     f"{_fmt_gamma(self.gamma_lower)} ({1 - self.alpha:.0%} confidence; sensitivity results below "
                     "that Gamma are contradicted by the data). Point figures may be wrong: "
-                    "rely on the monotone-response bounds and the sensitivity results at Gamma of at least that value.")
+                    "rely on the monotone-response bounds and the sensitivity results at Gamma of at least that value."
+                    + small)
         return (f"Arm check: within cells and decision levels, outcome rates with and without the aid agree "
                 f"(smallest p = {worst['p_value']:.2g}, Bonferroni-adjusted {self.p_value:.2g} >= {self.alpha:g}). "
                 "No contradiction of unconfoundedness found; the test has power only where the aid moved decisions.")
