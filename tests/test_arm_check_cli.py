@@ -85,7 +85,7 @@ def test_report_page_shows_the_verdict_under_the_cautions():
     html = render_report(analyze(CONFOUNDED)).html
     cautions, arm, contents = html.find('id="cautions"'), html.find('id="arm-check"'), html.find('aria-label="contents"')
     assert 0 < cautions < arm < contents
-    assert "<strong>WARNING: the randomized arm contradicts unconfoundedness" in html
+    assert "<strong>Warning: it contradicts unconfoundedness" in html
 
 
 def test_report_comparison_opens_with_the_assumption_free_figure():

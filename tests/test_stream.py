@@ -264,18 +264,31 @@ def test_csv_messages_are_the_same_through_pyarrow_and_pandas(tmp_path, demo_sce
     assert "(first: row 10000)" in messages[0] and "rows 8,193 to 12,288 checked" in messages[0]
 
 
-def test_a_csv_pyarrow_refuses_is_read_with_pandas(tmp_path, demo_scenario, cases30k, monkeypatch):
-    # a line with a field too many: pyarrow's reader stops there; the file is read again with
-    # pandas, which reads it as it always has (the extra field is outside the columns used)
+def test_a_line_with_a_field_too_many_is_refused_before_either_reader(tmp_path, demo_scenario, cases30k):
+    # pyarrow's reader would stop there and pandas would read on silently; the shape check
+    # refuses the file first, naming the line
     path = tmp_path / "cases.csv"
     cases30k.to_csv(path, index=False)
     lines = path.read_text().splitlines()
     lines[20_000] += ",extra"
     path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match="line 20001"):
+        stream_cell_table(path, demo_scenario, block_rows=4_096)
+
+
+def test_a_csv_pyarrow_refuses_is_read_with_pandas(tmp_path, demo_scenario, cases30k, monkeypatch):
+    # where pyarrow's streaming reader refuses a file (here made to refuse at its first block),
+    # the file is read again with pandas, giving the same cell table as the pandas route itself
     import pyarrow.csv as pcsv
 
-    with pytest.raises(pa.ArrowInvalid):
-        pcsv.read_csv(path)
-    read = stream_cell_table(path, demo_scenario, block_rows=4_096)
+    path = tmp_path / "cases.csv"
+    cases30k.to_csv(path, index=False)
+    expected = stream_cell_table(path, demo_scenario, block_rows=4_096)
+
+    def refuse(*args, **kwargs):
+        raise pa.ArrowInvalid("CSV parse error (made to refuse by the test)")
+
+    monkeypatch.setattr(pcsv, "open_csv", refuse)
+    assert_same_table(expected, stream_cell_table(path, demo_scenario, block_rows=4_096))
     _with_pandas(monkeypatch)
-    assert_same_table(read, stream_cell_table(path, demo_scenario, block_rows=4_096))
+    assert_same_table(expected, stream_cell_table(path, demo_scenario, block_rows=4_096))

@@ -534,7 +534,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         arm_costs = realized_arm_costs(cells, costs, settings.replicates, scenario.seed if seed is None else seed,
                                        settings.resampling, settings.interval, runner=runner, workers=workers,
                                        arm_labels=tuple(r.name for r in observed))
-        check = arm_check(cells)
+        check = arm_check(cells, outcome_labels=scenario.outcome_label_map)
         if 1 < check.gamma_lower < np.inf:
             gammas = gammas + (round(check.gamma_lower, 2),)
     intervals = robust_assumptions(rl, cells, gammas, True)

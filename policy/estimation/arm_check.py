@@ -57,8 +57,8 @@ ratio).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Any, Mapping
 
 import numpy as np
 import pandas as pd
@@ -270,6 +270,11 @@ class ArmCheck:
     gamma_lower: float
     gamma_by_outcome: dict
     top: int = 5
+    #: display label of each outcome key (the scenario's labels) for the verdict and its lines
+    outcome_labels: dict = field(default_factory=dict)
+
+    def label(self, key: str) -> str:
+        return self.outcome_labels.get(key, key)
 
     @property
     def rejects(self) -> bool:
@@ -298,7 +303,7 @@ class ArmCheck:
                      if self.gamma_lower < 1.1 else "")
             return (f"WARNING: the randomized arm contradicts unconfoundedness given the cell (or the exclusion "
                     f"restriction): within cells and decision levels, outcome rates differ with and without the aid "
-                    f"(worst: {worst['outcome']}, p = {worst['p_value']:.2g}; Bonferroni-adjusted p = "
+                    f"(worst: {self.label(worst['outcome'])}, p = {worst['p_value']:.2g}; Bonferroni-adjusted p = "
                     f"{self.p_value:.2g} < {self.alpha:g}). The data show confounding of at least Gamma = "
                     f"{_fmt_gamma(self.gamma_lower)} ({1 - self.alpha:.0%} confidence; sensitivity results below "
                     "that Gamma are contradicted by the data). Point figures may be wrong: "
@@ -308,25 +313,39 @@ class ArmCheck:
                 f"(smallest p = {worst['p_value']:.2g}, Bonferroni-adjusted {self.p_value:.2g} >= {self.alpha:g}). "
                 "No contradiction of unconfoundedness found; the test has power only where the aid moved decisions.")
 
+    def headline(self) -> str:
+        """The verdict in one or two sentences (the report's first word on the assumption)."""
+        if not self.tested:
+            return "The arm check could not be run: no cell x decision level has recorded outcomes in both arms."
+        worst = self.tests.sort_values("p_value", kind="stable").iloc[0]
+        if not self.rejects:
+            return (f"Outcome rates with and without the aid agree within cells and decision levels (Bonferroni-adjusted "
+                    f"p = {self.p_value:.2g}): no contradiction of unconfoundedness found.")
+        small = (f"; a {self.alpha:.0%} test also flags 1 data set in {round(1 / self.alpha):d} that satisfies it"
+                 if self.gamma_lower < 1.1 else "")
+        return (f"Warning: it contradicts unconfoundedness for {self.label(worst['outcome'])} (adjusted "
+                f"p = {self.p_value:.2g}; confounding of at least Gamma = {_fmt_gamma(self.gamma_lower)}). Rely on the "
+                f"bounds and on sensitivity results at Gamma of at least that{small}.")
+
     def lines(self) -> list[str]:
         """The verdict, then one line per outcome kind and the cells contributing most."""
         out = [self.verdict()]
         for _, row in self.tests.iterrows():
             if row["df"] == 0:
-                out.append(f"  {row['outcome']}: no stratum with information")
+                out.append(f"  {self.label(row['outcome'])}: no stratum with information")
                 continue
-            out.append(f"  {row['outcome']}: Q = {row['statistic']:.2f} on {row['df']} df, p = {row['p_value']:.2g}, "
+            out.append(f"  {self.label(row['outcome'])}: Q = {row['statistic']:.2f} on {row['df']} df, p = {row['p_value']:.2g}, "
                        f"{row['strata']} cell x level strata")
         if self.rejects:
             for _, row in self.levels[self.levels["outcome"].isin(self.tests.loc[self.tests["rejects"], "outcome"])].iterrows():
                 if row["statistic"] == row["statistic"]:
-                    out.append(f"  {row['outcome']} at {row['level']}: {row['direction']} "
+                    out.append(f"  {self.label(row['outcome'])} at {row['level']}: {row['direction']} "
                                f"(odds ratio {row['odds_ratio']:.2f}, CMH {row['statistic']:.1f})")
             cols = [c for c in self.cells.columns if c not in _STRATUM_COLUMNS]
             out.append("  cells contributing most:")
             for _, row in self.top_cells().iterrows():
                 where = ", ".join(f"{c}={row[c]}" for c in cols)
-                out.append(f"    {where}; {row['outcome']} at {row['level']}: rate {row['rate_shown']:.1%} shown "
+                out.append(f"    {where}; {self.label(row['outcome'])} at {row['level']}: rate {row['rate_shown']:.1%} shown "
                            f"vs {row['rate_not_shown']:.1%} not shown ({row['records_shown']:.0f} / "
                            f"{row['records_not_shown']:.0f} records), contribution {row['contribution']:.1f}")
         return out
@@ -386,7 +405,8 @@ def _jsonable(value):
     return value
 
 
-def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool = True) -> ArmCheck:
+def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool = True,
+              outcome_labels: Mapping[str, str] | None = None) -> ArmCheck:
     """Test, per outcome kind, that outcome rates agree with and without the aid within every
     cell x decision level, and bound from below the confounding the arms show.
 
@@ -400,6 +420,8 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
         Number of cells listed as contributing most.
     gamma : bool
         Also search for Gamma_low (:func:`gamma_lower_bound`); without it, ``gamma_lower`` is NaN.
+    outcome_labels : mapping, optional
+        Display label of each outcome key, used in the verdict and its lines.
 
     Returns
     -------
@@ -452,4 +474,4 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
     tests["rejects"] = tested & (tests["p_value"] * max(n_tested, 1) < alpha)
     cells_frame = pd.concat(strata, ignore_index=True) if strata else pd.DataFrame()
     return ArmCheck(tests, pd.DataFrame(level_rows), cells_frame, alpha, p_adj, gam["gamma_lower"],
-                    gam["per_outcome"], top)
+                    gam["per_outcome"], top, dict(outcome_labels or {}))

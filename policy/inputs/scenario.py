@@ -320,6 +320,11 @@ class Scenario:
         return tuple(o.label for o in self.outcomes)
 
     @property
+    def outcome_label_map(self) -> dict[str, str]:
+        """Each outcome key's display label."""
+        return {o.key: o.label for o in self.outcomes}
+
+    @property
     def cost_columns(self) -> tuple[str, ...]:
         return tuple(level.cost_column for level in self.levels if level.cost_column)
 

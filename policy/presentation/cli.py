@@ -135,7 +135,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     inputs = claim(out, sc)
     cells, rl = run_estimate(sc)
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
-    check = arm_check(cells) if cells is not None and cells.has_arm else None
+    check = arm_check(cells, outcome_labels=sc.outcome_label_map) if cells is not None and cells.has_arm else None
     if cells is not None:
         gammas = SENSITIVITY_GAMMAS + ((round(check.gamma_lower, 2),) if check is not None and 1 < check.gamma_lower < float("inf") else ())
         files = {"cells.csv": cells.counts_frame(sc), **files, "risk_bounds.csv": bounds_table(rl, cells, gammas)}

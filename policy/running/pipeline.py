@@ -97,7 +97,7 @@ def check(scenario: Scenario | str | Path) -> CheckReport:
         "cell-levels never observed, per outcome": s["cell_levels_never_observed"],
         "share of cases with the outcome observed": {k: round(v, 4) for k, v in s["outcome_observed_share"].items()},
     }
-    check_arms = arm_check(cells) if cells.has_arm else None
+    check_arms = arm_check(cells, outcome_labels=scenario.outcome_label_map) if cells.has_arm else None
     if check_arms is not None:
         findings["arm check (unconfoundedness)"] = "rejected" if check_arms.rejects else "not rejected"
     return CheckReport(scenario, cells, None, findings, check_arms)
@@ -187,7 +187,7 @@ def analyze(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] 
     if specs:
         settings = lp_settings if lp_settings is not None else scenario.sections.get("linear_program")
         constrained = ConstrainedProblem(rl, costs, specs, settings=settings).solve()
-    check_arms = arm_check(cells) if cells is not None and cells.has_arm else None
+    check_arms = arm_check(cells, outcome_labels=scenario.outcome_label_map) if cells is not None and cells.has_arm else None
     return Analysis(scenario, cells, rl, costs, rule, evaluate(rule, rl, costs), constrained=constrained,
                     arm_check=check_arms)
 

@@ -274,7 +274,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     if len(ranges) != len(axes):
         raise InputError(f"give one range per ratio: {len(axes)} ratios, {len(ranges)} ranges.")
     box = [tuple(map(float, r)) if r is not None else default_range(a, scale) for a, r in zip(axes, ranges)]
-    check = arm_check(cells) if cells is not None and cells.has_arm else None
+    check = arm_check(cells, outcome_labels=scenario.outcome_label_map) if cells is not None and cells.has_arm else None
     if gammas is None:
         gammas = DEFAULT_GAMMAS if cells is not None else ()
         if check is not None and 1 < check.gamma_lower < np.inf:
