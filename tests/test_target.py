@@ -157,3 +157,17 @@ def test_translation_limit_must_be_positive():
 
     with pytest.raises(InputError, match="translation_limit must be a number > 0 or None; got 0"):
         RiskLevelEstimator(translation_limit=0)
+
+
+def test_fit_reports_the_kept_terms():
+    # on the simulated process where the harsher levels' effect depends on prior record, the
+    # estimator keeps the prior-by-level term at 20,000 cases; with level_terms=False it keeps none
+    from policy import CellTable, RiskLevelEstimator
+
+    from .simulations import process
+
+    proc = process("varying")
+    cells = CellTable.from_cases(proc.simulate(20_000, 3), proc.scenario)
+    est = RiskLevelEstimator().fit(cells)
+    assert est.level_terms_ == {"missed": ["prior"], "offense": ["prior"]}
+    assert RiskLevelEstimator(level_terms=False).fit(cells).level_terms_ == {"missed": [], "offense": []}
