@@ -339,11 +339,11 @@ def shrunk_rates(
     whose level terms the data support (:func:`policy.estimation.target.cell_level_ratios`). It
     carries a cell's own risk, seen at the levels it did observe, to the levels it did not.
 
-    With a ``translation_limit`` D, each shrunk rate stays within D standard errors
-    sqrt(r (1 - r) / n) of the cell's own rate at that level (the limited-translation rule of
-    Efron and Morris 1971, 1972): shrinkage can move a sparse cell far, a cell with thousands of
-    cases hardly at all, so the bias from a target that fits a large cell poorly is at most D of
-    its standard errors and vanishes as its cases grow.
+    With a ``translation_limit`` D, each shrunk rate stays within D standard errors (the larger
+    binomial one, at the shrunk or at the own rate) of the cell's own rate at that level (the
+    limited-translation rule of Efron and Morris 1971, 1972): shrinkage can move a sparse cell
+    far, a cell with thousands of cases hardly at all, so the bias from a target that fits a
+    large cell poorly is at most D of its standard errors and vanishes as its cases grow.
 
     Parameters
     ----------
