@@ -75,7 +75,7 @@ def test_accuracy_where_level_effects_vary():
 # ----------------------------------------------------------------------------------------------
 # The full tables (docs/method.md)
 # ----------------------------------------------------------------------------------------------
-SLOW_SIZES = {"varying": (200, 200), "four_levels": (200, 200), "many_small": (100, 200), "demo": (40, 100)}
+SLOW_SIZES = {"varying": (200, 200), "four_levels": (200, 200), "many_small": (100, 200), "demo": (100, 100)}
 
 
 @pytest.mark.slow
