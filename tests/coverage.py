@@ -1,101 +1,217 @@
-"""Coverage of the comparison's intervals over many simulated data sets of the demo county.
+"""Bias, mean absolute error and coverage of the comparison's intervals on simulated data.
 
-Used by tests/test_uncertainty.py (a short run by default, the long one marked slow) and by
-hand (``python -m tests.coverage SETS CASES REPLICATES``) to produce the figures recorded in
-docs/method.md. Two truths are covered:
+Used by tests/test_coverage.py (a quick run by default, the full tables marked slow) and by hand
+(``python -m tests.coverage PROCESS SETS REPLICATES [CASES]``, or ``python -m tests.coverage all
+SETS REPLICATES``) to produce the tables recorded in docs/method.md.
 
-- the *population* truth: stratum shares and the aid's effect computed from the simulator's
-  exact per-cell risk levels and court decision probabilities (:func:`policy.demo.quarrow.true_risk_levels`);
-- the estimator's *finite-n target* E[estimate]: the mean of the point estimates over the data
-  sets. The cell estimator shrinks toward a target (a main-effects log-linear model fitted by
-  iterative proportional fitting, times Mantel-Haenszel level ratios), so its expectation differs
-  from the population truth by a shrinkage bias that no interval can remove; coverage of
-  E[estimate] checks that the intervals have the right width and centre for what the estimator
-  estimates.
+For every data set drawn from a process of :mod:`tests.simulations` the comparison's figures are
+computed as :func:`policy.compare` computes them (the cell estimator, the model-based Poisson
+bootstrap, percentile intervals) and set against the process's exact population truth. Four
+families of figures:
+
+- ``shares``: the overall share of cases at each risk level, per outcome kind;
+- ``effect``: the aid's effect on P(D >= t) within each risk level (the randomized arm);
+- ``cost``: the expected cost per case of two fixed rules (a threshold rule and "everyone at
+  level 1"), held fixed in every replicate;
+- ``difference``: the paired difference of those two rules' costs, replicate by replicate.
+
+Each family reports the share of (data set, figure) pairs whose nominal 95% interval covers the
+truth (the tool's percentile intervals, and for comparison basic intervals from the same
+replicates), the lowest single figure's coverage, the mean absolute error and the bias in units of
+the estimate's standard deviation over data sets.
 """
 
 from __future__ import annotations
 
 import sys
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
-from policy import compare, load_scenario
-from policy.demo.quarrow import demo_scenario_path, true_risk_levels
+from policy.assessment.compare import ComparisonStatistic
+from policy.assessment.uncertainty import InProcess, bootstrap
+from policy.decision.costs import costs_from_scenario
 from policy.decision.evaluate import stratum_decision_mass
-from policy.inputs.scenario import DataSource
-from policy.assessment.uncertainty import InProcess
+from policy.estimation.strata import RiskLevelEstimator
+from policy.inputs.cells import CellTable
+
+from .simulations import PROCESSES, Process, process
+
+FAMILIES = ("shares", "effect", "cost", "difference")
 
 
-def truth_figures() -> tuple[np.ndarray, np.ndarray]:
-    """Population stratum shares (J, K+2) and the aid's effect (J, K+2, K) from the exact truth."""
-    truth, court = true_risk_levels()
+def _at_least(delta: np.ndarray, q: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """P(D >= t | R_j = r) for t = 1..L-1 under decision probabilities delta (n, L): (J, L+1, L-1)."""
+    mass = stratum_decision_mass(delta, q, w, np.ones((len(w), 1)))[0]
+    tail = np.flip(np.cumsum(np.flip(mass, -1), -1), -1)[..., 1:]
+    return tail / mass.sum(-1, keepdims=True)
+
+
+def truth_figures(proc: Process) -> dict[str, np.ndarray]:
+    """Each family's figures from the exact truth, flattened."""
+    truth = proc.truth
     q, w = truth.q, truth.weights
-    shares = np.einsum("x,xjr->jr", w, q) / w.sum()
-    one = np.ones((truth.n_cells, 1))
+    costs = costs_from_scenario(proc.scenario, truth)
+    per_case = costs.expected(truth.p)  # (n, L)
+    rule_costs = np.array([np.einsum("x,xd,xd->", w, rule(truth.layout), per_case) / w.sum()
+                           for rule in proc.rules.values()])
+    return {
+        "shares": (np.einsum("x,xjr->jr", w, q) / w.sum()).ravel(),
+        "effect": (_at_least(proc.court[:, 1], q, w) - _at_least(proc.court[:, 0], q, w)).ravel(),
+        "cost": rule_costs,
+        "difference": rule_costs[:1] - rule_costs[1:2],
+    }
 
-    def at_least(delta):
-        mass = stratum_decision_mass(delta, q, w, one)[0]  # (J, R, L)
-        tail = np.flip(np.cumsum(np.flip(mass, -1), -1), -1)[..., 1:]
-        return tail / mass.sum(-1, keepdims=True)
 
-    return shares, at_least(court[:, 1]) - at_least(court[:, 0])
+def one_data_set(proc: Process, cases: int, replicates: int, seed: int,
+                 estimator: RiskLevelEstimator | None = None) -> dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    """Point estimates and 95% percentile intervals of every family on one simulated data set."""
+    frame = proc.simulate(cases, seed)
+    cells = CellTable.from_cases(frame, proc.scenario)
+    est = estimator or RiskLevelEstimator.from_scenario(proc.scenario)
+    est = est.fit(cells)
+    rl = est.risk_levels_
+    costs = costs_from_scenario(proc.scenario, rl)
+    fixed = [rule(rl.layout) for rule in proc.rules.values()]
+    statistic = ComparisonStatistic(est, est.design(cells.layout, len(cells.levels)), costs, cells.layout, fixed,
+                                    cells.has_arm, len(cells.arms))
+    result = bootstrap(cells, statistic, replicates, seed + 7_919, "poisson", 0.95, runner=InProcess(),
+                       outcome_model=rl.p)
+
+    def family(point, reps):
+        lo, hi = np.nanpercentile(reps, [2.5, 97.5], axis=0) if len(reps) else (np.nan * point, np.nan * point)
+        return point.ravel(), np.asarray(lo).ravel(), np.asarray(hi).ravel()
+
+    pt, rp = result.point, result.replicates
+    return {
+        "shares": family(pt["risk_level_share"][0], rp["risk_level_share"][:, 0]),
+        "effect": family(pt["effect"][0], rp["effect"][:, 0]),
+        "cost": family(pt["cost"][1:3], rp["cost"][:, 1:3]),
+        "difference": family(pt["cost"][1:2] - pt["cost"][2:3], rp["cost"][:, 1:2] - rp["cost"][:, 2:3]),
+    }
 
 
 @dataclass
-class Coverage:
-    share_truth: np.ndarray
-    share_target: np.ndarray
-    effect_truth: np.ndarray
-    effect_target: np.ndarray
-    share_bias_sd: np.ndarray
-    effect_bias_sd: np.ndarray
+class Study:
+    """Per family: estimates, interval ends (data sets x figures) and the truth (figures)."""
 
-    def report(self) -> str:
-        def fmt(a):
-            a = a[np.isfinite(a)]
-            return f"mean {a.mean():.3f}, min {a.min():.3f}, max {a.max():.3f} over {a.size} figures"
+    process: str
+    cases: int
+    cells: int
+    replicates: int
+    estimate: dict[str, np.ndarray] = field(default_factory=dict)
+    lower: dict[str, np.ndarray] = field(default_factory=dict)
+    upper: dict[str, np.ndarray] = field(default_factory=dict)
+    truth: dict[str, np.ndarray] = field(default_factory=dict)
 
-        return "\n".join([
-            f"stratum shares, population truth:   {fmt(self.share_truth)}",
-            f"stratum shares, finite-n target:    {fmt(self.share_target)}",
-            f"aid's effect, population truth:     {fmt(self.effect_truth)}",
-            f"aid's effect, finite-n target:      {fmt(self.effect_target)}",
-            f"stratum shares, |bias| / sd:        {fmt(np.abs(self.share_bias_sd))}",
-            f"aid's effect, |bias| / sd:          {fmt(np.abs(self.effect_bias_sd))}",
-        ])
+    @property
+    def sets(self) -> int:
+        return len(next(iter(self.estimate.values())))
+
+    def covered(self, name: str, kind: str = "percentile") -> np.ndarray:
+        """(data sets, figures) bool; figures whose truth is undefined are dropped.
+
+        ``kind``: 'percentile' (the tool's intervals) or 'basic', the same replicates reflected
+        about the point estimate, [2 est - upper, 2 est - lower] (Davison and Hinkley 1997,
+        ch. 5), which removes a bias the bootstrap reproduces instead of doubling it.
+        """
+        ok = np.isfinite(self.truth[name])
+        t = self.truth[name][ok]
+        lo, hi = self.lower[name][:, ok], self.upper[name][:, ok]
+        if kind == "basic":
+            e = self.estimate[name][:, ok]
+            lo, hi = 2 * e - hi, 2 * e - lo
+        return (lo <= t) & (t <= hi)
+
+    def coverage(self, name: str, kind: str = "percentile") -> float:
+        return float(self.covered(name, kind).mean())
+
+    def monte_carlo_sd(self, name: str) -> float:
+        """Monte Carlo sd of the family's mean coverage, treating its figures as one per data set
+        (conservative: figures of one data set are correlated, so they count once)."""
+        c = self.coverage(name)
+        return float(np.sqrt(max(c * (1 - c), 0.0025) / self.sets))
+
+    def table(self) -> pd.DataFrame:
+        rows = []
+        for name in FAMILIES:
+            ok = np.isfinite(self.truth[name])
+            e, t = self.estimate[name][:, ok], self.truth[name][ok]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                bias = np.nanmean(e, axis=0) - t
+                sd = np.nanstd(e, axis=0, ddof=1)
+                ratio = np.abs(bias) / np.where(sd > 0, sd, np.nan)
+            per_figure = self.covered(name).mean(axis=0)
+            rows.append({
+                "process": self.process, "cases": self.cases, "cases_per_cell": round(self.cases / self.cells),
+                "data_sets": self.sets, "replicates": self.replicates, "family": name, "figures": int(ok.sum()),
+                "coverage": self.coverage(name), "mc_sd": self.monte_carlo_sd(name), "lowest": float(per_figure.min()),
+                "coverage_basic": self.coverage(name, "basic"),
+                "mae": float(np.nanmean(np.abs(e - t))), "mean_abs_bias": float(np.nanmean(np.abs(bias))),
+                "bias_over_sd_mean": float(np.nanmean(ratio)), "bias_over_sd_max": float(np.nanmax(ratio)),
+            })
+        return pd.DataFrame(rows)
 
 
-def coverage_study(sets: int, cases: int, replicates: int, first_seed: int = 5000, **kwargs) -> Coverage:
-    """Simulate ``sets`` demo data sets of ``cases`` cases, run ``compare`` on each and count how
-    often the overall stratum shares' and the aid's effect's intervals cover each truth."""
-    base = load_scenario(demo_scenario_path())
-    share_true, effect_true = truth_figures()
-    est = {"share": [], "effect": []}
-    lo = {"share": [], "effect": []}
-    hi = {"share": [], "effect": []}
-    for k in range(sets):
-        scenario = replace(base, data=DataSource("simulate", simulate=cases), seed=first_seed + k)
-        c = compare(scenario, replicates=replicates, runner=InProcess(), **kwargs)
-        for name, key in (("share", "risk_level_share"), ("effect", "effect")):
-            low, high = c.result.interval(key)
-            est[name].append(c.result.point[key][0])
-            lo[name].append(low[0])
-            hi[name].append(high[0])
-    out = {}
-    for name, true in (("share", share_true), ("effect", effect_true)):
-        e, a, b = (np.array(x[name]) for x in (est, lo, hi))
-        target = e.mean(axis=0)
-        out[f"{name}_truth"] = np.where(np.isfinite(true), ((a <= true) & (true <= b)).mean(axis=0), np.nan)
-        out[f"{name}_target"] = np.where(np.isfinite(true), ((a <= target) & (target <= b)).mean(axis=0), np.nan)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out[f"{name}_bias_sd"] = (target - true) / e.std(axis=0, ddof=1)
-    return Coverage(**out)
+def coverage_study(name: str, sets: int, replicates: int, cases: int | None = None, first_seed: int = 5000,
+                   estimator: RiskLevelEstimator | None = None) -> Study:
+    """Run ``sets`` data sets of process ``name`` with ``replicates`` bootstrap replicates each."""
+    proc = process(name)
+    n = cases or proc.cases
+    study = Study(name, n, proc.truth.n_cells, replicates, truth=truth_figures(proc))
+    runs = [one_data_set(proc, n, replicates, first_seed + k, estimator) for k in range(sets)]
+    for fam in FAMILIES:
+        study.estimate[fam] = np.array([r[fam][0] for r in runs])
+        study.lower[fam] = np.array([r[fam][1] for r in runs])
+        study.upper[fam] = np.array([r[fam][2] for r in runs])
+    return study
+
+
+# ----------------------------------------------------------------------------------------------
+# Accuracy of the cell estimates: the estimator against plain rates projected to monotone
+# ----------------------------------------------------------------------------------------------
+ESTIMATORS = {
+    "cell estimator": dict(),
+    "common level ratios": dict(level_terms=False, translation_limit=None),
+    "limited translation, D = 2": dict(translation_limit=2.0),
+    "plain rates + isotonic": dict(prior_strength=0.0, level_terms=False, translation_limit=None),
+}
+
+
+def accuracy_study(name: str, sets: int, cases: int | None = None, first_seed: int = 9000) -> pd.DataFrame:
+    """Mean absolute error of p_jd(x) per estimator: case-weighted over cells, averaged over data sets
+    (one row per estimator; ``mae_large`` over cells with at least 1,000 cases)."""
+    proc = process(name)
+    n = cases or proc.cases
+    truth = proc.truth
+    key_t = pd.Index(truth.layout.frame.astype(str).agg("|".join, axis=1))
+    base = RiskLevelEstimator.from_scenario(proc.scenario)
+    errors = {k: [] for k in ESTIMATORS}
+    large = {k: [] for k in ESTIMATORS}
+    for s in range(sets):
+        cells = CellTable.from_cases(proc.simulate(n, first_seed + s), proc.scenario)
+        pos = key_t.get_indexer(cells.layout.frame.astype(str).agg("|".join, axis=1))
+        w = cells.weights.astype(np.float64)
+        for label, kw in ESTIMATORS.items():
+            est = RiskLevelEstimator(kw.get("prior_strength", base.prior_strength), base.target_covariates,
+                                     base.structural_zeros, kw.get("level_terms", True),
+                                     kw.get("translation_limit", None)).fit(cells)
+            err = np.abs(est.risk_levels_.p - truth.p[pos]).mean(axis=(1, 2))
+            errors[label].append(np.sum(w * err) / w.sum())
+            big = w >= 1000
+            large[label].append(np.sum((w * err)[big]) / w[big].sum() if big.any() else np.nan)
+    return pd.DataFrame({"process": name, "cases": n, "estimator": list(ESTIMATORS),
+                         "mae": [np.mean(errors[k]) for k in ESTIMATORS],
+                         "mae_large": [np.nanmean(large[k]) if np.isfinite(large[k]).any() else np.nan for k in ESTIMATORS]})
 
 
 if __name__ == "__main__":  # pragma: no cover - a manual run for the documentation
-    sets, cases, replicates = (int(a) for a in sys.argv[1:4])
-    extra = dict(a.split("=") for a in sys.argv[4:])
-    print(f"{sets} data sets of {cases:,} cases, {replicates} replicates, {extra or 'defaults'}")
-    print(coverage_study(sets, cases, replicates, **extra).report())
+    which, sets, replicates = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+    cases = int(sys.argv[4]) if len(sys.argv) > 4 else None
+    pd.set_option("display.width", 200)
+    pd.set_option("display.max_columns", 30)
+    for name in (PROCESSES if which == "all" else which.split(",")):
+        print(accuracy_study(name, min(sets, 20), cases).to_string(index=False), flush=True)
+        print(coverage_study(name, sets, replicates, cases).table().to_string(index=False, float_format=lambda v: f"{v:.3f}"),
+              flush=True)

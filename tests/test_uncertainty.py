@@ -1,4 +1,4 @@
-"""The bootstrap engine: agreement with scipy, the resampling schemes, determinism, coverage."""
+"""The bootstrap engine: agreement with scipy, the resampling schemes, determinism (coverage: tests/test_coverage.py)."""
 
 from __future__ import annotations
 
@@ -24,7 +24,6 @@ from policy.assessment.uncertainty import (
     percentile_interval,
 )
 
-from .coverage import coverage_study
 from .conftest import write_scenario
 
 
@@ -175,31 +174,6 @@ def test_uncertainty_section_errors(tmp_path, entry, message):
     path.write_text(path.read_text() + f"\n[uncertainty]\n{entry}\n")
     with pytest.raises(InputError, match=message):
         load_scenario(path)
-
-
-# ----------------------------------------------------------------------------------------------
-# Coverage over simulated data sets (the demo simulator's exact truth)
-# ----------------------------------------------------------------------------------------------
-def _check(cov, band, target_band):
-    # family means: the share of (data set, figure) pairs whose interval covers the truth
-    for name in ("share_target", "effect_target"):
-        values = getattr(cov, name)
-        assert target_band[0] <= np.nanmean(values) <= target_band[1], (name, cov.report())
-    for name in ("share_truth", "effect_truth"):
-        values = getattr(cov, name)
-        assert band[0] <= np.nanmean(values) <= band[1], (name, cov.report())
-
-
-def test_coverage_short_run():
-    # 30 data sets: the family means have a Monte Carlo sd of about 2 points, hence the wider band
-    cov = coverage_study(sets=30, cases=20_000, replicates=100)
-    _check(cov, band=(0.85, 0.99), target_band=(0.88, 0.995))
-
-
-@pytest.mark.slow
-def test_coverage_long_run():
-    cov = coverage_study(sets=200, cases=20_000, replicates=400)
-    _check(cov, band=(0.91, 0.98), target_band=(0.91, 0.98))
 
 
 def test_a_chunk_scored_in_small_batches_agrees_and_repeats_its_bits(demo_cells, demo_scenario, monkeypatch):

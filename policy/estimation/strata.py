@@ -8,9 +8,11 @@ every decision) has the distribution
 
 Under unconfoundedness given the cell, p_jd(x) = P(Y_j = 1 | D = d, x). The cell estimator
 pools both arms, shrinks each (cell, level) rate toward a pooled target (the cell's baseline
-risk, shrunk toward a coarser group's, times the level's Mantel-Haenszel risk ratio; beta-binomial
-with prior strengths by the method of moments), and projects each cell's rates onto
-non-increasing sequences in d by weighted isotonic regression.
+risk, shrunk toward a coarser group's, times the level's risk ratio: the Mantel-Haenszel ratio
+common to all cells, or ratios varying with the cell columns where the data support it,
+:mod:`policy.estimation.target`; beta-binomial with prior strengths by the method of moments,
+optionally kept within a few standard errors of the cell's own rate), and projects each cell's rates
+onto non-increasing sequences in d by weighted isotonic regression.
 
 References
 ----------
@@ -22,6 +24,9 @@ Kleinman, J. C. (1973). Proportions with extraneous variance: single and indepen
 JASA 68(341), 46-54. (Method-of-moments weights for overdispersed proportions.)
 Greenland, S. and Robins, J. M. (1985). Estimation of a common effect parameter from sparse
 follow-up data. Biometrics 41(1), 55-68. (The Mantel-Haenszel risk ratio.)
+Efron, B. and Morris, C. (1971). Limiting the risk of Bayes and empirical Bayes estimators,
+Part I: the Bayes case. JASA 66(336), 807-815; Part II: the empirical Bayes case (1972), JASA
+67(337), 130-139. (The limited-translation rule.)
 """
 
 from __future__ import annotations
@@ -37,6 +42,7 @@ from policy.cautions import assumptions_for
 from policy.inputs.cells import CellLayout, CellTable
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
+from policy.estimation.target import cell_level_ratios, select_level_terms
 
 __all__ = [
     "RiskLevels",
@@ -48,6 +54,9 @@ __all__ = [
 
 #: bounds of the method-of-moments intra-cell correlation rho = 1 / (1 + prior strength)
 RHO_BOUNDS = (1e-4, 0.5)
+#: D of the limited-translation rule (a shrunk rate stays within D standard errors of the cell's
+#: own); None: off by default (docs/method.md gives what it cost and gained on simulated data)
+TRANSLATION_LIMIT = None
 
 
 # ----------------------------------------------------------------------------------------------
@@ -296,7 +305,8 @@ def shrunk_baselines(events: np.ndarray, observed: np.ndarray, theta: np.ndarray
                      factors: Sequence[tuple[sp.csr_matrix, np.ndarray]] | None) -> np.ndarray:
     """Each cell's risk under the most lenient level, shrunk toward a log-linear model's.
 
-    With level ratios theta, a cell's cases count as ``N_x = sum_d n_xd theta_d`` cases under
+    With level ratios theta (common, shape (..., J, L), or per cell, shape (..., n_cells, J, L)),
+    a cell's cases count as ``N_x = sum_d n_xd theta_d`` cases under
     the most lenient level (indirect standardization), with ``e_x = sum_d e_xd`` events. A
     main-effects log-linear model of e_x with exposure N_x (:func:`loglinear_rates`) gives each
     cell a model baseline m_x; the cell's baseline (e_x + k m_x) / (N_x + k) shrinks toward it,
@@ -307,7 +317,8 @@ def shrunk_baselines(events: np.ndarray, observed: np.ndarray, theta: np.ndarray
     ndarray of shape (..., n_cells, J)
     """
     e = events.sum(axis=-1)
-    n = np.sum(observed * theta[..., None, :, :], axis=-1)
+    per_cell = theta if theta.ndim == observed.ndim else theta[..., None, :, :]
+    n = np.sum(observed * per_cell, axis=-1)
     if factors:
         target = loglinear_rates(e, n, factors)
     else:
@@ -323,13 +334,22 @@ def shrunk_rates(
     factors: Sequence[tuple[sp.csr_matrix, np.ndarray]] | None,
     prior_strength: float | str = "auto",
     zero: np.ndarray | None = None,
+    level_terms: bool = True,
+    translation_limit: float | None = TRANSLATION_LIMIT,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Rates per (cell, outcome, level) shrunk toward a pooled target (beta-binomial).
 
-    The target of cell x at level d is ``b_x * theta_d``: the cell's baseline risk, shrunk
+    The target of cell x at level d is ``b_x * theta_d(x)``: the cell's baseline risk, shrunk
     toward a main-effects log-linear model's (:func:`shrunk_baselines`), times the level's risk
-    ratio (:func:`level_risk_ratios`). It carries a cell's own risk, seen at the levels it did
-    observe, to the levels it did not.
+    ratio: common to all cells (:func:`level_risk_ratios`), or varying with the cell columns
+    whose level terms the data support (:func:`policy.estimation.target.cell_level_ratios`). It
+    carries a cell's own risk, seen at the levels it did observe, to the levels it did not.
+
+    With a ``translation_limit`` D, each shrunk rate stays within D standard errors (the larger
+    binomial one, at the shrunk or at the own rate) of the cell's own rate at that level (the
+    limited-translation rule of Efron and Morris 1971, 1972): shrinkage can move a sparse cell
+    far, a cell with thousands of cases hardly at all, so the bias from a target that fits a
+    large cell poorly is at most D of its standard errors and vanishes as its cases grow.
 
     Parameters
     ----------
@@ -342,6 +362,11 @@ def shrunk_rates(
         moments per outcome kind and level.
     zero : ndarray of shape (J, L) of bool, optional
         Structural zeros: the outcome cannot occur at these levels.
+    level_terms : bool
+        Let the level ratios vary with the cell columns of ``factors`` where Akaike's
+        information criterion keeps the term; False: common ratios only.
+    translation_limit : float or None
+        D of the limited-translation rule; None: no limit.
 
     Returns
     -------
@@ -359,8 +384,12 @@ def shrunk_rates(
     theta = level_risk_ratios(events, observed)
     if zero is not None:
         theta = np.where(zero, 0.0, theta)
+    if level_terms and factors:
+        theta, _ = cell_level_ratios(events, observed, factors, theta, zero)
+    else:
+        theta = np.broadcast_to(theta[..., None, :, :], events.shape)
     base = shrunk_baselines(events, observed, theta, factors)
-    target = np.clip(base[..., None] * theta[..., None, :, :], 0.0, 1.0)
+    target = np.clip(base[..., None] * theta, 0.0, 1.0)
     if prior_strength == "auto":
         kappa = moment_prior_strength(events, observed, target)
     else:
@@ -369,6 +398,15 @@ def shrunk_rates(
     weight = observed + k
     with np.errstate(invalid="ignore", divide="ignore"):
         rate = np.where(weight > 0, (events + k * target) / np.where(weight > 0, weight, 1), target)
+        if translation_limit is not None:
+            seen = observed > 0
+            n_safe = np.where(seen, observed, 1.0)
+            own = events / n_safe
+            # the larger of the two binomial standard errors: a rare outcome's single event in a
+            # small cell does not pin the estimate to it
+            spread = np.maximum(rate * (1.0 - rate), own * (1.0 - own))
+            reach = translation_limit * np.sqrt(spread / n_safe)
+            rate = np.where(seen, np.clip(rate, own - reach, own + reach), rate)
     # a level never observed in a cell still needs a positive weight in the projection
     weight = np.where(weight > 0, weight, 1e-6)
     return rate, weight, kappa, target
@@ -535,6 +573,13 @@ class RiskLevelEstimator:
         None: every cell column; empty: one overall baseline.
     structural_zeros : mapping of int to int, optional
         Outcome position -> first decision level at which the outcome cannot occur.
+    level_terms : bool, default True
+        Let each level's risk ratio vary with a target covariate where Akaike's information
+        criterion keeps that covariate-by-level term (:mod:`policy.estimation.target`); False:
+        one common ratio per level.
+    translation_limit : float or None, default None
+        A shrunk rate stays within this many standard errors of the cell's own rate at the level
+        (limited translation, Efron and Morris 1971); None: no limit.
 
     Attributes
     ----------
@@ -543,7 +588,10 @@ class RiskLevelEstimator:
     prior_strength_ : ndarray of shape (J, L)
         The prior strength used.
     level_ratios_ : ndarray of shape (J, L)
-        Risk at each level relative to the most lenient (Mantel-Haenszel, chained).
+        Risk at each level relative to the most lenient, averaged over cells as the target
+        weighs them.
+    level_terms_ : dict of str to list of str
+        Outcome key -> the cell columns whose level terms the criterion kept.
     target_ : ndarray of shape (n_cells, J, L)
         The target rates.
 
@@ -552,11 +600,16 @@ class RiskLevelEstimator:
     Steps, per outcome kind, vectorized over cells (and over bootstrap replicates):
 
     1. level risk ratios theta_d by chained Mantel-Haenszel estimators over cells
-       (:func:`level_risk_ratios`), clipped so a harsher level never raises risk;
+       (:func:`level_risk_ratios`), clipped so a harsher level never raises risk; where
+       Akaike's information criterion keeps covariate-by-level terms, per-cell ratios
+       theta_d(x) from a log-linear model with those terms instead
+       (:func:`policy.estimation.target.cell_level_ratios`);
     2. each cell's baseline risk b_x by indirect standardization, shrunk toward a main-effects
        log-linear model's fitted by iterative proportional fitting (:func:`shrunk_baselines`);
-    3. each (cell, level) rate shrunk toward the target b_x theta_d (beta-binomial, prior
-       strength by moments, Kleinman 1973); a level never observed in a cell takes the target;
+    3. each (cell, level) rate shrunk toward the target b_x theta_d(x) (beta-binomial, prior
+       strength by moments, Kleinman 1973), with a ``translation_limit`` kept within that many
+       standard errors of the cell's own rate (Efron and Morris 1971); a level never observed in a cell
+       takes the target;
     4. projection onto non-increasing sequences over the levels, weighted by observed cases
        plus prior strength (:func:`isotonic_nonincreasing`).
 
@@ -564,7 +617,12 @@ class RiskLevelEstimator:
     """
 
     def __init__(self, prior_strength: float | str = "auto", target_covariates: Sequence[str] | None = None,
-                 structural_zeros: Mapping[int, int] | None = None):
+                 structural_zeros: Mapping[int, int] | None = None, level_terms: bool = True,
+                 translation_limit: float | None = TRANSLATION_LIMIT):
+        if translation_limit is not None and not translation_limit > 0:
+            raise InputError(f"translation_limit must be a number > 0 or None; got {translation_limit!r}.")
+        self.level_terms = bool(level_terms)
+        self.translation_limit = translation_limit
         self.prior_strength = prior_strength
         self.target_covariates = None if target_covariates is None else tuple(target_covariates)
         self.structural_zeros = dict(structural_zeros or {})
@@ -608,7 +666,8 @@ class RiskLevelEstimator:
         # structural zeros are known, not estimated
         observed = np.where(zero, 0, observed)
         events = np.where(zero, 0, events)
-        rate, weight, kappa, target = shrunk_rates(events, observed, design, self.prior_strength, zero)
+        rate, weight, kappa, target = shrunk_rates(events, observed, design, self.prior_strength, zero,
+                                                   self.level_terms, self.translation_limit)
         rate = np.where(zero, 0.0, rate)
         p = isotonic_nonincreasing(rate, weight)
         return np.clip(np.where(zero, 0.0, p), 0.0, 1.0), kappa, target
@@ -635,6 +694,11 @@ class RiskLevelEstimator:
         # the target is baseline x level ratio, so its level profile gives the ratios back
         level_sums = target.sum(axis=0)
         self.level_ratios_ = level_sums / np.where(level_sums[:, :1] > 0, level_sums[:, :1], 1.0)
+        design = self.design(cells.layout, L)
+        names = cells.layout.columns if self.target_covariates is None else self.target_covariates
+        kept = (select_level_terms(np.where(zero, 0, events), np.where(zero, 0, observed), design, zero)[0]
+                if self.level_terms and design else np.zeros((len(names), J), dtype=bool))
+        self.level_terms_ = {key: [c for u, c in enumerate(names) if kept[u, j]] for j, key in enumerate(cells.outcomes)}
         self.risk_levels_ = RiskLevels(
             layout=cells.layout,
             level_values=cells.levels,
