@@ -1,0 +1,129 @@
+"""Costs implied by current practice along one ratio (policy/assessment/implied.py)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.optimize import linprog
+
+from policy.assessment.implied import implied_costs, implied_interval, implied_scenario
+from policy.assessment.sweep import cost_lines, ratio_axis
+from policy.assessment.sweep.envelope import envelope_functions, lower_envelope
+from policy.decision.costs import costs_from_scenario
+from policy.decision.rules import Rule
+from policy.decision.solve import aggregation_matrix
+from policy.errors import InputError
+from policy.running.pipeline import estimate
+
+from .conftest import run_cli
+
+
+@pytest.fixture(scope="module")
+def demo(demo_scenario):
+    cells, rl = estimate(demo_scenario)
+    costs = costs_from_scenario(demo_scenario, rl)
+    axis = ratio_axis(rl, costs, "new_offense")
+    index, groups = rl.layout.rule_index()
+    base, slope = cost_lines(rl, costs, [axis])
+    return demo_scenario, cells, rl, costs, axis, index, groups, base, slope[0]
+
+
+def _optimum_knots(base, slope, w, index, n):
+    M = aggregation_matrix(index, n, w)
+    A, B = M @ base, M @ slope
+    env = lower_envelope(A, B)
+    _, total = envelope_functions(env, np.bincount(index, weights=w, minlength=n), A, B)
+    return env, total.knots
+
+
+def _lp_minimum(base, slope, w, index, n, delta, hi):
+    """Reference: min over r of alpha + beta r - sum_g t_g subject to t_g <= A_g(d) + r B_g(d), a
+    linear program (scipy.optimize.linprog, HiGHS); the minimum of a convex piecewise-linear
+    function written with one epigraph variable per rule cell (common practice)."""
+    M = aggregation_matrix(index, n, w)
+    A, B = M @ base, M @ slope
+    wd = w[:, None] * delta
+    alpha, beta = np.sum(wd * base), np.sum(wd * slope)
+    L = A.shape[1]
+    c = np.concatenate([[beta], -np.ones(n)])
+    rows = np.zeros((n * L, n + 1))
+    g = np.repeat(np.arange(n), L)
+    rows[np.arange(n * L), 1 + g] = 1.0
+    rows[:, 0] = -B.reshape(-1)
+    res = linprog(c, A_ub=rows, b_ub=A.reshape(-1), bounds=[(0, hi)] + [(None, None)] * n, method="highs")
+    assert res.status == 0
+    return (alpha + res.fun) / w.sum(), res.x[0]
+
+
+def _mixed_rule(rl, index, groups, levels, rng, noise):
+    """Decision shares per cell: the given level per rule cell, with a share ``noise`` of the
+    cases of each cell spread at random over all levels."""
+    L = len(rl.level_values)
+    onehot = np.eye(L)[levels[index]]
+    mix = rng.dirichlet(np.ones(L), size=len(index))
+    delta = (1 - noise) * onehot + noise * mix
+    return Rule.per_cell("courts (constructed)", "observed", rl.layout, delta, rl.level_values, rl.level_labels, rl.weights)
+
+
+def test_minimum_matches_a_linear_program(demo):
+    _, cells, rl, costs, axis, index, groups, base, slope = demo
+    from policy.decision.candidates import observed_rules
+    for rule in observed_rules(cells):
+        res = implied_interval(base, slope, rl.weights, index, len(groups), rule.cell_delta, 0.0, 400.0)
+        lp_value, lp_r = _lp_minimum(base, slope, rl.weights, index, len(groups), rule.cell_delta, 400.0)
+        assert res.regret_per_case == pytest.approx(lp_value, rel=1e-7, abs=1e-6)
+        assert res.r_lo - 1e-6 <= lp_r <= res.r_hi + 1e-6
+
+
+def test_a_known_ratio_is_recovered_exactly_without_noise(demo):
+    _, _, rl, costs, axis, index, groups, base, slope = demo
+    env, knots = _optimum_knots(base, slope, rl.weights, index, len(groups))
+    rng = np.random.default_rng(3)
+    for r_star in (0.5 * axis.scenario_ratio, axis.scenario_ratio, 2.0 * axis.scenario_ratio):
+        rule = _mixed_rule(rl, index, groups, env.level_at(r_star), rng, 0.0)
+        res = implied_interval(base, slope, rl.weights, index, len(groups), rule.cell_delta)
+        assert res.regret_per_case == pytest.approx(0.0, abs=1e-6)
+        # the interval is the stretch between the optimum's knots on either side of r*
+        i = np.searchsorted(knots, r_star)
+        assert res.r_lo == pytest.approx(knots[i - 1] if i > 0 else 0.0, rel=1e-9)
+        assert res.r_hi == pytest.approx(knots[i] if i < len(knots) else np.inf, rel=1e-9)
+
+
+def test_a_known_ratio_is_recovered_within_the_rule_cells_resolution_with_noise(demo):
+    _, _, rl, costs, axis, index, groups, base, slope = demo
+    env, knots = _optimum_knots(base, slope, rl.weights, index, len(groups))
+    rng = np.random.default_rng(4)
+    for r_star in (0.5 * axis.scenario_ratio, axis.scenario_ratio, 2.0 * axis.scenario_ratio):
+        rule = _mixed_rule(rl, index, groups, env.level_at(r_star), rng, 0.05)
+        res = implied_interval(base, slope, rl.weights, index, len(groups), rule.cell_delta)
+        # the resolution: the closed stretch between the optimum's knots on either side of r*
+        i = np.searchsorted(knots, r_star)
+        assert 0 < i < len(knots)
+        assert knots[i - 1] - 1e-9 <= res.r_lo and res.r_hi <= knots[i] + 1e-9, (r_star, res)
+        assert res.regret_per_case > 0
+
+
+def test_groups_restrict_the_sums_and_differences_follow(demo):
+    _, cells, rl, costs, axis, index, groups, base, slope = demo
+    from policy.decision.candidates import observed_rules
+    rules = observed_rules(cells)
+    out = implied_costs(rl, costs, axis, rules)
+    t = out.table
+    assert set(t["protected"]) == {"all", *rl.layout.protected}
+    for rule in rules:
+        rows = t[(t["rule"] == rule.name) & (t["protected"] == "sex")]
+        assert rows["cases"].sum() == pytest.approx(rl.weights.sum())
+        for row in rows.itertuples():
+            mask = np.asarray(rl.layout.frame["sex"] == row.group)
+            res = implied_interval(base, slope, np.where(mask, rl.weights, 0.0), index, len(groups), rule.cell_delta)
+            assert (res.r_lo, res.r_hi) == (row.ratio_low, row.ratio_high)
+    d = out.differences.iloc[0]
+    g = t[(t["rule"] == d["rule"]) & (t["protected"] == d["protected"])].set_index("group")
+    assert d["ratio_difference_low"] == pytest.approx(g.loc[d["group"], "ratio_low"] - g.loc[d["versus"], "ratio_high"])
+    assert out.sentences() and "acted as if" in out.sentences()[0]
+
+
+def test_bad_range_is_refused(demo):
+    _, _, rl, costs, axis, index, groups, base, slope = demo
+    with pytest.raises(InputError, match="range"):
+        implied_interval(base, slope, rl.weights, index, len(groups), np.eye(3)[np.zeros(len(index), int)], 5.0, 1.0)
