@@ -127,3 +127,27 @@ def test_bad_range_is_refused(demo):
     _, _, rl, costs, axis, index, groups, base, slope = demo
     with pytest.raises(InputError, match="range"):
         implied_interval(base, slope, rl.weights, index, len(groups), np.eye(3)[np.zeros(len(index), int)], 5.0, 1.0)
+
+
+def test_cli_sweep_implied_writes_the_tables_and_one_sentence_per_arm(small_case_table, tmp_path, capsys):
+    scenario, _ = small_case_table
+    code, out, err = run_cli(["sweep", scenario, "--out", tmp_path / "o", "--ratio", "new_offense", "--implied",
+                              "--replicates", "0", "--no-figures"], capsys)
+    assert code == 0, err
+    import pandas as pd
+    table = pd.read_csv(tmp_path / "o" / "implied_costs.csv")
+    assert {"rule", "protected", "group", "ratio_low", "ratio_high", "cost_low", "cost_high", "regret_per_case"} <= set(table.columns)
+    overall = table[table["protected"] == "all"]
+    assert len(overall) == 2  # one per arm
+    assert (overall["ratio_low"] <= overall["ratio_high"]).all()
+    assert (tmp_path / "o" / "implied_differences.csv").exists()
+    assert out.count("acted as if") == 2
+    assert "not what any judge intended" in " ".join(out.split())
+
+
+def test_cli_implied_needs_one_ratio(tmp_path, capsys):
+    from .conftest import SCENARIOS
+    code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o", "--ratio", "new_offense",
+                              "--ratio", "missed_court", "--implied", "--no-figures"], capsys)
+    assert code == 2 and "--implied" in err + out
+    assert not (tmp_path / "o" / "implied_costs.csv").exists()

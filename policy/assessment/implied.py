@@ -40,6 +40,7 @@ import pandas as pd
 from policy.decision.costs import Costs
 from policy.decision.rules import Rule
 from policy.decision.solve import aggregation_matrix
+from policy.cautions import CAUTIONS
 from policy.errors import InputError
 from policy.estimation.strata import RiskLevels
 from policy.assessment.sweep.axes import RatioAxis, cost_lines
@@ -48,6 +49,12 @@ from policy.assessment.sweep.envelope import envelope_functions, lower_envelope
 #: relative tolerance under which two regret values count as equal (common practice for
 #: floating-point sums of a few thousand terms)
 REGRET_TOLERANCE = 1e-9
+
+#: what an implied cost means, shown beside every implied figure
+MEANING = ("'Implied' means: the costs under which these decisions would be the cheapest of the rules the rule "
+           "cells allow, given the estimated risk levels and every other cost at the scenario's value. It describes "
+           "groups of decisions, not what any judge intended or valued, and it inherits the risk levels' assumptions; "
+           "a difference between groups is a disparity diagnostic, not a finding about motive.")
 
 __all__ = ["ImpliedInterval", "ImpliedCosts", "implied_interval", "implied_costs", "REGRET_TOLERANCE"]
 
@@ -166,11 +173,18 @@ class ImpliedCosts:
                        f"per case more than the cheapest rule the rule cells allow.{edge}")
         return out
 
+    def output_files(self) -> dict[str, Any]:
+        """``implied_costs.csv``, ``implied_differences.csv`` and ``implied_costs.json`` (axis,
+        range, what the figures mean and the cautions)."""
+        return {"implied_costs.csv": self.table, "implied_differences.csv": self.differences,
+                "implied_costs.json": {"axis": self.axis.describe(), "range": [self.lo, None if not np.isfinite(self.hi) else self.hi],
+                                       "sentences": self.sentences(), "meaning": MEANING, "cautions": list(CAUTIONS)}}
+
     def __str__(self) -> str:
         lines = [f"Costs implied by current practice along {self.axis.title} "
                  f"(1 = {self.axis.reference_cost:,.2f} {self.axis.unit}; the scenario's ratio is {self.axis.scenario_ratio:.4g}):"]
         lines += ["  " + s for s in self.sentences()]
-        lines.append("  'Implied' describes the decisions and the estimated risk levels, not what judges intended.")
+        lines.append("  " + MEANING)
         return "\n".join(lines)
 
 
