@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 from scipy.optimize import linprog
 
-from policy.assessment.implied import implied_costs, implied_interval, implied_scenario
+from policy.assessment.implied import implied_costs, implied_interval
+from policy.assessment.implied_scenario import implied_scenario
 from policy.assessment.sweep import cost_lines, ratio_axis
 from policy.assessment.sweep.envelope import envelope_functions, lower_envelope
 from policy.decision.costs import costs_from_scenario
@@ -151,3 +152,35 @@ def test_cli_implied_needs_one_ratio(tmp_path, capsys):
                               "--ratio", "missed_court", "--implied", "--no-figures"], capsys)
     assert code == 2 and "--implied" in err + out
     assert not (tmp_path / "o" / "implied_costs.csv").exists()
+
+
+def test_bootstrap_intervals_hold_the_point_and_are_reproducible(demo_scenario):
+    a = implied_scenario(demo_scenario, "new_offense", replicates=12, seed=5, workers=1)
+    b = implied_scenario(demo_scenario, "new_offense", replicates=12, seed=5, workers=1)
+    t = a.table
+    assert (t["ratio_low_lower"] <= t["ratio_low"] + 1e-12).all()
+    assert (t["ratio_high_upper"] >= t["ratio_high"] - 1e-12).all()
+    assert t[["ratio_low_lower", "ratio_high_upper"]].equals(b.table[["ratio_low_lower", "ratio_high_upper"]])
+    d = a.differences
+    assert (d["ratio_difference_lower"] <= d["ratio_difference_low"] + 1e-12).all()
+    assert (d["ratio_difference_upper"] >= d["ratio_difference_high"] - 1e-12).all()
+    assert a.meta["replicates"] == 12
+    assert "bootstrap interval" in a.sentences()[0]
+
+
+def test_bootstrap_replicate_of_the_data_itself_gives_the_point(demo_scenario):
+    # the statistic applied to the original counts must reproduce the exact intervals
+    from policy.assessment.implied import protected_groups
+    from policy.assessment.implied_bands import ImpliedReplicates
+    from policy.assessment.uncertainty import CountResampler, OnRiskLevels
+    from policy.estimation.strata import RiskLevelEstimator
+    cells, rl = estimate(demo_scenario)
+    costs = costs_from_scenario(demo_scenario, rl)
+    point = implied_scenario(demo_scenario, "new_offense", replicates=0)
+    index, groups = rl.layout.rule_index()
+    masks = [np.ones(len(rl.weights), dtype=bool)] + [m for _, _, m in protected_groups(rl)]
+    est = RiskLevelEstimator.from_scenario(demo_scenario)
+    stat = OnRiskLevels(ImpliedReplicates(costs, point.axis, index, len(groups), index, len(groups), masks, 0.0, np.inf),
+                        est, est.design(cells.layout, len(cells.levels)))
+    out = stat(CountResampler(cells).original)
+    np.testing.assert_allclose(out["r_lo"].reshape(-1), point.table["ratio_low"], rtol=1e-7)

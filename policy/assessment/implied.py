@@ -32,7 +32,7 @@ minimum says the decisions are not well explained by any ratio on the axis.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
@@ -56,7 +56,8 @@ MEANING = ("'Implied' means: the costs under which these decisions would be the 
            "groups of decisions, not what any judge intended or valued, and it inherits the risk levels' assumptions; "
            "a difference between groups is a disparity diagnostic, not a finding about motive.")
 
-__all__ = ["ImpliedInterval", "ImpliedCosts", "implied_interval", "implied_costs", "REGRET_TOLERANCE"]
+__all__ = ["ImpliedInterval", "ImpliedCosts", "implied_interval", "implied_costs", "protected_groups",
+           "REGRET_TOLERANCE", "MEANING"]
 
 
 @dataclass(frozen=True)
@@ -145,6 +146,8 @@ class ImpliedCosts:
         Per rule, protected attribute and group after the first: ``rule``, ``protected``,
         ``group``, ``versus``, ``ratio_difference_low``, ``ratio_difference_high``,
         ``cost_difference_low``, ``cost_difference_high``.
+    meta : dict or None
+        Bootstrap settings when intervals were added (:func:`policy.assessment.implied_bands.implied_bands`).
     """
 
     axis: RatioAxis
@@ -152,6 +155,7 @@ class ImpliedCosts:
     hi: float
     table: pd.DataFrame
     differences: pd.DataFrame = field(default_factory=pd.DataFrame)
+    meta: dict | None = None
 
     def sentences(self) -> list[str]:
         """One plain sentence per rule (overall rows)."""
@@ -164,6 +168,9 @@ class ImpliedCosts:
             else:
                 rh = "inf" if not np.isfinite(row.ratio_high) else f"{row.ratio_high:.4g}"
                 between = f"between {row.cost_low:,.0f}{unit} and {high} (ratio {row.ratio_low:.4g} to {rh})"
+            if "ratio_low_lower" in self.table and np.isfinite(row.ratio_low_lower):
+                hu = "inf" if not np.isfinite(row.ratio_high_upper) else f"{row.cost_high_upper:,.0f}{unit}"
+                between += f" [{self.meta['interval']}: {row.cost_low_lower:,.0f}{unit} to {hu}]"
             edge = ""
             if row.at_range_low or row.at_range_high:
                 edge = " The interval touches the end of the range searched; a ratio beyond it may explain the decisions as well."
@@ -178,7 +185,7 @@ class ImpliedCosts:
         range, what the figures mean and the cautions)."""
         return {"implied_costs.csv": self.table, "implied_differences.csv": self.differences,
                 "implied_costs.json": {"axis": self.axis.describe(), "range": [self.lo, None if not np.isfinite(self.hi) else self.hi],
-                                       "sentences": self.sentences(), "meaning": MEANING, "cautions": list(CAUTIONS)}}
+                                       "sentences": self.sentences(), "uncertainty": self.meta, "meaning": MEANING, "cautions": list(CAUTIONS)}}
 
     def __str__(self) -> str:
         lines = [f"Costs implied by current practice along {self.axis.title} "
@@ -188,7 +195,8 @@ class ImpliedCosts:
         return "\n".join(lines)
 
 
-def _protected_groups(risk_levels: RiskLevels) -> list[tuple[str, str, np.ndarray]]:
+def protected_groups(risk_levels: RiskLevels) -> list[tuple[str, str, np.ndarray]]:
+    """(protected attribute, value, mask over cells) of every protected group with cells."""
     frame = risk_levels.layout.frame
     out = []
     for col in risk_levels.layout.protected:
@@ -224,7 +232,7 @@ def implied_costs(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, rules:
     base, slope = cost_lines(risk_levels, costs, [axis])
     slope = slope[0]
     w = risk_levels.weights.astype(np.float64)
-    subsets = [("all", "all", np.ones(len(w), dtype=bool))] + (_protected_groups(risk_levels) if by_group else [])
+    subsets = [("all", "all", np.ones(len(w), dtype=bool))] + (protected_groups(risk_levels) if by_group else [])
     rows, diffs = [], []
     c = axis.reference_cost
     for rule in rules:
@@ -252,28 +260,3 @@ def implied_costs(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, rules:
     diff_cols = ["rule", "protected", "group", "versus", "ratio_difference_low", "ratio_difference_high",
                  "cost_difference_low", "cost_difference_high"]
     return ImpliedCosts(axis, float(lo), float(hi), pd.DataFrame(rows), pd.DataFrame(diffs, columns=diff_cols))
-
-
-def implied_scenario(scenario: Any, ratio: str, per: str | None = None, lo: float = 0.0, hi: float = np.inf,
-                     outcome_costs: Mapping[str, float] | None = None,
-                     decision_costs: Mapping[str, float] | None = None) -> ImpliedCosts:
-    """Costs implied by what courts did (each arm) in one scenario along ``ratio``.
-
-    Needs the cases behind the estimates (a case or counts table, or the simulator): a
-    risk-level table holds no observed decisions.
-    """
-    from policy.decision.candidates import observed_rules
-    from policy.decision.costs import costs_from_scenario
-    from policy.estimation.from_scenario import estimate
-    from policy.inputs.scenario import as_scenario
-    from policy.assessment.sweep.axes import ratio_axis
-
-    scenario = as_scenario(scenario)
-    cells, rl = estimate(scenario)
-    if cells is None:
-        raise InputError(f"{scenario.file}: implied costs need the observed decisions (a case or counts table, or the "
-                         "simulator); a risk-level table holds none.")
-    costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
-    axis = ratio_axis(rl, costs, ratio, per)
-    rules = observed_rules(cells, scenario.aid.name, scenario.level_labels)
-    return implied_costs(rl, costs, axis, rules, lo=lo, hi=hi)

@@ -337,9 +337,12 @@ def sweep(
         files.update(result.arm_check.output_files())
     implied_result = None
     if implied:
-        from policy.assessment.implied import implied_scenario
+        from policy.assessment.implied_scenario import implied_scenario
 
-        implied_result = implied_scenario(sc, ratio[0], per, outcome_costs=outcome_costs, decision_costs=decision_costs)
+        with _runner(run_on, workers) as runner:
+            implied_result = implied_scenario(sc, ratio[0], per, outcome_costs=outcome_costs, decision_costs=decision_costs,
+                                              replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                                              outcomes=outcomes, workers=workers, runner=runner, progress=progress)
         files.update(implied_result.output_files())
     drawn = [name for name, content in files.items() if callable(content)]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
