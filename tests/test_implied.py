@@ -235,3 +235,26 @@ def test_bootstrap_interval_covers_the_cost_courts_were_made_to_follow(tmp_path)
         t = out.table[out.table["protected"] == "all"]
         hits += int(((t["cost_low_lower"] <= true_cost) & (true_cost <= t["cost_high_upper"])).all())
     assert hits >= 90, hits
+
+
+def test_cli_implied_on_a_risk_level_table_is_refused_and_writes_nothing(tmp_path, capsys):
+    from .conftest import SCENARIOS
+    code, out, err = run_cli(["sweep", SCENARIOS / "risk_level_table.toml", "--out", tmp_path / "o", "--ratio",
+                              "new_offense", "--implied", "--no-figures"], capsys)
+    assert code == 2 and "observed decisions" in err + out
+    assert not (tmp_path / "o").exists()
+
+
+def test_the_minimum_agrees_with_the_sweeps_regret_curve(demo):
+    # the sweep's exact regret of the same rule (policy.assessment.sweep.sweep_one) is smallest
+    # where the implied interval says, with the same value
+    from policy.assessment.sweep import sweep_one
+    from policy.decision.candidates import observed_rules
+    _, cells, rl, costs, axis, index, groups, base, slope = demo
+    rule = observed_rules(cells)[0]
+    s = sweep_one(rl, costs, axis, 0.0, 10.0 * axis.scenario_ratio, rules=[rule])
+    f = s.regret[rule.name]
+    res = implied_interval(base, slope, rl.weights, index, len(groups), rule.cell_delta, 0.0, 10.0 * axis.scenario_ratio)
+    assert f.y.min() == pytest.approx(res.regret_per_case, rel=1e-9)
+    assert f(res.r_lo) == pytest.approx(f.y.min(), rel=1e-9)
+    assert f.x[np.argmin(f.y)] == pytest.approx(res.r_lo, rel=1e-12)
