@@ -286,6 +286,7 @@ def sweep(
     lp_points: int = typer.Option(50, "--lp-points", help="Ratios at which the constrained optimum is re-solved (one ratio, with constraints)."),
     vary: Optional[str] = typer.Option(None, "--vary", help="Sweep a constraint's tolerance or cap too: NAME=V1,V2,... (NAME or its 1-based position)."),
     duals_only: bool = typer.Option(False, "--duals-only", help="Price each constraint by its dual value only (no re-solve without it)."),
+    implied: bool = typer.Option(False, "--implied", help="Also find the ratio under which what courts did (each arm, each protected group) comes closest to the cheapest rule (one ratio, data with cases)."),
     replicates: Optional[int] = ReplicatesOption,
     seed: Optional[int] = SeedOption,
     resampling: Optional[str] = ResamplingOption,
@@ -321,6 +322,8 @@ def sweep(
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
         raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
+    if implied and len(ratio) != 1:
+        raise InputError(f"--implied reads one ratio; got {len(ratio)} --ratio options.")
     with _runner(run_on, workers) as runner:
         result = sweep_scenario(
             sc, ratio, ranges=ranges, scale=scale, per=per, gammas=gamma or None,
@@ -332,6 +335,15 @@ def sweep(
     files = sweep_files(result, formats, table_points)
     if result.arm_check is not None:
         files.update(result.arm_check.output_files())
+    implied_result = None
+    if implied:
+        from policy.assessment.implied_scenario import implied_scenario
+
+        with _runner(run_on, workers) as runner:
+            implied_result = implied_scenario(sc, ratio[0], per, outcome_costs=outcome_costs, decision_costs=decision_costs,
+                                              replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                                              outcomes=outcomes, workers=workers, runner=runner, progress=progress)
+        files.update(implied_result.output_files())
     drawn = [name for name, content in files.items() if callable(content)]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
                    TimeElapsedColumn(), console=err_console, transient=True, disable=not progress)
@@ -351,6 +363,8 @@ def sweep(
     console.print("Assumptions behind these figures:", style="bold")
     for line in assumption_lines("robust_sweep" if len(result.assumptions) > 1 else "sweep", result.assumptions)[:-1]:
         console.print(f"  - {line}")
+    if implied_result is not None:
+        console.print(str(implied_result))
     show_cautions()
     show_arm_check(result.arm_check)
     show_written(paths)
