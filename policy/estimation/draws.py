@@ -55,8 +55,12 @@ class RiskLevelDraws:
         return int(self.p.shape[0])
 
 
+def _shown(value) -> str:
+    return repr(value.item() if isinstance(value, np.generic) else value)
+
+
 def _cell_label(frame: pd.DataFrame, row: int, scenario: Scenario) -> str:
-    return ", ".join(f"{c}={frame[c].iloc[row]!r}" for c in scenario.cell_columns) + f", outcome={frame['outcome'].iloc[row]!r}"
+    return ", ".join(f"{c}={_shown(frame[c].iloc[row])}" for c in scenario.cell_columns) + f", outcome={frame['outcome'].iloc[row]!r}"
 
 
 def _check_values(frame: pd.DataFrame, draws: np.ndarray, scenario: Scenario, file: str) -> None:
@@ -73,7 +77,7 @@ def _check_values(frame: pd.DataFrame, draws: np.ndarray, scenario: Scenario, fi
         row, col = map(int, np.argwhere(bad)[0])
         raise InputError(
             f"{file}: draw {draws[row]!r}, cell {_cell_label(frame, row, scenario)}: column {q_cols[col]!r} must hold a "
-            f"probability in [0, 1]; got {frame[q_cols[col]].iloc[row]!r} (row {row + 1}; {int(bad.any(axis=1).sum())} rows "
+            f"probability in [0, 1]; got {_shown(frame[q_cols[col]].iloc[row])} (row {row + 1}; {int(bad.any(axis=1).sum())} rows "
             "with such values).")
     off = np.abs(q.sum(axis=1) - 1.0) > 1e-6
     if off.any():
