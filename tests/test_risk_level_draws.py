@@ -118,3 +118,21 @@ def test_compare_on_a_table_with_draws_through_the_cli(round_trip, tmp_path, cap
     frame = pd.read_csv(tmp_path / "o" / "comparison.csv")
     assert (frame["cost_per_1000_cases_lower"] <= frame["cost_per_1000_cases"] + 1e-9).all()
     assert frame["cost_per_1000_cases_upper"].notna().all() and (frame["replicates"] == 40).all()
+
+
+def test_the_example_table_of_draws_runs_through_compare_and_solve(tmp_path, capsys):
+    from .conftest import SCENARIOS
+
+    path = SCENARIOS / "risk_level_draws.toml"
+    code, out, _ = run_cli(["compare", path, "--out", tmp_path / "c"], capsys)
+    assert code == 0 and "percentile interval over 50 draws" in out
+    frame = pd.read_csv(tmp_path / "c" / "comparison.csv")
+    assert list(frame["kind"]) == ["optimal", "candidate"]
+    assert (frame["replicates"] == 50).all() and frame["cost_per_1000_cases_lower"].notna().all()
+    import json
+
+    notes = json.loads((tmp_path / "c" / "compare.json").read_text())["notes"]
+    assert any("50 draws" in n for n in notes) and any("not scored" in n for n in notes)
+    # solve reads the same table's point rows
+    code, _, _ = run_cli(["solve", path, "--out", tmp_path / "s"], capsys)
+    assert code == 0
