@@ -98,10 +98,10 @@ def test_bad_draws_are_refused_with_the_draw_cell_and_value(round_trip):
     t.loc[row, "risk_level_0"] = t.loc[row, "risk_level_0"] * 0.5
     _bad(t, scenario, r"draw '3', cell .*must sum to 1 within 1e-6")
     t = table.drop(index=row)
-    _bad(t, scenario, r"draw '3'.*every cell needs a row for each of")
+    _bad(t, scenario, r"draw '3' has no row for cell .*outcome=.*every draw needs exactly one row")
     t = table.copy()
     t.loc[t["draw"] == "5", "cases"] = t.loc[t["draw"] == "5", "cases"] + 1
-    _bad(t, scenario, r"column 'cases' of draw '5' differs from draw")
+    _bad(t, scenario, r"column 'cases' of draw '5' differs from draw 'point' in cell .*outcome=")
     t = table.copy()
     t.loc[row, "draw"] = ""
     _bad(t, scenario, r"column 'draw' is empty in row")
@@ -136,3 +136,10 @@ def test_the_example_table_of_draws_runs_through_compare_and_solve(tmp_path, cap
     # solve reads the same table's point rows
     code, _, _ = run_cli(["solve", path, "--out", tmp_path / "s"], capsys)
     assert code == 0
+
+
+def test_a_duplicated_row_in_one_draw_is_refused(round_trip):
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    t = pd.concat([table, table[table["draw"] == "9"].iloc[[2]]], ignore_index=True)
+    _bad(t, scenario, r"draw '9' has more than one row for cell")

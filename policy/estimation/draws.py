@@ -114,38 +114,70 @@ def parse_draws(frame: pd.DataFrame, scenario: Scenario, parse, file: str | None
     ids_draws = [d for d in ids if d != POINT]
     if not ids_draws:
         raise InputError(f"{file}: column 'draw' holds only {POINT!r} rows; expected at least one draw besides the point.")
-    order = np.argsort(draws, kind="stable")
-    sorted_draws = draws[order]
-    starts = np.searchsorted(sorted_draws, ids, side="left")
-    ends = np.searchsorted(sorted_draws, ids, side="right")
-    first = None
-    parsed = {}
-    for d, a, b in zip(ids, starts, ends):
-        part = frame.iloc[order[a:b]].reset_index(drop=True)
-        try:
-            rl = parse(part, scenario, f"{file} (draw {d!r}; rows counted within the draw)")
-        except InputError as err:
-            raise InputError(str(err)) from None
-        if first is None:
-            first = (d, rl)
-        else:
-            d0, rl0 = first
-            same = (len(rl.weights) == len(rl0.weights)
-                    and rl.layout.frame.reset_index(drop=True).equals(rl0.layout.frame.reset_index(drop=True)))
-            if not same:
-                raise InputError(f"{file}: draw {d!r} has {len(rl.weights)} cells, not the same cells as draw {d0!r} "
-                                 f"({len(rl0.weights)} cells); every draw needs a row for each cell x outcome of every other draw.")
-            diff = np.abs(rl.weights - rl0.weights) > 1e-9 * np.maximum(1.0, rl0.weights)
-            if diff.any():
-                raise InputError(f"{file}: column 'cases' of draw {d!r} differs from draw {d0!r} "
-                                 f"(first in cell {int(np.flatnonzero(diff)[0]) + 1}); the weights must be the same in every draw.")
-        parsed[d] = rl
-    p = np.stack([parsed[d].p for d in ids_draws])
+    d_idx = pd.Index(ids).get_indexer(draws)
+    # the first draw is parsed in full (cells, structure, weights, costs, impossible outcomes); every
+    # other draw is checked against it and filled in at once, without a per-draw pass
+    d0 = ids[0]
+    rows0 = np.flatnonzero(d_idx == 0)
+    try:
+        rl0 = parse(frame.iloc[rows0].reset_index(drop=True), scenario, f"{file} (draw {d0!r}; rows counted within the draw)")
+    except InputError as err:
+        raise InputError(str(err)) from None
+    cols = list(scenario.cell_columns)
+    key_frame = frame[cols + ["outcome"]].astype(str)
+    key = key_frame.groupby(cols + ["outcome"], sort=False).ngroup().to_numpy()
+    n_keys = int(key.max()) + 1
+    J, n0 = len(scenario.outcomes), len(rl0.weights)
+    # each key's cell position in the first draw's layout and its outcome position
+    layout = rl0.layout.frame[cols].astype(str).reset_index(drop=True)
+    layout["_cell"] = np.arange(n0)
+    first = key_frame.iloc[rows0].reset_index(drop=True)
+    first["_key"] = key[rows0]
+    first = first.merge(layout, on=cols, how="left")
+    cell_of = np.full(n_keys, -1)
+    cell_of[first["_key"].to_numpy()] = first["_cell"].to_numpy()
+    j_of = np.full(n_keys, -1)
+    j_of[first["_key"].to_numpy()] = pd.Index(scenario.outcome_keys).get_indexer(first["outcome"])
+    counts = np.bincount(d_idx * n_keys + key, minlength=len(ids) * n_keys).reshape(len(ids), n_keys)
+    if (counts != 1).any():
+        d, k = map(int, np.argwhere(counts != 1)[0])
+        row = int(np.flatnonzero(key == k)[0])
+        what = "has no row" if counts[d, k] == 0 else "has more than one row"
+        other = ids[0] if d else ids[int(np.flatnonzero(counts[:, k])[0])]
+        raise InputError(f"{file}: draw {ids[d]!r} {what} for cell {_cell_label(frame, row, scenario)} (draw {other!r} has "
+                         "one); every draw needs exactly one row for each cell x outcome of every other draw.")
+    L = len(scenario.levels)
+    q_cols = [f"risk_level_{r}" for r in range(L + 1)]
+    q = np.clip(frame[q_cols].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=np.float64), 0.0, 1.0)
+    q /= q.sum(axis=1, keepdims=True)
+    qq = np.zeros((len(ids), n0, J, L + 1))
+    qq[d_idx, cell_of[key], j_of[key]] = q
+    del q
+    weights = pd.to_numeric(frame["cases"], errors="coerce").to_numpy(dtype=np.float64)
+    w0 = rl0.weights[cell_of[key]]
+    diff = ~(np.abs(weights - w0) <= 1e-9 * np.maximum(1.0, w0))
+    if diff.any():
+        row = int(np.flatnonzero(diff)[0])
+        raise InputError(f"{file}: column 'cases' of draw {draws[row]!r} differs from draw {d0!r} in cell "
+                         f"{_cell_label(frame, row, scenario)}: {_shown(frame['cases'].iloc[row])} against "
+                         f"{rl0.weights[cell_of[key[row]]]!r}; the weights must be the same in every draw.")
+    all_p = outcome_probabilities(qq)
+    del qq
+    for j, o in enumerate(scenario.outcomes):
+        if o.impossible_from is not None:
+            viol = all_p[:, :, j, o.impossible_from:].max(axis=(1, 2))
+            if (viol > 1e-6).any():
+                d = int(np.flatnonzero(viol > 1e-6)[0])
+                raise InputError(f"{file}: draw {ids[d]!r}: outcome {o.key!r} is declared impossible from level "
+                                 f"{o.impossible_from} on, but the draw gives it probability {viol[d]:.4f} there "
+                                 f"(risk_level_{o.impossible_from + 1} and above must be 0).")
+    parsed = {d: replace(rl0, p=all_p[i]) for i, d in enumerate(ids) if d == POINT}
+    p = all_p[[i for i, d in enumerate(ids) if d != POINT]]
+    del all_p
     if POINT in parsed:
         point, source = parsed[POINT], "marked"
     else:
-        base = parsed[ids_draws[0]]
-        point, source = replace(base, p=outcome_probabilities(risk_level_distribution(p).mean(axis=0))), "mean over draws"
+        point, source = replace(rl0, p=outcome_probabilities(risk_level_distribution(p).mean(axis=0))), "mean over draws"
     point = replace(point, source=f"{point.source.split(' (draw')[0]} (point: {source}; {len(ids_draws)} draws)")
     return RiskLevelDraws(point, p, ids_draws, source)
 
