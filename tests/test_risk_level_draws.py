@@ -143,3 +143,23 @@ def test_a_duplicated_row_in_one_draw_is_refused(round_trip):
     scenario = load_scenario(table_path)
     t = pd.concat([table, table[table["draw"] == "9"].iloc[[2]]], ignore_index=True)
     _bad(t, scenario, r"draw '9' has more than one row for cell")
+
+
+def test_a_csv_of_draws_read_in_blocks_equals_the_table_read_whole(round_trip, tmp_path):
+    from policy.estimation.draws import read_draws
+    from policy.estimation.from_scenario import risk_levels_from_frame
+
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    whole = risk_level_draws_from_frame(table, scenario)
+    blocks = read_draws(tmp_path / "draws.csv", scenario, risk_levels_from_frame, chunk_rows=997)
+    assert blocks.draw_ids == whole.draw_ids and blocks.point_source == "marked"
+    np.testing.assert_allclose(blocks.p, whole.p, atol=1e-12)
+    np.testing.assert_allclose(blocks.point.p, whole.point.p, atol=1e-12)
+    # a bad value deep in the file: the message names the draw, the cell and the file's row
+    t = table.copy()
+    row = int(np.flatnonzero(t["draw"] == "30")[10])
+    t.loc[row, "risk_level_2"] = -0.25
+    t.to_csv(tmp_path / "bad.csv", index=False)
+    with pytest.raises(InputError, match=rf"bad.csv: draw '30', cell .*got -0.25 \(row {row + 1}\)"):
+        read_draws(tmp_path / "bad.csv", scenario, risk_levels_from_frame, chunk_rows=997)

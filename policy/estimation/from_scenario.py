@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from policy.errors import InputError
-from policy.estimation.draws import RiskLevelDraws, parse_draws
+from policy.estimation.draws import RiskLevelDraws, parse_draws, read_draws
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels, outcome_probabilities
 from policy.inputs.cells import CellLayout, CellTable
 from policy.inputs.loading import load_cell_table
@@ -160,12 +160,14 @@ def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | 
 
 
 def load_risk_level_table(scenario: Scenario) -> RiskLevels:
-    """Read and validate the scenario's already estimated risk-level table."""
+    """Read and validate the scenario's already estimated risk-level table (with draws: their
+    point estimate, :func:`load_risk_level_draws`)."""
+    draws = load_risk_level_draws(scenario)
+    if draws is not None:
+        return draws.point
     cols = risk_level_table_columns(scenario)
     frame = read_table(scenario.data.path, None, f"risk-level table ({scenario.file} [data] risk_level_table)")
     require_columns(frame.columns, cols, frame.attrs["file"], f"a risk-level table for {scenario.file}")
-    if "draw" in frame.columns:  # a table of draws: its point estimate (policy.estimation.draws)
-        return risk_level_draws_from_frame(frame, scenario).point
     return risk_levels_from_frame(frame, scenario)
 
 
@@ -177,8 +179,19 @@ def risk_level_draws_from_frame(frame: pd.DataFrame, scenario: Scenario, file: s
 
 def load_risk_level_draws(scenario: Scenario):
     """The scenario's risk-level table as :class:`policy.estimation.draws.RiskLevelDraws`, or None
-    when the table has no ``draw`` column (point estimates only)."""
-    frame = read_table(scenario.data.path, None, f"risk-level table ({scenario.file} [data] risk_level_table)")
+    when the table has no ``draw`` column (point estimates only). A CSV table is read in blocks."""
+    what = f"risk-level table ({scenario.file} [data] risk_level_table)"
+    path = scenario.data.path
+    header = None
+    if path.suffix.lower() == ".csv" and path.is_file():
+        try:
+            header = list(pd.read_csv(path, nrows=0, encoding="utf-8").columns)
+        except (UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError):
+            header = None  # read_table below says what is wrong with the file
+    if header is not None:
+        require_columns(header, risk_level_table_columns(scenario), path.name, f"a risk-level table for {scenario.file}")
+        return read_draws(path, scenario, risk_levels_from_frame) if "draw" in header else None
+    frame = read_table(path, None, what)
     require_columns(frame.columns, risk_level_table_columns(scenario), frame.attrs["file"], f"a risk-level table for {scenario.file}")
     return risk_level_draws_from_frame(frame, scenario) if "draw" in frame.columns else None
 
