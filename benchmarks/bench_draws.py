@@ -4,7 +4,9 @@ A synthetic invented table: CELLS cells (a x b x sex x group) x 3 outcome kinds 
 built in memory as a DataFrame (no CSV parsing), read by
 ``risk_level_draws_from_frame`` and scored by ``score_draws`` (the optimum and one fixed rule).
 
-    python benchmarks/bench_draws.py [DRAWS] [CELLS_A]
+    python benchmarks/bench_draws.py [DRAWS] [CELLS_A]          # in memory
+    python benchmarks/bench_draws.py [DRAWS] [CELLS_A] csv      # written to a CSV draw by draw,
+                                                                # read back in blocks in a fresh process
 """
 
 from __future__ import annotations
@@ -59,7 +61,7 @@ rule = ["a"]
 '''
 
 
-def main(draws: int = 200, n_a: int = 50) -> None:
+def main(draws: int = 200, n_a: int = 50, mode: str = "memory") -> None:
     from policy.assessment.draws_compare import score_draws
     from policy.decision.costs import costs_from_scenario
     from policy.decision.solve import optimal_rule
@@ -85,7 +87,21 @@ def main(draws: int = 200, n_a: int = 50) -> None:
         part["draw"] = str(d + 1)
         for r in range(4):
             part[f"risk_level_{r}"] = q[:, :, r].ravel()
-        parts.append(part)
+        if mode == "csv":
+            part.to_csv(folder / "draws.csv", mode="a", header=d == 0, index=False, float_format="%.9f")
+        else:
+            parts.append(part)
+    if mode == "csv":
+        import subprocess
+
+        size = (folder / "draws.csv").stat().st_size / 2**20
+        print(f"{draws} draws x {n:,} cells x 3 outcomes: {draws * n * 3:,} rows, CSV of {size:,.0f} MB")
+        code = (f"import resource, time; from policy.assessment.compare import compare; t = time.perf_counter(); "
+                f"c = compare({str(folder / 's.toml')!r}); print(f'compare from the CSV: {{time.perf_counter() - t:.1f}} s; '"
+                f"f'peak RSS {{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:,.0f}} MB; ' + c.result.interval_label)")
+        (folder / "s.toml").write_text(SCENARIO.replace("unused.csv", "draws.csv"))
+        subprocess.run([sys.executable, "-c", code], check=True)
+        return
     frame = pd.concat(parts, ignore_index=True)
     del parts
     print(f"{draws} draws x {n:,} cells x 3 outcomes: {len(frame):,} rows, "
@@ -105,4 +121,4 @@ def main(draws: int = 200, n_a: int = 50) -> None:
 
 
 if __name__ == "__main__":
-    main(*(int(x) for x in sys.argv[1:]))
+    main(*(int(x) if x.isdigit() else x for x in sys.argv[1:]))

@@ -165,7 +165,8 @@ class _Filler:
         if self.p_point is not None:
             point, source = replace(self.rl0, p=self.p_point), "marked"
         else:
-            point, source = replace(self.rl0, p=outcome_probabilities(risk_level_distribution(self.p).mean(axis=0))), "mean over draws"
+            # the mean of the risk-level probabilities is the mean of the outcome probabilities (linear in them)
+            point, source = replace(self.rl0, p=self.p.mean(axis=0)), "mean over draws"
         point = replace(point, source=f"{self.rl0.source.split(' (draw')[0]} (point: {source}; {len(self.slot)} draws)")
         return RiskLevelDraws(point, self.p, list(self.slot), source)
 
