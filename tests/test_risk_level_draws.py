@@ -163,3 +163,19 @@ def test_a_csv_of_draws_read_in_blocks_equals_the_table_read_whole(round_trip, t
     t.to_csv(tmp_path / "bad.csv", index=False)
     with pytest.raises(InputError, match=rf"bad.csv: draw '30', cell .*got -0.25 \(row {row + 1}\)"):
         read_draws(tmp_path / "bad.csv", scenario, risk_levels_from_frame, chunk_rows=997)
+
+
+def test_sweep_bands_from_the_draws_equal_the_bootstrap_bands(round_trip):
+    # Self-consistency: the same replicates of p, swept exactly, give the same percentile bands of
+    # the lenient share and the same centred intervals of every rule cell's thresholds.
+    from policy.assessment.sweep.scenario_sweep import sweep_scenario
+
+    cases_path, table_path, _ = round_trip
+    on_cases = sweep_scenario(cases_path, ["new_violent"], replicates=40, seed=7, resampling="multinomial", grid_points=60)
+    on_table = sweep_scenario(table_path, ["new_violent"], grid_points=60)
+    a, b = on_cases.bands, on_table.bands
+    assert b is not None and b.meta["resampling"] == "draws" and b.meta["replicates"] == 40
+    for name in ("share", "lower", "upper", "percentile_lower", "percentile_upper", "thresholds", "thresholds_lower",
+                 "thresholds_upper"):
+        np.testing.assert_allclose(getattr(b, name), getattr(a, name), rtol=1e-8, atol=1e-9, err_msg=name)
+    assert np.isfinite(b.percentile_lower).all() and (b.upper - b.lower).max() > 0
