@@ -21,7 +21,6 @@ from typing import Mapping
 
 import numpy as np
 
-from policy.assessment.paired import paired_figures  # noqa: F401  (same paired machinery as compare)
 from policy.assessment.scoring import score_rules
 from policy.assessment.stability import resolved_figures
 from policy.assessment.uncertainty import BootstrapResult, validate_settings
