@@ -142,7 +142,7 @@ class Comparison:
 
     @property
     def has_arm(self) -> bool:
-        return self.cells.has_arm
+        return self.cells is not None and self.cells.has_arm
 
     # -- tables --------------------------------------------------------------------------------
     def comparison_frame(self) -> pd.DataFrame:
@@ -444,12 +444,13 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     from policy.inputs.scenario import as_scenario
 
     scenario = as_scenario(scenario)
-    if scenario.data.kind == "risk_level_table":
-        raise InputError(
-            f"{scenario.file}: compare needs the cases behind the estimates (a case table, a counts table or the "
-            "simulator): observed rules, the aid's effect and every interval come from them, and a risk-level table "
-            "holds neither decisions nor counts. Use `solve` to score rules on a risk-level table."
-        )
+    if scenario.data.kind == "risk_level_table":  # no cases: intervals from the table's draws, if any
+        from policy.assessment.draws_compare import compare_on_table
+
+        rl, costs, rules, evaluations, result, notes = compare_on_table(scenario, interval, seed, constraints, outcome_costs,
+                                                                        decision_costs, rules)
+        return Comparison(scenario, None, rl, costs, rules, evaluations, result, notes,
+                          stability=check_stability(stability, "compare: stability"))
     base: UncertaintySettings = scenario.sections.get("uncertainty") or UncertaintySettings()
     settings = validate_settings(
         base.replicates if replicates is None else replicates,

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from policy.errors import InputError
+from policy.estimation.draws import RiskLevelDraws, parse_draws, read_draws
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels, outcome_probabilities
 from policy.inputs.cells import CellLayout, CellTable
 from policy.inputs.loading import load_cell_table
@@ -22,7 +23,7 @@ from policy.inputs.scenario import Scenario, as_scenario
 from policy.inputs.tables import read_table, require_columns
 from policy.inputs.limits import LARGEST
 
-__all__ = ["estimate", "estimate_risk_levels", "load_risk_level_table", "risk_levels_from_frame",
+__all__ = ["estimate", "estimate_risk_levels", "load_risk_level_draws", "load_risk_level_table", "risk_level_draws_from_frame", "risk_levels_from_frame",
            "risk_level_table_columns"]
 
 
@@ -159,11 +160,40 @@ def risk_levels_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | 
 
 
 def load_risk_level_table(scenario: Scenario) -> RiskLevels:
-    """Read and validate the scenario's already estimated risk-level table."""
+    """Read and validate the scenario's already estimated risk-level table (with draws: their
+    point estimate, :func:`load_risk_level_draws`)."""
+    draws = load_risk_level_draws(scenario)
+    if draws is not None:
+        return draws.point
     cols = risk_level_table_columns(scenario)
     frame = read_table(scenario.data.path, None, f"risk-level table ({scenario.file} [data] risk_level_table)")
     require_columns(frame.columns, cols, frame.attrs["file"], f"a risk-level table for {scenario.file}")
     return risk_levels_from_frame(frame, scenario)
+
+
+def risk_level_draws_from_frame(frame: pd.DataFrame, scenario: Scenario, file: str | None = None) -> RiskLevelDraws:
+    """Validate a risk-level table with a ``draw`` column (:mod:`policy.estimation.draws`): the point
+    risk levels (rows marked ``point``, else the mean over draws) and the draws."""
+    return parse_draws(frame, scenario, risk_levels_from_frame, file)
+
+
+def load_risk_level_draws(scenario: Scenario):
+    """The scenario's risk-level table as :class:`policy.estimation.draws.RiskLevelDraws`, or None
+    when the table has no ``draw`` column (point estimates only). A CSV table is read in blocks."""
+    what = f"risk-level table ({scenario.file} [data] risk_level_table)"
+    path = scenario.data.path
+    header = None
+    if path.suffix.lower() == ".csv" and path.is_file():
+        try:
+            header = list(pd.read_csv(path, nrows=0, encoding="utf-8").columns)
+        except (UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError):
+            header = None  # read_table below says what is wrong with the file
+    if header is not None:
+        require_columns(header, risk_level_table_columns(scenario), path.name, f"a risk-level table for {scenario.file}")
+        return read_draws(path, scenario, risk_levels_from_frame) if "draw" in header else None
+    frame = read_table(path, None, what)
+    require_columns(frame.columns, risk_level_table_columns(scenario), frame.attrs["file"], f"a risk-level table for {scenario.file}")
+    return risk_level_draws_from_frame(frame, scenario) if "draw" in frame.columns else None
 
 
 def estimate_risk_levels(scenario: Scenario, cells: CellTable | None = None) -> RiskLevels:

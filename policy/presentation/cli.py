@@ -416,8 +416,11 @@ def compare(
     paths = write_outputs(out, comparison.output_files(), inputs=inputs, overwrite=overwrite, command="compare")
     r = comparison.result
     console.print(comparison.scenario.title, style="bold")
-    console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
-                  f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
+    if r.method == "draws":  # a risk-level table: intervals over its draws, if any
+        console.print(f"{r.interval_label.capitalize()}: figures from the risk-level table, no cases behind it.")
+    else:
+        console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
+                      f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
     if comparison.arm_costs is not None:
         for line in comparison.arm_costs.lines():
             console.print(line)

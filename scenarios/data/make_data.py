@@ -65,6 +65,18 @@ def build(folder: Path) -> list[Path]:
     path = folder / "quarrow_confounded_counts.csv"
     table.counts_frame(confounded_scenario).to_csv(path, index=False)
     written.append(path)
+
+    # 5. the counts table's risk levels with 50 of the tool's own bootstrap replicates as draws
+    #    (cell sizes held, so feeding the table back reproduces the replicates' rule-level figures)
+    from policy.assessment.draws_export import bootstrap_draws_table
+
+    draws = bootstrap_draws_table(counts_scenario, replicates=50, seed=101, resampling="multinomial", workers=1)
+    prob = [c for c in draws.columns if c.startswith("risk_level_")]
+    draws[prob] = draws[prob].round(6)
+    draws[prob[-1]] = (1.0 - draws[prob[:-1]].sum(axis=1)).clip(lower=0.0)
+    path = folder / "quarrow_risk_level_draws.csv"
+    draws.to_csv(path, index=False, float_format="%.6f")
+    written.append(path)
     return written
 
 

@@ -113,7 +113,9 @@ class SweepResult:
                 "note": (f"Band: {bands.label} of the share of cases at {s.level_labels[0]}, from "
                          f"{m['replicates']} bootstrap replicates ({m['resampling']} resampling of cases, "
                          f"outcomes from the {'estimated risk levels' if m['outcomes'] == 'model' else 'cases'}, "
-                         f"seed {m['seed']}); each replicate re-estimates the risk levels.")}
+                         f"seed {m['seed']}); each replicate re-estimates the risk levels.")
+                if m["resampling"] != "draws" else (f"Band: {bands.label} of the share of cases at {s.level_labels[0]}, "
+                                                    f"from {m['replicates']} draws of the risk-level table, each swept exactly.")}
 
     def output_files(self, table_points: int = 51) -> dict[str, Any]:
         """Every output table of ``sweep`` by name (documented in docs/outputs.md); the figures are
@@ -162,6 +164,17 @@ def _scenario_rules(scenario, cells, rl) -> list[Rule]:
     if cells is not None:
         rules += observed_rules(cells, scenario.aid.name, scenario.level_labels)
     return rules
+
+
+def _has_draws(scenario) -> bool:
+    """Whether the scenario's risk-level table carries a ``draw`` column (CSV header only)."""
+    import pandas as pd
+
+    path = scenario.data.path
+    try:
+        return path.suffix.lower() == ".csv" and "draw" in pd.read_csv(path, nrows=0).columns
+    except Exception:  # an unreadable file is reported by the reader itself
+        return False
 
 
 def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[float] | None] | None = None,
@@ -266,9 +279,10 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                               base.interval if interval is None else interval,
                               base.resampling if resampling is None else resampling, "sweep:",
                               base.outcomes if outcomes is None else outcomes)
-    elif cells is None and replicates:
+    elif cells is None and replicates and not _has_draws(scenario):
         raise InputError(f"{scenario.file}: bootstrap bands need the cases behind the estimates (a case or counts "
-                         "table, or the simulator); a risk-level table holds no counts to resample.")
+                         "table, or the simulator) or draws in the risk-level table (a 'draw' column); this risk-level "
+                         "table has neither.")
     axes = [ratio_axis(rl, costs, r, per) for r in ratios]
     ranges = list(ranges) if ranges is not None else [None] * len(axes)
     if len(ranges) != len(axes):
@@ -319,6 +333,16 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                                 scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,
                                 grid_points, workers, runner, progress)
             step("bootstrap bands")
+        elif cells is None and replicates != 0:  # a risk-level table: bands from its draws, if it has any
+            from policy.assessment.sweep.draws_bands import draws_sweep_bands
+            from policy.estimation.from_scenario import load_risk_level_draws
+
+            draws = load_risk_level_draws(scenario)
+            if draws is not None:
+                u_level = (scenario.sections.get("uncertainty").interval if scenario.sections.get("uncertainty") else 0.95)
+                bands = draws_sweep_bands(rl, costs, s, draws.p, u_level if interval is None else interval, grid_points,
+                                          scenario.seed if seed is None else seed)
+                step("bands from the table's draws")
         return SweepResult(scenario, rl, costs, s, None, assumptions, settings, constrained, bands, check)
     if specs:
         settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"

@@ -1,0 +1,181 @@
+"""Risk-level tables with draws: validation, compare on such a table, and the round trip from the
+tool's own bootstrap replicates."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from .conftest import run_cli
+from policy.errors import InputError
+from policy.estimation.from_scenario import risk_level_draws_from_frame
+from policy.inputs.scenario import load_scenario
+
+CANDIDATE = '''
+[[candidate_rules]]
+name = "tier threshold"
+score_at_least = { recognizance = 1, supervision = 3, bond = 5 }
+
+[aid]'''
+
+
+@pytest.fixture
+def round_trip(small_case_table, tmp_path):
+    """The small case scenario (with a candidate rule) and a risk-level scenario whose table holds
+    the case scenario's own 40 multinomial bootstrap replicates as draws."""
+    from policy.assessment.draws_export import bootstrap_draws_table
+
+    path, _ = small_case_table
+    text = path.read_text().replace("\n[aid]", CANDIDATE, 1)
+    path.write_text(text)
+    table = bootstrap_draws_table(path, replicates=40, seed=7, resampling="multinomial")
+    table.to_csv(tmp_path / "draws.csv", index=False)
+    table_text = text.replace('case_table = "cases.csv"', 'risk_level_table = "draws.csv"').replace('arm = "aid_shown"\n', "")
+    table_path = tmp_path / "from_draws.toml"
+    table_path.write_text(table_text)
+    return path, table_path, table
+
+
+def test_round_trip_gives_the_bootstrap_intervals_of_the_rules_held_fixed(round_trip):
+    # Self-consistency (Monte Carlo identity): the same replicates of p, fed back as draws, give the
+    # same replicate values and so the same percentile intervals for every rule chosen on the point
+    # estimate and held fixed (the optimum, the candidate), and the same paired differences.
+    from policy.assessment.compare import compare
+
+    cases_path, table_path, _ = round_trip
+    on_cases = compare(cases_path, replicates=40, seed=7, resampling="multinomial", folds=0)
+    on_table = compare(table_path)
+    assert on_table.result.n_replicates == 40 and on_table.cells is None
+    a = on_cases.comparison_frame().set_index("rule")
+    b = on_table.comparison_frame().set_index("rule")
+    held = [r for r in b.index if r in a.index]
+    assert len(held) == 2  # the optimum and the candidate; observed rules and the aid's need cases
+    cols = [c for c in b.columns if c.startswith(("cost_per", "regret_per", "rate_", "share_", "agreement"))]
+    assert np.isfinite(b.loc[held, ["cost_per_1000_cases_lower", "cost_per_1000_cases_upper"]].to_numpy(float)).all()
+    np.testing.assert_allclose(b.loc[held, cols].to_numpy(float), a.loc[held, cols].to_numpy(float), rtol=1e-8, atol=1e-9)
+    da = on_cases.differences_frame()
+    db = on_table.differences_frame()
+    key = ["rule", "versus", "figure"] if "versus" in db.columns else list(db.columns[:3])
+    merged = db.merge(da, on=key, suffixes=("_t", "_c"))
+    assert len(merged) > 0
+    for col in [c[:-2] for c in merged.columns if c.endswith("_t") and merged[c].dtype.kind == "f"]:
+        np.testing.assert_allclose(merged[col + "_t"], merged[col + "_c"], rtol=1e-8, atol=1e-9, err_msg=col)
+    # the optimum's stability is counted over the draws as over the replicates
+    sa, sb = on_cases.stability_frame(), on_table.stability_frame()
+    opt = on_table.rules[0].name
+    np.testing.assert_allclose(sb[sb["rule"] == opt]["stability"].to_numpy(float),
+                               sa[sa["rule"] == opt]["stability"].to_numpy(float), atol=1e-12)
+    assert any("not scored" in n and "decision shares by arm" in n for n in on_table.notes)
+
+
+def test_point_is_the_mean_over_draws_without_marked_rows(round_trip):
+    from policy.estimation.strata import risk_level_distribution
+
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    draws = risk_level_draws_from_frame(table[table["draw"] != "point"], scenario)
+    assert draws.point_source == "mean over draws" and draws.n_draws == 40
+    np.testing.assert_allclose(risk_level_distribution(draws.point.p), risk_level_distribution(draws.p).mean(axis=0), atol=1e-12)
+    marked = risk_level_draws_from_frame(table, scenario)
+    assert marked.point_source == "marked"
+    assert not np.allclose(marked.point.p, draws.point.p)
+
+
+def _bad(table, scenario, match):
+    with pytest.raises(InputError, match=match):
+        risk_level_draws_from_frame(table, scenario, "t.csv")
+
+
+def test_bad_draws_are_refused_with_the_draw_cell_and_value(round_trip):
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    t = table.copy()
+    row = int(np.flatnonzero(t["draw"] == "3")[4])
+    t.loc[row, "risk_level_1"] = 1.7
+    _bad(t, scenario, r"draw '3', cell .*outcome=.*'risk_level_1' must hold a probability in \[0, 1\]; got 1.7")
+    t = table.copy()
+    t.loc[row, "risk_level_0"] = t.loc[row, "risk_level_0"] * 0.5
+    _bad(t, scenario, r"draw '3', cell .*must sum to 1 within 1e-6")
+    t = table.drop(index=row)
+    _bad(t, scenario, r"draw '3' has no row for cell .*outcome=.*every draw needs exactly one row")
+    t = table.copy()
+    t.loc[t["draw"] == "5", "cases"] = t.loc[t["draw"] == "5", "cases"] + 1
+    _bad(t, scenario, r"column 'cases' of draw '5' differs from draw 'point' in cell .*outcome=")
+    t = table.copy()
+    t.loc[row, "draw"] = ""
+    _bad(t, scenario, r"column 'draw' is empty in row")
+    _bad(table[table["draw"] == "point"], scenario, r"only 'point' rows")
+    t = table[table["draw"] != "7"].copy()
+    t = pd.concat([t, table[(table["draw"] == "7")].iloc[3:]])  # draw 7 misses a cell's rows
+    _bad(t, scenario, r"draw '7'")
+
+
+def test_compare_on_a_table_with_draws_through_the_cli(round_trip, tmp_path, capsys):
+    _, table_path, _ = round_trip
+    code, out, _ = run_cli(["compare", table_path, "--out", tmp_path / "o"], capsys)
+    assert code == 0 and "percentile interval over 40 draws" in out
+    frame = pd.read_csv(tmp_path / "o" / "comparison.csv")
+    assert (frame["cost_per_1000_cases_lower"] <= frame["cost_per_1000_cases"] + 1e-9).all()
+    assert frame["cost_per_1000_cases_upper"].notna().all() and (frame["replicates"] == 40).all()
+
+
+def test_the_example_table_of_draws_runs_through_compare_and_solve(tmp_path, capsys):
+    from .conftest import SCENARIOS
+
+    path = SCENARIOS / "risk_level_draws.toml"
+    code, out, _ = run_cli(["compare", path, "--out", tmp_path / "c"], capsys)
+    assert code == 0 and "percentile interval over 50 draws" in out
+    frame = pd.read_csv(tmp_path / "c" / "comparison.csv")
+    assert list(frame["kind"]) == ["optimal", "candidate"]
+    assert (frame["replicates"] == 50).all() and frame["cost_per_1000_cases_lower"].notna().all()
+    import json
+
+    notes = json.loads((tmp_path / "c" / "compare.json").read_text())["notes"]
+    assert any("50 draws" in n for n in notes) and any("not scored" in n for n in notes)
+    # solve reads the same table's point rows
+    code, _, _ = run_cli(["solve", path, "--out", tmp_path / "s"], capsys)
+    assert code == 0
+
+
+def test_a_duplicated_row_in_one_draw_is_refused(round_trip):
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    t = pd.concat([table, table[table["draw"] == "9"].iloc[[2]]], ignore_index=True)
+    _bad(t, scenario, r"draw '9' has more than one row for cell")
+
+
+def test_a_csv_of_draws_read_in_blocks_equals_the_table_read_whole(round_trip, tmp_path):
+    from policy.estimation.draws import read_draws
+    from policy.estimation.from_scenario import risk_levels_from_frame
+
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    whole = risk_level_draws_from_frame(table, scenario)
+    blocks = read_draws(tmp_path / "draws.csv", scenario, risk_levels_from_frame, chunk_rows=997)
+    assert blocks.draw_ids == whole.draw_ids and blocks.point_source == "marked"
+    np.testing.assert_allclose(blocks.p, whole.p, atol=1e-12)
+    np.testing.assert_allclose(blocks.point.p, whole.point.p, atol=1e-12)
+    # a bad value deep in the file: the message names the draw, the cell and the file's row
+    t = table.copy()
+    row = int(np.flatnonzero(t["draw"] == "30")[10])
+    t.loc[row, "risk_level_2"] = -0.25
+    t.to_csv(tmp_path / "bad.csv", index=False)
+    with pytest.raises(InputError, match=rf"bad.csv: draw '30', cell .*got -0.25 \(row {row + 1}\)"):
+        read_draws(tmp_path / "bad.csv", scenario, risk_levels_from_frame, chunk_rows=997)
+
+
+def test_sweep_bands_from_the_draws_equal_the_bootstrap_bands(round_trip):
+    # Self-consistency: the same replicates of p, swept exactly, give the same percentile bands of
+    # the lenient share and the same centred intervals of every rule cell's thresholds.
+    from policy.assessment.sweep.scenario_sweep import sweep_scenario
+
+    cases_path, table_path, _ = round_trip
+    on_cases = sweep_scenario(cases_path, ["new_violent"], replicates=40, seed=7, resampling="multinomial", grid_points=60)
+    on_table = sweep_scenario(table_path, ["new_violent"], grid_points=60)
+    a, b = on_cases.bands, on_table.bands
+    assert b is not None and b.meta["resampling"] == "draws" and b.meta["replicates"] == 40
+    for name in ("share", "lower", "upper", "percentile_lower", "percentile_upper", "thresholds", "thresholds_lower",
+                 "thresholds_upper"):
+        np.testing.assert_allclose(getattr(b, name), getattr(a, name), rtol=1e-8, atol=1e-9, err_msg=name)
+    assert np.isfinite(b.percentile_lower).all() and (b.upper - b.lower).max() > 0
