@@ -48,7 +48,7 @@ from policy.inputs.csv_blocks import ArrowRefused, arrow_csv_blocks
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
 from policy.inputs.csv_shape import check_csv_shape
-from policy.inputs.tables import _csv_header, check_header, first_bad_utf8, require_columns, rows_from
+from policy.inputs.tables import _csv_header, check_header, first_bad_utf8, parquet_schema, require_columns, rows_from
 
 __all__ = ["BLOCK_ROWS", "stream_cell_table", "id_keys"]
 
@@ -82,12 +82,7 @@ class _Source:
             import pyarrow as pa
             import pyarrow.parquet as pq
 
-            try:
-                schema = pq.read_schema(path)
-            except Exception as exc:  # pyarrow raises several types for a damaged file
-                raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
-            check_header(schema.names, path.name, what)
-            require_columns(schema.names, columns, path.name, what)
+            schema = parquet_schema(path, columns, what)
             # text columns arrive as categoricals, except ``plain`` ones (case ids: all distinct)
             self.dictionary = [c for c in columns if c not in plain and (pa.types.is_string(schema.field(c).type)
                                or pa.types.is_large_string(schema.field(c).type))]

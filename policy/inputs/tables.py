@@ -118,12 +118,7 @@ def read_table(path: Path, columns: Sequence[str] | None, what: str) -> pd.DataF
     if suffix == ".parquet":
         import pyarrow.parquet as pq
 
-        try:
-            schema = pq.read_schema(path)
-        except Exception as exc:  # pyarrow raises several types for a damaged file
-            raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
-        check_header(schema.names, path.name, what)
-        require_columns(schema.names, columns, path.name, what)
+        parquet_schema(path, columns, what)
         frame = pq.read_table(path, columns=list(dict.fromkeys(columns)) if columns else None).to_pandas()
     elif suffix == ".csv":
         try:
@@ -261,3 +256,16 @@ def _numeric_states(arr: np.ndarray) -> np.ndarray | None:
             return None
         np.add(a, 1, out=out[start:start + _STEP], casting="unsafe")
     return out
+
+
+def parquet_schema(path: Path, columns: Sequence[str], what: str):
+    """A Parquet file's schema, its header checked and the required columns present."""
+    import pyarrow.parquet as pq
+
+    try:
+        schema = pq.read_schema(path)
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise InputError(f"{path.name}: not a readable Parquet file ({exc}).") from None
+    check_header(schema.names, path.name, what)
+    require_columns(schema.names, columns, path.name, what)
+    return schema

@@ -34,9 +34,6 @@ app = typer.Typer(
 )
 
 
-
-
-
 def command(fn):
     """Register a command whose tool errors become a message and the error's exit code."""
 
@@ -56,34 +53,6 @@ def command(fn):
             release_output_folders()
 
     return app.command()(run)
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
 
 
 @command
@@ -147,12 +116,6 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     show_cautions()
     show_arm_check(check)
     show_written(paths)
-
-
-
-
-
-
 
 
 @command
@@ -251,10 +214,6 @@ def report(
     show_cautions()
     show_written([p for p in paths if CACHE_FOLDER not in p.parts])
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
-
-
-
-
 
 
 @command
@@ -370,14 +329,6 @@ def sweep(
     show_written(paths)
 
 
-
-
-
-
-
-
-
-
 @command
 def compare(
     scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
@@ -455,8 +406,6 @@ def compare(
     show_cautions()
     show_arm_check(comparison.arm_check)
     show_written(paths)
-
-
 
 
 @command

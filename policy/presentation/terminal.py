@@ -4,7 +4,6 @@ formatted tables (control characters in labels shown visibly)."""
 from __future__ import annotations
 
 
-
 from rich.text import Text
 
 from policy.cautions import CAUTIONS, assumptions_for
