@@ -49,8 +49,11 @@ def test_figures_for_every_scenario(path, tmp_path):
     stems = ["sweep_shares", "sweep_regret", "map_lenient"] + (["sweep_prices"] if one.constrained is not None else [])
     assert sorted(p.name for p in figures) == sorted(f"{stem}.{fmt}" for stem in stems for fmt in ("png", "svg"))
     assert (one.constrained is not None) == bool(scenario.sections.get("constraints"))
-    # bands wherever there are counts to resample, and the figure says how they were made
-    assert (one.bands is not None) == counts
+    # bands wherever there are counts to resample or draws to sweep, and the figure says how they were made
+    from policy.assessment.sweep.scenario_sweep import _has_draws
+
+    banded = counts or _has_draws(scenario)
+    assert (one.bands is not None) == banded
     for p in figures:
         assert p.stat().st_size > 10_000
         if p.suffix == ".png":
@@ -64,7 +67,7 @@ def test_figures_for_every_scenario(path, tmp_path):
             if p.stem == "sweep_shares":
                 for label in scenario.level_labels:
                     assert label in text
-                assert ("bootstrap replicates" in text) == counts
+                assert ("bootstrap replicates" in text or "draws" in text) == banded
 
 
 def test_share_figure_draws_bands_and_is_reproducible(tmp_path, demo_scenario):
