@@ -525,7 +525,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                          "(left out of its intervals)")
     from policy.assessment.arm_costs import realized_arm_costs
     from policy.assessment.rule_ranges import regret_ranges, rule_ranges
-    from policy.estimation.arm_check import arm_check
+    from policy.estimation.arm_check import arm_check, with_gamma_low
     from policy.estimation.bounds import robust_assumptions
     from policy.estimation.bounds_table import SENSITIVITY_GAMMAS
 
@@ -536,8 +536,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                                        settings.resampling, settings.interval, runner=runner, workers=workers,
                                        arm_labels=tuple(r.name for r in observed))
         check = arm_check(cells, outcome_labels=scenario.outcome_label_map)
-        if 1 < check.gamma_lower < np.inf:
-            gammas = gammas + (round(check.gamma_lower, 2),)
+        gammas = with_gamma_low(gammas, check)
     intervals = robust_assumptions(rl, cells, gammas, True)
     ranges = (rule_ranges(all_rules, rl, costs, intervals), regret_ranges(all_rules, rl, costs, intervals))
     crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed, fold_repeats) if folds else None

@@ -475,3 +475,12 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
     cells_frame = pd.concat(strata, ignore_index=True) if strata else pd.DataFrame()
     return ArmCheck(tests, pd.DataFrame(level_rows), cells_frame, alpha, p_adj, gam["gamma_lower"],
                     gam["per_outcome"], top, dict(outcome_labels or {}))
+
+
+def with_gamma_low(gammas, check: "ArmCheck | None") -> tuple:
+    """``gammas`` with the least confounding the arms show (Gamma_low, to 2 decimals) added, when
+    the arm check found any (1 < Gamma_low < inf)."""
+    gammas = tuple(gammas)
+    if check is not None and 1 < check.gamma_lower < np.inf:
+        gammas += (round(check.gamma_lower, 2),)
+    return gammas

@@ -97,7 +97,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     from policy.outputs import write_outputs
     from policy.running.pipeline import as_scenario, estimate as run_estimate
 
-    from policy.estimation.arm_check import arm_check
+    from policy.estimation.arm_check import arm_check, with_gamma_low
     from policy.estimation.bounds_table import SENSITIVITY_GAMMAS, bounds_table
 
     sc = as_scenario(scenario)
@@ -106,7 +106,7 @@ def estimate(scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
     files = {"risk_levels.csv": rl.to_frame(), "risk_level_shares.csv": rl.shares()}
     check = arm_check(cells, outcome_labels=sc.outcome_label_map) if cells is not None and cells.has_arm else None
     if cells is not None:
-        gammas = SENSITIVITY_GAMMAS + ((round(check.gamma_lower, 2),) if check is not None and 1 < check.gamma_lower < float("inf") else ())
+        gammas = with_gamma_low(SENSITIVITY_GAMMAS, check)
         files = {"cells.csv": cells.counts_frame(sc), **files, "risk_bounds.csv": bounds_table(rl, cells, gammas)}
     if check is not None:
         files.update(check.output_files())

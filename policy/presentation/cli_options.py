@@ -109,8 +109,9 @@ def _doubt(gamma, bounds, safe_against):
 
     if gamma is not None and bounds:
         raise InputError("give --robust-gamma or --robust-bounds, not both.")
-    if gamma is not None and not 1 <= gamma < float("inf"):
-        raise InputError(f"--robust-gamma must be a finite number >= 1 (or use --robust-bounds); got {gamma!r}.")
+    if gamma is not None:
+        check_number(gamma, "--robust-gamma", low=1,
+                     expected="a sensitivity parameter Gamma: a finite number >= 1 (or use --robust-bounds)")
     if safe_against is not None and gamma is None and not bounds:
         raise InputError("--safe-against needs a set to guard against: add --robust-gamma G or --robust-bounds.")
     doubt = DoubtSettings(gamma=gamma, bounds=bounds, safe_against=safe_against)

@@ -8,7 +8,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
-from policy.estimation.arm_check import ArmCheck, arm_check
+from policy.estimation.arm_check import ArmCheck, arm_check, with_gamma_low
 from policy.estimation.bounds import MISSING_TREATMENTS, RiskBounds, robust_assumptions
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.decision.costs import Costs, costs_from_scenario
@@ -290,9 +290,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     box = [tuple(map(float, r)) if r is not None else default_range(a, scale) for a, r in zip(axes, ranges)]
     check = arm_check(cells, outcome_labels=scenario.outcome_label_map) if cells is not None and cells.has_arm else None
     if gammas is None:
-        gammas = DEFAULT_GAMMAS if cells is not None else ()
-        if check is not None and 1 < check.gamma_lower < np.inf:
-            gammas = tuple(gammas) + (round(check.gamma_lower, 2),)
+        gammas = with_gamma_low(DEFAULT_GAMMAS if cells is not None else (), check)
     if bounds is None:
         bounds = cells is not None
     assumptions = robust_assumptions(rl, cells, gammas, bounds, missing)
