@@ -10,7 +10,6 @@ ignored the key could not pass.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from policy.decision.constrained import ConstrainedProblem

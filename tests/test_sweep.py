@@ -282,7 +282,7 @@ def test_gamma_one_reproduces_the_point_map_and_regions_shrink_with_gamma(demo):
     has = np.isfinite(until) | (s.envelope.levels[:, 0] == 0)
     np.testing.assert_allclose(s.lenient[0][1][has], until[has], rtol=1e-9)
     grid = np.linspace(0, 150, 301)
-    prev = None
+    prev = prev_inside = prev_a = prev_b = None
     for a in range(1, len(bs)):
         low, high = s.lenient[a]
         share = s.lenient_share_at(grid, a)
