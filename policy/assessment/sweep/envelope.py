@@ -250,7 +250,8 @@ def envelope_functions(env: Envelope, weights: np.ndarray, A: np.ndarray, B: np.
     knots = env.breaks[g, s]
     order = np.argsort(knots)
     g, s, knots = g[order], s[order], knots[order]
-    first = np.concatenate([[True], knots[1:] != knots[:-1]])
+    first = np.ones(len(knots), dtype=bool)   # the first event at each distinct knot (none if no knots)
+    first[1:] = knots[1:] != knots[:-1]
     uniq = knots[first]
     w = weights[g]
     before, after, at = env.levels[g, s], env.levels[g, s + 1], env.at_break[g, s]
