@@ -179,3 +179,48 @@ def test_sweep_bands_from_the_draws_equal_the_bootstrap_bands(round_trip):
                  "thresholds_upper"):
         np.testing.assert_allclose(getattr(b, name), getattr(a, name), rtol=1e-8, atol=1e-9, err_msg=name)
     assert np.isfinite(b.percentile_lower).all() and (b.upper - b.lower).max() > 0
+
+
+def _page_text(html: str) -> str:
+    import re
+
+    html = re.sub(r"<(script|style)\b.*?</\1>", " ", html, flags=re.S)
+    return " ".join(re.sub(r"<[^>]+>", " ", html).replace("&#39;", "'").split())
+
+
+def test_report_on_a_table_with_draws_compares_and_bands_from_the_draws(round_trip, tmp_path, capsys):
+    # The report's comparison is compare's on the same table (same intervals over the 40 draws),
+    # and every sweep carries bands from the draws (the round trip above checks those against the
+    # bootstrap of the cases).
+    from policy.assessment.compare import compare
+
+    _, table_path, _ = round_trip
+    code, out, err = run_cli(["report", table_path, "--out", tmp_path / "r", "--no-progress"], capsys)
+    assert code == 0, err
+    got = pd.read_csv(tmp_path / "r" / "comparison.csv")
+    want = compare(table_path).comparison_frame()
+    assert (got["replicates"] == 40).all() and got["cost_per_1000_cases_upper"].notna().all()
+    np.testing.assert_allclose(got["cost_per_1000_cases_lower"], want["cost_per_1000_cases_lower"], rtol=1e-9)
+    for key in load_scenario(table_path).outcome_keys:
+        bands = pd.read_csv(tmp_path / "r" / f"sweep_{key}_bands.csv")
+        assert len(bands) > 0 and (bands.filter(like="upper").to_numpy() >= bands.filter(like="lower").to_numpy() - 1e-12).all()
+    text = _page_text((tmp_path / "r" / "report.html").read_text(encoding="utf-8"))
+    assert "the risk-level table carries 40 draws" in text
+    assert "from 40 draws of the risk-level table" in text
+    assert "not scored (missing from a risk-level table)" in text
+
+
+def test_report_on_a_table_without_draws_gives_point_figures_and_says_so(round_trip, tmp_path, capsys):
+    _, table_path, table = round_trip
+    point = table[table["draw"] == "point"].drop(columns="draw")
+    point.to_csv(tmp_path / "point.csv", index=False)
+    path = tmp_path / "point.toml"
+    path.write_text(table_path.read_text().replace('risk_level_table = "draws.csv"', 'risk_level_table = "point.csv"'))
+    code, _, err = run_cli(["report", path, "--out", tmp_path / "r", "--no-progress"], capsys)
+    assert code == 0, err
+    got = pd.read_csv(tmp_path / "r" / "comparison.csv")
+    assert (got["replicates"] == 0).all() and got["cost_per_1000_cases_lower"].isna().all()
+    assert got["cost_per_1000_cases"].notna().all() and len(got) == 2
+    assert not list((tmp_path / "r").glob("sweep_*_bands.csv"))
+    text = _page_text((tmp_path / "r" / "report.html").read_text(encoding="utf-8"))
+    assert "carries no draws, so the figures are point figures with no interval" in text

@@ -177,9 +177,36 @@ def risk_level_draws_from_frame(frame: pd.DataFrame, scenario: Scenario, file: s
     return parse_draws(frame, scenario, risk_levels_from_frame, file)
 
 
+#: the last risk-level table read, by the file's state and what of the scenario its reading depends on: one
+#: command reads the same table for the point estimate, the comparison and each sweep (a report: several)
+_LAST_READ: dict = {}
+
+
+def _read_key(scenario: Scenario):
+    try:
+        st = scenario.data.path.stat()
+    except OSError:
+        return None
+    return (str(scenario.data.path.resolve()), st.st_mtime_ns, st.st_size,
+            repr((scenario.levels, scenario.outcomes, scenario.covariates, scenario.protected, scenario.rule_covariates,
+                  sorted(scenario.order.items()), scenario.aid, scenario.bins)))
+
+
 def load_risk_level_draws(scenario: Scenario):
     """The scenario's risk-level table as :class:`policy.estimation.draws.RiskLevelDraws`, or None
-    when the table has no ``draw`` column (point estimates only). A CSV table is read in blocks."""
+    when the table has no ``draw`` column (point estimates only). A CSV table is read in blocks;
+    the last table read is kept (one at a time) while its file is unchanged."""
+    key = _read_key(scenario)
+    if key is not None and key in _LAST_READ:
+        return _LAST_READ[key]
+    _LAST_READ.clear()  # the previous table's draws are freed before the next is read
+    draws = _load_risk_level_draws(scenario)
+    if key is not None:
+        _LAST_READ[key] = draws
+    return draws
+
+
+def _load_risk_level_draws(scenario: Scenario):
     what = f"risk-level table ({scenario.file} [data] risk_level_table)"
     path = scenario.data.path
     header = None

@@ -167,11 +167,15 @@ def _scenario_rules(scenario, cells, rl) -> list[Rule]:
 
 
 def _has_draws(scenario) -> bool:
-    """Whether the scenario's risk-level table carries a ``draw`` column (CSV header only)."""
+    """Whether the scenario's risk-level table carries a ``draw`` column (its header only)."""
     import pandas as pd
 
     path = scenario.data.path
     try:
+        if path.suffix.lower() == ".parquet":
+            import pyarrow.parquet as pq
+
+            return "draw" in pq.read_schema(path).names
         return path.suffix.lower() == ".csv" and "draw" in pd.read_csv(path, nrows=0).columns
     except Exception:  # an unreadable file is reported by the reader itself
         return False

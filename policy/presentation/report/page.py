@@ -168,15 +168,10 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     comparison, why = None, ""
     if cached is not None:
         comparison = cached["comparison"]
-    elif scenario.data.kind != "risk_level_table":
+    else:  # a risk-level table is compared too: intervals over its draws, or point figures without them
         comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
                              decision_costs=decision_costs, progress=progress)
-    if comparison is None:
-        why = ("The risk levels came from a table estimated elsewhere: it holds no observed decisions and no counts, "
-               "so there is nothing courts did to compare and no bootstrap interval.")
-        compared = [held_rule(analysis)]
-    else:
-        compared = compared_rules(comparison)
+    compared = compared_rules(comparison)
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
     if cached is not None:
@@ -202,7 +197,8 @@ def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mappin
     from policy.assessment.sweep import sweep_scenario
 
     keys = list(scenario.outcome_keys)
-    bands = replicates if scenario.data.kind != "risk_level_table" else 0
+    # a risk-level table's bands come from its draws, if it has any (replicates 0: no bands)
+    bands = replicates if scenario.data.kind != "risk_level_table" else (0 if replicates == 0 else None)
     sweeps = [sweep_scenario(scenario, [k], rules=list(rules), outcome_costs=outcome_costs,
                              decision_costs=decision_costs, replicates=bands, progress=progress) for k in keys]
     lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs)

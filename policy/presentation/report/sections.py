@@ -367,7 +367,7 @@ def comparison_section(results: ReportResults) -> Section:
         context={
             "costs": costs_view, "shares": shares_view, "misplaced": misplaced_view,
             "rules": [(rule.name, rule.kind, rule.note) for rule in cmp.rules],
-            "replicates": r.n_replicates, "seed": r.seed, "label": label,
+            "replicates": r.n_replicates, "seed": r.seed, "label": label, "from_table": cmp.cells is None,
             # each rule's own note is in the list of rules above; the rest once here
             "notes": [n for n in cmp.notes if not any(n == f"{rule.name}: {rule.note}" for rule in cmp.rules)],
             "observed_assumptions": assumptions_for("observed_rule"),
