@@ -17,6 +17,8 @@ Usage::
     python scripts/mutation.py                       # the default modules
     python scripts/mutation.py solve costs --max-children 2 --report /tmp/mutation.json
     python scripts/mutation.py --list                # the modules it knows and their tests
+    python scripts/mutation.py evaluate --only fairness_gaps by_group   # some functions only
+    python scripts/mutation.py strata --tests tests/test_strata.py::test_moment_prior_strength_by_hand
 
 Exit status 0 when the run completed (whatever survived: reading survivors is a person's job),
 1 when mutmut itself failed.
@@ -27,6 +29,7 @@ from __future__ import annotations
 import argparse
 import ast
 import difflib
+import fnmatch
 import functools
 import json
 import os
@@ -48,7 +51,12 @@ MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "evaluate": ("policy/decision/evaluate.py", ("tests/test_evaluate.py",)),
     "strata": ("policy/estimation/strata.py", ("tests/test_strata.py",)),
     "constraints": ("policy/decision/constraints.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
-    "envelope": ("policy/assessment/sweep/envelope.py", ("tests/test_sweep.py",)),
+    "envelope": ("policy/assessment/sweep/envelope.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
+    "one_ratio": ("policy/assessment/sweep/one_ratio.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
+    "two_ratio": ("policy/assessment/sweep/two_ratio.py", ("tests/test_sweep.py",)),
+    "regions": ("policy/assessment/sweep/regions.py", ("tests/test_sweep.py",)),
+    "rules": ("policy/decision/rules.py", ("tests/test_solve.py", "tests/test_evaluate.py")),
+    "problem": ("policy/decision/constrained/problem.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
 }
 DEFAULT = ("solve", "costs", "bounds")
 
@@ -96,6 +104,21 @@ def mutant_diff(scratch: Path, name: str) -> str:
                      if line[:1] in "+-" and not line.startswith(("+++", "---")) and "__mutmut_" not in line)
 
 
+def mutant_patterns(files: list[str], functions: list[str]) -> list[str]:
+    """mutmut's names of the mutants of some functions (``name``) or methods (``Class.method``
+    or ``method`` of any class): ``module.x_name__mutmut_N`` and ``module.xǁClassǁmethod__mutmut_N``."""
+    patterns = []
+    for path in files:
+        dotted = path[:-3].replace("/", ".")
+        for f in functions:
+            if "." in f:
+                cls, meth = f.split(".", 1)
+                patterns.append(f"{dotted}.xǁ{cls}ǁ{meth}__mutmut_*")
+            else:
+                patterns += [f"{dotted}.x_{f}__mutmut_*", f"{dotted}.xǁ*ǁ{f}__mutmut_*"]
+    return patterns
+
+
 def run(cmd: list[str], cwd: Path, env: dict) -> subprocess.CompletedProcess:
     return subprocess.run(cmd, cwd=cwd, env=env, text=True, capture_output=True)
 
@@ -107,6 +130,10 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--report", type=Path, default=None, help="write the counts and every survivor's diff as JSON here")
     ap.add_argument("--workdir", type=Path, default=None, help="scratch folder to run in (default: a temporary one, removed after)")
     ap.add_argument("--list", action="store_true", help="list the known modules and their test files")
+    ap.add_argument("--only", nargs="+", metavar="FUNCTION", default=None,
+                    help="mutate only these functions or methods (a name, or Class.method) of the modules")
+    ap.add_argument("--tests", nargs="+", metavar="TEST", default=None,
+                    help="run these test files or test ids instead of the modules' own test files")
     ap.add_argument("--report-only", action="store_true",
                     help="do not run: report the results already in --workdir (from an earlier run)")
     args = ap.parse_args(argv)
@@ -118,7 +145,8 @@ def main(argv: list[str] | None = None) -> int:
     if unknown:
         ap.error(f"unknown module {unknown[0]!r}; expected one of: {', '.join(MODULES)}")
     files = [MODULES[m][0] for m in args.modules]
-    tests = sorted({t for m in args.modules for t in MODULES[m][1]})
+    tests = args.tests or sorted({t for m in args.modules for t in MODULES[m][1]})
+    patterns = mutant_patterns(files, args.only) if args.only else []
 
     if args.report_only and args.workdir is None:
         ap.error("--report-only needs the --workdir of an earlier run")
@@ -132,7 +160,8 @@ def main(argv: list[str] | None = None) -> int:
             with open(scratch / "pyproject.toml", "a", encoding="utf-8") as f:
                 f.write(mutmut_settings(files, tests))
             print(f"mutating {', '.join(files)}; tests: {' '.join(tests)}; in {scratch}", flush=True)
-            done = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.max_children)],
+            done = subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.max_children),
+                                   *patterns],
                                   cwd=scratch, env=env, text=True)
             if done.returncode != 0:
                 print(f"mutmut run failed with exit status {done.returncode}", file=sys.stderr)
@@ -146,7 +175,8 @@ def main(argv: list[str] | None = None) -> int:
         report: dict = {"modules": {}, "survivors": {}}
         for path in files:
             dotted = path[:-3].replace("/", ".")
-            mine = {k: v for k, v in status.items() if k.startswith(dotted + ".")}
+            mine = {k: v for k, v in status.items() if k.startswith(dotted + ".")
+                    and (not patterns or any(fnmatch.fnmatchcase(k, p) for p in patterns))}
             counts = Counter(mine.values())
             report["modules"][path] = dict(counts, total=len(mine))
             for name, st in sorted(mine.items()):

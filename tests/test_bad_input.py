@@ -467,7 +467,7 @@ def test_run_on_a_port_that_is_not_a_scheduler(base, tmp_path, capsys):
     import socket
     import threading
 
-    pytest.importorskip("distributed")
+    import distributed  # noqa: F401  (a test dependency: missing, this test fails, never skips)
     server = socket.socket()
     server.bind(("127.0.0.1", 0))
     server.listen(5)
