@@ -1,10 +1,12 @@
-"""The cost library (policy/data/cost_components.csv, policy/decision/cost_library.py)."""
+"""The cost library (policy/data/cost_components.csv, policy.inputs.cost_library.py)."""
 
 from __future__ import annotations
 
+import re
+
 import pytest
 
-from policy.decision.cost_library import FLAGS, WARNING, component_value, cost_components, price_factor
+from policy.inputs.cost_library import FLAGS, WARNING, component_value, cost_components, price_factor
 from policy.errors import InputError
 
 
@@ -49,3 +51,70 @@ def test_a_library_with_a_bad_flag_or_no_source_is_refused(tmp_path):
     text.write_text(header + "a,decision,x,-3,USD,2020,a source,seen,\n")
     with pytest.raises(InputError, match="value"):
         cost_components(text)
+
+
+# --- costs built from the library in a scenario (cost_from) -------------------------------------
+
+def test_the_demo_builds_its_costs_from_the_library_and_the_stated_costs_agree(demo_scenario, demo_cases):
+    # The reader refuses a stated cost that differs from its build by more than half a unit, so
+    # loading the demo is itself the check; the values are re-derived here by hand from the
+    # published figures (McCollister, French & Fang 2010, Table 5, secondary; CPI-U factor 1.457,
+    # secondary) and the demo's assumptions.
+    levels = {lv.value: lv for lv in demo_scenario.levels}
+    outcomes = {o.key: o for o in demo_scenario.outcomes}
+    assert levels["supervision"].cost_build.value == 75 * 10 == levels["supervision"].cost
+    assert outcomes["new_offense"].cost_build.value == pytest.approx(3532 * 1.457)
+    assert outcomes["new_violent"].cost_build.value == pytest.approx(107020 * 1.457)
+    assert outcomes["missed_court"].cost_build.value == outcomes["missed_court"].cost == 1000
+    assert "(3,532 x 1.457) = 5,146.12" in outcomes["new_offense"].cost_build.describe()
+    bond = levels["bond"].cost_build
+    assert bond.by == "charge_class"
+    built = {name: part.value for name, part in bond.parts}
+    assert built == {"misdemeanor": 3076.0, "felony": 4516.0, "violent felony": 6340.0}
+    # the simulated cases' per-case bond cost is exactly the build for each charge class
+    frame, _ = demo_cases
+    means = frame.groupby("charge_class", observed=True)["bond_cost"].agg(["min", "max"])
+    for name, value in built.items():
+        assert means.loc[name, "min"] == means.loc[name, "max"] == value
+    jail = next(c for c in bond.components if c.key == "jail_day")
+    assert jail.factor == 1.0 and "not adjusted" in jail.price_note and jail.provenance == "seen"
+
+
+def _scenario_with(tmp_path, old: str, new: str, extra: str = ""):
+    from policy.demo.quarrow import demo_scenario_path
+    from policy.inputs.scenario import load_scenario
+
+    text = demo_scenario_path().read_text(encoding="utf-8")
+    assert old in text
+    path = tmp_path / "s.toml"
+    path.write_text(text.replace(old, new) + extra, encoding="utf-8")
+    return lambda: load_scenario(path)
+
+
+def test_a_stated_cost_that_differs_from_its_build_is_refused(tmp_path):
+    load = _scenario_with(tmp_path, "cost = 750.0", "cost = 760.0")
+    with pytest.raises(InputError, match=r"'cost' in \[\[decisions\]\] #2 is 760 but its cost_from comes to 75 x 10 = 750"):
+        load()
+
+
+def test_a_cost_given_only_by_its_build(tmp_path):
+    sc = _scenario_with(tmp_path, 'cost = 1000.0\ncost_from = "warrant_missed_court"',
+                        'cost_from = "warrant_missed_court * 1.5"')()
+    assert sc.outcomes[0].cost == 1500.0 and sc.outcomes[0].cost_build.parts[0][1].numbers == (1.5,)
+
+
+@pytest.mark.parametrize("old, new, message", [
+    ('cost_from = "warrant_missed_court"', 'cost_from = "warrant_served"', "'warrant_served' is not in the cost library"),
+    ('cost_from = "warrant_missed_court"', 'cost_from = "warrant_missed_court +"', "not an arithmetic expression"),
+    ('cost_from = "warrant_missed_court"', 'cost_from = "__import__(\'os\')"', "is not allowed"),
+    ('unadjusted = ["jail_day", "liberty_day"]', 'unadjusted = ["jail_day"]', "'liberty_day' is in 2011 prices and"),
+    ('cost_by = "charge_class"', 'cost_by = "offense_class"', "'offense_class', not a cell column"),
+    ('cost_by = "charge_class"\n', '', "needs cost_by"),
+    (', "violent felony" = "days_held_violent_felony * (jail_day + liberty_day) + detention_harm"', '',
+     "expected one entry for each value of 'charge_class'"),
+    ('price_year = 2024', 'price_year = 24', "must be a year"),
+])
+def test_bad_builds_are_refused_with_the_key_named(tmp_path, old, new, message):
+    load = _scenario_with(tmp_path, old, new)
+    with pytest.raises(InputError, match=re.escape(message)):
+        load()

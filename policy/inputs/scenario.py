@@ -20,6 +20,7 @@ from dataclasses import replace
 from typing import Any, Callable, Mapping, Sequence
 
 from policy.errors import InputError
+from policy.inputs.cost_build import CostBuild, CostLibrary, build_cost, fmt_amount, load_cost_library
 from policy.inputs.limits import number, simulated_cases, whole_number
 from policy.inputs.registry import SECTION_MODULES, register_section_module
 
@@ -150,14 +151,23 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("cost_column", (str,), doc="column holding a per-case cost of this level, averaged per cell"),
         Key("cost_factor", (float,), False, 1.0, "with cost_column: a factor on every cell's cost from the column (what-if runs; default 1)"),
         Key("cost_source", (str,), False, "", "where the cost comes from, with its provenance"),
+        Key("cost_from", (str, dict), doc="the cost built from cost-library components: an expression, or with cost_by a table of class value = expression"),
+        Key("cost_by", (str,), doc="with cost_column and a cost_from table: the cell column whose values key the table"),
     ),
     "[[outcomes]]": (
         Key("key", (str,), True, doc="short identifier of the outcome kind (letters, digits, _)"),
         Key("column", (str,), doc="0/1/empty column of the case table; defaults to the key"),
         Key("label", (str,), True, doc="the outcome's name in outputs"),
-        Key("cost", (float,), True, doc="cost of one adverse outcome of this kind, in the cost unit"),
+        Key("cost", (float,), doc="cost of one adverse outcome of this kind, in the cost unit (or give cost_from)"),
         Key("cost_source", (str,), False, "", "where the cost comes from, with its provenance"),
+        Key("cost_from", (str,), doc="the cost built from cost-library components: an expression over their keys"),
         Key("impossible_from", (str, int), doc="a decision value from which on (it and every harsher level) the outcome cannot occur"),
+    ),
+    "[cost_library]": (
+        Key("file", (str,), doc="a cost library of the package's shape (CSV), relative to the scenario file (default: the package's)"),
+        Key("price_index", (str,), doc="a price-index table of the package's shape (default: the package's)"),
+        Key("price_year", (int,), doc="bring every component with a price year to this year's prices"),
+        Key("unadjusted", (list,), False, [], "component keys kept in their published year's prices (no factor at hand)", item_type=str),
     ),
     "[costs]": (
         Key("unit", (str,), True, doc="the unit of every cost, e.g. 'USD (2024)'"),
@@ -225,6 +235,8 @@ class DecisionLevel:
     cost_source: str = ""
     #: factor on every cell's cost from ``cost_column`` (1 unless a what-if run sets it)
     cost_factor: float = 1.0
+    #: how the cost is built from the cost library (``cost_from``), if it is
+    cost_build: CostBuild | None = None
 
 
 @dataclass(frozen=True)
@@ -238,6 +250,8 @@ class OutcomeKind:
     cost_source: str = ""
     #: index of the least harsh level from which the outcome cannot occur (structural zero)
     impossible_from: int | None = None
+    #: how the cost is built from the cost library (``cost_from``), if it is
+    cost_build: CostBuild | None = None
 
 
 @dataclass(frozen=True)
@@ -287,6 +301,8 @@ class Scenario:
     raw: Mapping[str, Any] = field(default_factory=dict, repr=False)
     #: parsed sections of later stages, by section name (see :func:`register_section`)
     sections: Mapping[str, Any] = field(default_factory=dict, repr=False)
+    #: the cost library the costs are built from (``[cost_library]``), when any cost is
+    cost_library: CostLibrary | None = field(default=None, repr=False)
 
     # -- derived names ------------------------------------------------------------------------
     @property
@@ -375,9 +391,10 @@ class Scenario:
         aid = read_section(raw.get("aid", {}), SCHEMA["[aid]"], "[aid]", file)
         est = read_section(raw.get("estimator", {}), SCHEMA["[estimator]"], "[estimator]", file)
 
-        levels = _levels(raw["decisions"], file)
+        library = _library(raw, path, file)
+        levels = _levels(raw["decisions"], file, library)
         level_values = [lv.value for lv in levels]
-        outcomes = _outcomes(raw["outcomes"], level_values, file)
+        outcomes = _outcomes(raw["outcomes"], level_values, file, library)
 
         covariates = tuple(cells["covariates"])
         protected = tuple(cells["protected"])
@@ -427,6 +444,9 @@ class Scenario:
             raise InputError(f"{file}: key 'prior_strength' in [estimator] must be 'auto' or a number >= 0; got {strength!r}.")
         if est["sparse_below"] < 0:
             raise InputError(f"{file}: key 'sparse_below' in [estimator] must be >= 0; got {est['sparse_below']!r}.")
+        for i, level in enumerate(levels, 1):
+            if level.cost_build is not None and level.cost_build.by is not None:
+                _check_cost_by(level.cost_build, cell_columns, order, f"{file}: key 'cost_by' in [[decisions]] #{i}")
         if data.kind == "risk_level_table" and cols["arm"] is not None:
             raise InputError(f"{file}: [columns] arm has no meaning with [data] risk_level_table (no decisions are observed); remove it.")
         if data.kind == "simulate":
@@ -458,6 +478,7 @@ class Scenario:
             ),
             path=path,
             raw=raw,
+            cost_library=library,
         )
         parsed = {name: parser(raw.get(name), scenario) for name, parser in SECTION_PARSERS.items()}
         return replace(scenario, sections=parsed)
@@ -480,13 +501,56 @@ def _data_source(data: dict, path: Path | None, file: str) -> DataSource:
     return DataSource(kind, path=target)
 
 
-def _levels(raw: Any, file: str) -> list[DecisionLevel]:
+def _library(raw: Mapping[str, Any], path: Path | None, file: str) -> CostLibrary | None:
+    """The cost library, read when ``[cost_library]`` is given or any cost is built from it."""
+    entries = [e for name in ("decisions", "outcomes") if isinstance(raw.get(name), list) for e in raw[name]]
+    if "cost_library" not in raw and not any(isinstance(e, dict) and "cost_from" in e for e in entries):
+        return None
+    settings = read_section(raw.get("cost_library", {}), SCHEMA["[cost_library]"], "[cost_library]", file)
+    return load_cost_library(settings, path.parent if path is not None else Path.cwd(), file)
+
+
+def _built_cost(d: dict, library: CostLibrary | None, where: str, file: str) -> tuple[float | None, CostBuild | None]:
+    """The cost of one ``[[decisions]]``/``[[outcomes]]`` entry with its build: a stated ``cost``
+    and a ``cost_from`` must agree to within half a unit (the stated number is kept)."""
+    if d["cost_from"] is None:
+        if d.get("cost_by") is not None:
+            raise InputError(f"{file}: key 'cost_by' in {where} applies only with a cost_from table.")
+        return d["cost"], None
+    assert library is not None
+    build = build_cost(d["cost_from"], library, f"{file}: key 'cost_from' in {where}", d.get("cost_by"))
+    if build.by is not None:
+        if d.get("cost_column") is None:
+            raise InputError(f"{file}: a cost_from table by {build.by!r} in {where} states how the per-case costs of "
+                             "'cost_column' were built; give cost_column too (or one expression for one cost).")
+        return d["cost"], build
+    if d.get("cost_column") is not None:
+        raise InputError(f"{file}: {where} gives cost_column and one cost_from expression; a per-case column's build "
+                         "is a table by class with cost_by.")
+    if d["cost"] is not None and abs(d["cost"] - build.value) > 0.5:
+        raise InputError(f"{file}: key 'cost' in {where} is {fmt_amount(d['cost'])} but its cost_from comes to "
+                         f"{build.describe()}; make them agree (to the unit) or drop one.")
+    return (build.value if d["cost"] is None else d["cost"]), build
+
+
+def _check_cost_by(build: CostBuild, cell_columns: tuple[str, ...], order: Mapping[str, tuple], where: str) -> None:
+    if build.by not in cell_columns:
+        raise InputError(f"{where} is {build.by!r}, not a cell column; expected one of: {', '.join(cell_columns)}.")
+    known = [str(v) for v in order.get(build.by, ())]
+    names = [name for name, _ in build.parts]
+    if known and sorted(names) != sorted(known):
+        raise InputError(f"{where}: the cost_from table lists {', '.join(names)}; expected one entry for each "
+                         f"value of {build.by!r}: {', '.join(known)}.")
+
+
+def _levels(raw: Any, file: str, library: CostLibrary | None = None) -> list[DecisionLevel]:
     if not isinstance(raw, list) or len(raw) < 2:
         raise InputError(f"{file}: [[decisions]] must list at least two ordered decision levels, most lenient first.")
     out = []
     for i, entry in enumerate(raw, 1):
         where = f"[[decisions]] #{i}"
         d = read_section(entry, SCHEMA["[[decisions]]"], where, file)
+        d["cost"], build = _built_cost(d, library, where, file)
         if (d["cost"] is None) == (d["cost_column"] is None):
             raise InputError(f"{file}: {where} must give exactly one of 'cost' (a number) or 'cost_column' (a column name).")
         if d["cost"] is not None and d["cost"] < 0:
@@ -495,7 +559,8 @@ def _levels(raw: Any, file: str) -> list[DecisionLevel]:
             raise InputError(f"{file}: key 'cost_factor' in {where} applies only with 'cost_column'; give the cost itself in 'cost'.")
         if not (d["cost_factor"] >= 0 and d["cost_factor"] < float("inf")):
             raise InputError(f"{file}: key 'cost_factor' in {where} must be a finite number >= 0; got {d['cost_factor']!r}.")
-        out.append(DecisionLevel(str(d["value"]), d["label"], d["cost"], d["cost_column"], d["cost_source"], float(d["cost_factor"])))
+        out.append(DecisionLevel(str(d["value"]), d["label"], d["cost"], d["cost_column"], d["cost_source"], float(d["cost_factor"]),
+                                 build))
     for attr in ("value", "label"):
         seen = [getattr(lv, attr) for lv in out]
         dup = sorted({v for v in seen if seen.count(v) > 1})
@@ -504,13 +569,16 @@ def _levels(raw: Any, file: str) -> list[DecisionLevel]:
     return out
 
 
-def _outcomes(raw: Any, level_values: list[str], file: str) -> list[OutcomeKind]:
+def _outcomes(raw: Any, level_values: list[str], file: str, library: CostLibrary | None = None) -> list[OutcomeKind]:
     if not isinstance(raw, list) or not raw:
         raise InputError(f"{file}: [[outcomes]] must list at least one outcome kind.")
     out = []
     for i, entry in enumerate(raw, 1):
         where = f"[[outcomes]] #{i}"
         o = read_section(entry, SCHEMA["[[outcomes]]"], where, file)
+        o["cost"], build = _built_cost(o, library, where, file)
+        if o["cost"] is None:
+            raise InputError(f"{file}: missing key 'cost' in {where}; expected a number (or cost_from, a build from the cost library).")
         if not o["key"].replace("_", "").isalnum():
             raise InputError(f"{file}: key 'key' in {where} must use letters, digits and _ only; got {o['key']!r}.")
         if o["cost"] < 0:
@@ -526,7 +594,7 @@ def _outcomes(raw: Any, level_values: list[str], file: str) -> list[OutcomeKind]
             impossible = level_values.index(value)
             if impossible == 0:
                 raise InputError(f"{file}: key 'impossible_from' in {where} names the most lenient level; the outcome would be impossible under every decision.")
-        out.append(OutcomeKind(o["key"], o["column"] or o["key"], o["label"], o["cost"], o["cost_source"], impossible))
+        out.append(OutcomeKind(o["key"], o["column"] or o["key"], o["label"], o["cost"], o["cost_source"], impossible, build))
     keys = [o.key for o in out]
     dup = sorted({k for k in keys if keys.count(k) > 1})
     if dup:
