@@ -146,3 +146,104 @@ def test_evaluation_carries_its_names_counts_and_stratum_rates():
     row = within[(within["attribute"] == "all") & (within["risk_level"] == 2)]
     np.testing.assert_allclose(row["share"], [0.6 * 0.2, (6 * 0.5 + 4) / 10, 0.6 * 0.3])
     np.testing.assert_allclose(row["stratum_cases"], 10.0)
+
+
+def _six_cells():
+    # six cells, one outcome, three levels; protected attributes 'group' (cell parity) and 'tier'
+    # (cells 0-1, 2-3, 4-5); each cell given one level
+    p = np.array([[0.5, 0.3, 0.3], [0.6, 0.2, 0.2], [0.4, 0.3, 0.1], [0.7, 0.5, 0.2], [0.3, 0.2, 0.0],
+                  [0.5, 0.1, 0.05]])[:, None, :]
+    rl = make_risk_levels(p, weights=[10, 30, 20, 20, 25, 15], groups=[0, 0, 1, 1, 2, 2], protected=("group", "tier"))
+    level = np.array([0, 2, 2, 2, 1, 0])
+    costs = Costs(np.tile([0.0, 100.0, 300.0], (6, 1)), np.array([1000.0]), "EUR")
+    return rl, level, np.eye(3)[level], costs
+
+
+def test_fairness_gaps_with_three_groups_and_two_attributes_by_hand():
+    rl, level, delta, costs = _six_cells()
+    gaps = evaluate(delta, rl, costs).fairness_gaps()
+    assert list(gaps.columns) == ["kind", "attribute", "outcome", "risk_level", "risk_level_name", "threshold", "gap",
+                                  "highest_group", "lowest_group"]
+    # per attribute and threshold: one statistical-parity row and one row per risk level (0..3)
+    assert len(gaps) == 2 * 2 * (1 + 4) and "all" not in set(gaps["attribute"])
+    sp = gaps[gaps["kind"] == "statistical_parity"].set_index(["attribute", "threshold"])
+    assert (sp["risk_level"] == -1).all() and (sp["outcome"] == "").all() and (sp["risk_level_name"] == "").all()
+    # P(D >= 1 | tier): tier 0: 30 / 40, tier 1: 40 / 40, tier 2: 25 / 40; P(D >= 2): 30/40, 1, 0
+    assert tuple(sp.loc[("tier", "level 1"), ["gap", "highest_group", "lowest_group"]]) == pytest.approx((15 / 40, "1", "2"))
+    assert tuple(sp.loc[("tier", "level 2"), ["gap", "highest_group", "lowest_group"]]) == (1.0, "1", "2")
+    # P(D >= 1 | group): even cells (10, 20, 25 cases) 45 / 55, odd (30, 20, 15) 50 / 65; P(D >= 2): 20/55, 50/65
+    assert tuple(sp.loc[("group", "level 1"), ["gap", "highest_group", "lowest_group"]]) == pytest.approx((45 / 55 - 50 / 65, "0", "1"))
+    assert tuple(sp.loc[("group", "level 2"), ["gap", "highest_group", "lowest_group"]]) == pytest.approx((50 / 65 - 20 / 55, "1", "0"))
+    # principal fairness by the definition, cell by cell: P(D >= t | R = r, A = a) is the share of
+    # the cases of risk level r in group a (weight w * q_r) given level t or harsher
+    q = rl.q[:, 0, :]
+    pf = gaps[gaps["kind"] == "principal_fairness"]
+    assert set(pf["outcome"]) == {"o0"}
+    for attr, members in (("group", [[0, 2, 4], [1, 3, 5]]), ("tier", [[0, 1], [2, 3], [4, 5]])):
+        for t in (1, 2):
+            for r in range(4):
+                vals = []
+                for cells in members:
+                    mass = sum(rl.weights[c] * q[c, r] for c in cells)
+                    vals.append(sum(rl.weights[c] * q[c, r] for c in cells if level[c] >= t) / mass if mass > 0 else np.nan)
+                row = pf[(pf["attribute"] == attr) & (pf["threshold"] == f"level {t}") & (pf["risk_level"] == r)].iloc[0]
+                assert row["risk_level_name"] == rl.risk_level_names[r]
+                finite = [(v, str(i)) for i, v in enumerate(vals) if np.isfinite(v)]
+                assert row["gap"] == pytest.approx(max(finite)[0] - min(finite)[0], abs=1e-12)
+                if max(finite)[0] > min(finite)[0]:
+                    assert row["highest_group"] == max(finite)[1] and row["lowest_group"] == min(finite)[1]
+    # risk level 2 (q = p1 - p2) is empty in tier 0 (p1 = p2 there): the gap is over tiers 1 and 2;
+    # tier 1 (q 0.2 and 0.3, both at level 2): 1; tier 2 (25 cases q 0.2 at level 1, 15 q 0.05 at level 0)
+    row = pf[(pf["attribute"] == "tier") & (pf["risk_level"] == 2) & (pf["threshold"] == "level 1")].iloc[0]
+    assert tuple(row[["gap", "highest_group", "lowest_group"]]) == pytest.approx((1 - 5 / 5.75, "1", "2"))
+
+
+def test_headline_figures_table_text_and_html_by_hand():
+    rl, level, delta, costs = _six_cells()
+    ref = Rule.per_cell("lenient <all> & co", "candidate", rl.layout, np.eye(3)[np.zeros(6, int)], rl.level_values,
+                        rl.level_labels)
+    ev = evaluate(delta, rl, costs, name="given", reference=ref)
+    # 120 cases: level 0 for 25 (cells 0, 5), level 1 for 25 (cell 4), level 2 for 70
+    shares = [25 / 120, 25 / 120, 70 / 120]
+    rate = (10 * 0.5 + 30 * 0.2 + 20 * 0.1 + 20 * 0.2 + 25 * 0.2 + 15 * 0.5) / 120
+    cost = (25 * 100 + 70 * 300) / 120 + 1000 * rate
+    ref_cost = 1000 * (10 * 0.5 + 30 * 0.6 + 20 * 0.4 + 20 * 0.7 + 25 * 0.3 + 15 * 0.5) / 120
+    overview = ev.overview()
+    assert list(overview) == ["rule", "kind", "unit", "cases", "cost_per_case", "cost_per_1000_cases", "rate_o0",
+                              "share_level_0", "share_level_1", "share_level_2", "regret_per_case",
+                              "regret_per_1000_cases", "agreement"]
+    assert (overview["rule"], overview["kind"], overview["unit"], overview["cases"]) == ("given", "given", "EUR", 120.0)
+    assert overview["cost_per_case"] == pytest.approx(cost, rel=1e-12)
+    assert overview["cost_per_1000_cases"] == pytest.approx(1000 * cost, rel=1e-12)
+    assert overview["rate_o0"] == pytest.approx(rate, rel=1e-12)
+    assert [overview[f"share_level_{d}"] for d in range(3)] == pytest.approx(shares, rel=1e-12)
+    assert overview["regret_per_case"] == pytest.approx(cost - ref_cost, rel=1e-12)
+    assert overview["regret_per_1000_cases"] == pytest.approx(1000 * (cost - ref_cost), rel=1e-12)
+    assert overview["agreement"] == pytest.approx(25 / 120, rel=1e-12)
+    assert all(type(v) in (str, float) for v in overview.values())
+    plain = evaluate(delta, rl, costs).overview()
+    assert "regret_per_case" not in plain and "agreement" not in plain and "regret_per_1000_cases" not in plain
+    frame = ev.to_frame()
+    assert list(frame.columns) == ["figure", "value"]
+    assert list(frame["figure"]) == list(overview) and list(frame["value"]) == list(overview.values())
+    text = str(ev)
+    assert ev.summary() == text
+    assert text.splitlines() == [
+        f"given: expected cost {1000 * cost:,.0f} EUR per 1,000 cases",
+        f"  regret against lenient <all> & co: {1000 * (cost - ref_cost):,.0f} per 1,000 cases; same level for 20.8% of cases",
+        "  decision shares: level 0 20.8%, level 1 20.8%, level 2 58.3%",
+        f"  expected outcome rates: outcome 0 {rate:.1%}",
+    ]
+    assert len(str(evaluate(delta, rl, costs)).splitlines()) == 3
+    by_group = ev.by_group()
+    assert list(by_group.columns) == ["attribute", "group", "cases", "share: level 0", "share: level 1",
+                                      "share: level 2", "rate: outcome 0"]
+    assert list(zip(by_group["attribute"], by_group["group"])) == [("all", "all"), ("group", "0"), ("group", "1"),
+                                                                   ("tier", "0"), ("tier", "1"), ("tier", "2")]
+    np.testing.assert_allclose(by_group["cases"], [120, 55, 65, 40, 40, 40])
+    np.testing.assert_allclose(by_group.iloc[3, 3:6].astype(float), [10 / 40, 0, 30 / 40])
+    np.testing.assert_allclose(by_group["rate: outcome 0"].iloc[5], (25 * 0.2 + 15 * 0.5) / 40)
+    html = ev._repr_html_()
+    assert html.startswith("<pre>given: expected cost")
+    assert "lenient &lt;all> &amp; co" in html and "<all>" not in html
+    assert html.split("</pre>", 1)[1] == by_group.to_html(index=False)
