@@ -247,3 +247,24 @@ def test_headline_figures_table_text_and_html_by_hand():
     assert html.startswith("<pre>given: expected cost")
     assert "lenient &lt;all> &amp; co" in html and "<all>" not in html
     assert html.split("</pre>", 1)[1] == by_group.to_html(index=False)
+
+
+def test_undefined_gaps_name_their_threshold_and_no_group():
+    # the three-level example: cell 1 (group 1) has q = (0.6, 0, 0.4, 0), so risk levels 1 and 3
+    # hold cases of group 0 only and their principal-fairness gaps are undefined
+    p = np.array([[[0.5, 0.3, 0.1]], [[0.4, 0.4, 0.0]]])
+    rl = make_risk_levels(p, weights=[30, 10], groups=[0, 1])
+    gaps = evaluate(np.array([[0.2, 0.5, 0.3], [0.0, 1.0, 0.0]]), rl, Costs(np.zeros((2, 3)), np.array([1000.0]))).fairness_gaps()
+    pf = gaps[gaps["kind"] == "principal_fairness"]
+    undefined = pf[pf["risk_level"].isin([1, 3])]
+    assert undefined["gap"].isna().all() and len(undefined) == 4
+    assert list(undefined["threshold"]) == ["level 1", "level 1", "level 2", "level 2"]
+    assert (undefined["highest_group"] == "").all() and (undefined["lowest_group"] == "").all()
+
+
+def test_text_lists_every_outcome_rate():
+    p = np.array([[[0.5, 0.25], [0.2, 0.1]], [[0.4, 0.4], [0.3, 0.0]]])
+    rl = make_risk_levels(p, weights=[30, 10], groups=[0, 1])
+    ev = evaluate(np.array([[1.0, 0.0], [0.0, 1.0]]), rl, Costs(np.zeros((2, 2)), np.array([100.0, 50.0])))
+    # outcome 0: (30 * 0.5 + 10 * 0.4) / 40; outcome 1: (30 * 0.2 + 10 * 0.0) / 40
+    assert str(ev).splitlines()[-1] == "  expected outcome rates: outcome 0 47.5%, outcome 1 15.0%"
