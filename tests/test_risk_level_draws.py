@@ -49,15 +49,24 @@ def test_round_trip_gives_the_bootstrap_intervals_of_the_rules_held_fixed(round_
     assert on_table.result.n_replicates == 40 and on_table.cells is None
     a = on_cases.comparison_frame().set_index("rule")
     b = on_table.comparison_frame().set_index("rule")
-    held = [r for r in b.index if r in a.index]
-    assert len(held) == 2  # the optimum and the candidate; observed rules and the aid's need cases
+    assert list(b.index) == list(a.index)  # the table's optional columns give the aid's and the observed rules too
+    held = list(b.index[b["kind"] != "observed"])
+    assert sorted(b.loc[held, "kind"]) == ["aid", "candidate", "optimal"]
     cols = [c for c in b.columns if c.startswith(("cost_per", "regret_per", "rate_", "share_", "agreement"))]
     assert np.isfinite(b.loc[held, ["cost_per_1000_cases_lower", "cost_per_1000_cases_upper"]].to_numpy(float)).all()
     np.testing.assert_allclose(b.loc[held, cols].to_numpy(float), a.loc[held, cols].to_numpy(float), rtol=1e-8, atol=1e-9)
+    # what courts did: the same rule (the same decision counts per cell), so the same point figures; its
+    # intervals differ, since on the table the decisions are held fixed and only the risk levels vary
+    observed = list(b.index[b["kind"] == "observed"])
+    assert len(observed) == 2
+    point = [c for c in cols if not c.endswith(("_lower", "_upper"))]
+    np.testing.assert_allclose(b.loc[observed, point].to_numpy(float), a.loc[observed, point].to_numpy(float),
+                               rtol=1e-9, atol=1e-9)
     da = on_cases.differences_frame()
     db = on_table.differences_frame()
     key = ["rule", "versus", "figure"] if "versus" in db.columns else list(db.columns[:3])
     merged = db.merge(da, on=key, suffixes=("_t", "_c"))
+    merged = merged[merged[key[0]].isin(held) & merged[key[1]].isin(held)]  # pairs of rules held fixed on both
     assert len(merged) > 0
     for col in [c[:-2] for c in merged.columns if c.endswith("_t") and merged[c].dtype.kind == "f"]:
         np.testing.assert_allclose(merged[col + "_t"], merged[col + "_c"], rtol=1e-8, atol=1e-9, err_msg=col)
@@ -66,7 +75,8 @@ def test_round_trip_gives_the_bootstrap_intervals_of_the_rules_held_fixed(round_
     opt = on_table.rules[0].name
     np.testing.assert_allclose(sb[sb["rule"] == opt]["stability"].to_numpy(float),
                                sa[sa["rule"] == opt]["stability"].to_numpy(float), atol=1e-12)
-    assert any("not scored" in n and "decision shares by arm" in n for n in on_table.notes)
+    assert any("held fixed in every draw" in n and "decision shares" in n for n in on_table.notes)
+    assert any("not scored" in n and "aid's effect" in n and "aid_recommends" not in n for n in on_table.notes)
 
 
 def test_point_is_the_mean_over_draws_without_marked_rows(round_trip):
@@ -220,7 +230,80 @@ def test_report_on_a_table_without_draws_gives_point_figures_and_says_so(round_t
     assert code == 0, err
     got = pd.read_csv(tmp_path / "r" / "comparison.csv")
     assert (got["replicates"] == 0).all() and got["cost_per_1000_cases_lower"].isna().all()
-    assert got["cost_per_1000_cases"].notna().all() and len(got) == 2
+    assert got["cost_per_1000_cases"].notna().all()
+    assert sorted(got["kind"]) == ["aid", "candidate", "observed", "observed", "optimal"]
     assert not list((tmp_path / "r").glob("sweep_*_bands.csv"))
     text = _page_text((tmp_path / "r" / "report.html").read_text(encoding="utf-8"))
     assert "carries no draws, so the figures are point figures with no interval" in text
+
+
+def _point_rows(table):
+    return table[table["draw"] == "point"].drop(columns="draw").reset_index(drop=True)
+
+
+def test_observed_and_aid_rules_from_the_table_equal_those_from_the_cases(round_trip):
+    # The same rule two ways: from the case table (policy.decision.candidates) and from the
+    # columns the export writes (decision counts by arm, the aid's level per cell).
+    from policy.decision.candidates import aid_rule, observed_rules
+    from policy.decision.table_rules import rules_from_table_frame
+    from policy.estimation.from_scenario import estimate
+
+    cases_path, table_path, table = round_trip
+    cells, _ = estimate(cases_path)
+    scenario = load_scenario(table_path)
+    point = _point_rows(table)
+    rl = risk_level_draws_from_frame(table, scenario).point
+    got = rules_from_table_frame(point, scenario, rl, "t.csv")
+    want = observed_rules(cells, scenario.aid.name, scenario.level_labels)
+    assert [r.name for r in got.observed] == [r.name for r in want] and got.missing == []
+    for g, w in zip(got.observed, want):
+        np.testing.assert_allclose(g.cell_delta, w.cell_delta, atol=1e-12)
+    np.testing.assert_allclose(got.aid.cell_delta, aid_rule(cells, scenario.aid.name).cell_delta, atol=1e-12)
+    # shares instead of counts give the same rule where every cell has cases in the arm
+    shares = point.copy()
+    for suffix in ("_not_shown", "_shown"):
+        cols = [f"decision_cases_{v}{suffix}" for v in scenario.level_values]
+        total = shares[cols].sum(axis=1)
+        for v, c in zip(scenario.level_values, cols):
+            shares[f"decision_share_{v}{suffix}"] = np.where(total > 0, shares[c] / total.where(total > 0, 1), 1 / 3)
+        shares = shares.drop(columns=cols)
+    by_share = rules_from_table_frame(shares, scenario, rl, "t.csv")
+    has = cells.cases.sum(axis=2) > 0
+    for g, w, a in zip(by_share.observed, want, range(2)):
+        np.testing.assert_allclose(g.cell_delta[has[:, a]], w.cell_delta[has[:, a]], atol=1e-12)
+
+
+def test_bad_rule_columns_are_refused_naming_the_column_and_value(round_trip):
+    from policy.decision.table_rules import rules_from_table_frame
+
+    _, table_path, table = round_trip
+    scenario = load_scenario(table_path)
+    rl = risk_level_draws_from_frame(table, scenario).point
+    point = _point_rows(table)
+
+    def bad(frame, match):
+        with pytest.raises(InputError, match=match):
+            rules_from_table_frame(frame, scenario, rl, "t.csv")
+
+    t = point.copy()
+    t.loc[4, "decision_cases_bond_shown"] = -2
+    bad(t, r"t.csv: column 'decision_cases_bond_shown' must hold a number of cases >= 0; got -2.0 \(row 5\)")
+    t = point.drop(columns="decision_cases_supervision_not_shown")
+    bad(t, r"column 'decision_cases_recognizance_not_shown' needs its companions .*missing: decision_cases_supervision_not_shown")
+    t = point.copy()
+    t.loc[2, "aid_recommends"] = "jail"
+    bad(t, r"column 'aid_recommends' must name a decision level; got 'jail' \(row 3\); expected one of: recognizance")
+    t = point.copy()
+    t.loc[1, "decision_cases_bond_shown"] = t.loc[1, "decision_cases_bond_shown"] + 1  # row 2: the cell's second outcome
+    bad(t, r"column 'decision_cases_bond_shown' must be the same in every outcome row of a cell; row 2")
+    t = point.copy()
+    for v in scenario.level_values:
+        t[f"decision_share_{v}_shown"] = 0.4
+    bad(t, r"either decision_share_<level>_shown or decision_cases_<level>_shown columns, not both")
+    t = point.drop(columns=[c for c in point.columns if c.startswith("decision_cases")])
+    for v in scenario.level_values:
+        t[f"decision_share_{v}"] = 0.4
+    bad(t, r"decision_share_<level> must sum to 1 within 1e-6 in every row; they sum to 1.20000000 in row 1")
+    t.loc[:, "decision_share_bond"] = 0.2
+    t.loc[7, "decision_share_bond"] = 1.5
+    bad(t, r"column 'decision_share_bond' must hold a share in \[0, 1\]; got 1.5 \(row 8\)")

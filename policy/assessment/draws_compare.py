@@ -9,9 +9,10 @@ cell weights; intervals are percentiles over the draws and paired differences ar
 draw, exactly as for the tool's own replicates (:mod:`policy.assessment.paired`). How often each
 rule cell's optimal level is chosen again is counted over the draws.
 
-What the table cannot give is said, not guessed: what courts did (observed rules need decisions
-by arm), the aid's effect and the aid's recommendation (no cases, so no recommended level per
-cell) are left out with a note. Without draws the figures are point figures, with no interval.
+What courts did and the aid's recommendation are scored when the table carries them (optional
+columns, :mod:`policy.decision.table_rules`), held fixed in every draw. What the table cannot
+give is said, not guessed: the missing columns and the aid's effect by risk level (it needs the
+cases) are listed in a note. Without draws the figures are point figures, with no interval.
 """
 
 from __future__ import annotations
@@ -109,6 +110,7 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
     the :class:`DrawsResult` and the notes.
     """
     from policy.decision.candidates import candidate_rules
+    from policy.decision.table_rules import table_rules
     from policy.estimation.from_scenario import load_risk_level_draws, load_risk_level_table
     from policy.inputs.scenario import as_scenario
 
@@ -130,7 +132,9 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
         specs = scenario_specs(scenario)
         if specs:
             solved.append(ConstrainedProblem(rl, costs, specs, settings=scenario.sections.get("linear_program")).solve().rule)
-    all_rules = [optimum] + solved + candidate_rules(scenario, rl.layout, rl.weights) + list(rules)
+    from_table = table_rules(scenario, rl)
+    all_rules = ([optimum] + solved + ([from_table.aid] if from_table.aid is not None else [])
+                 + candidate_rules(scenario, rl.layout, rl.weights) + list(rules) + from_table.observed)
     names = [r.name for r in all_rules]
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
@@ -149,7 +153,9 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
         if solved:
             notes.append("the constrained optimum is solved once on the point estimate and held fixed across draws "
                          "(its stability is not re-counted)")
-    notes.append("not scored (missing from a risk-level table): what courts did with and without the aid (the observed "
-                 "rules need each cell's decision shares by arm), the aid's effect on decisions, and the aid's "
-                 "recommendation (the table does not say which level the aid recommends per cell)")
+    if from_table.observed:
+        notes.append("what courts did is taken from the table's decision shares and held fixed in every draw: its "
+                     "intervals carry the uncertainty of the risk levels only, not that of the decision shares")
+    missing = from_table.missing + ["the aid's effect on decisions by risk level (it needs the cases)"]
+    notes.append("not scored (missing from a risk-level table): " + "; ".join(missing))
     return rl, costs, all_rules, evaluations, result, tuple(notes)

@@ -20,15 +20,32 @@ from policy.estimation.draws import risk_level_draws_frame
 from policy.estimation.strata import RiskLevelEstimator
 from policy.errors import InputError
 
-__all__ = ["bootstrap_draws_table"]
+__all__ = ["bootstrap_draws_table", "decision_columns"]
 
 
 def _outcome_probabilities(p: np.ndarray, batch) -> dict:
     return {"p": p}
 
 
+def decision_columns(cells, level_values) -> dict:
+    """What courts did and the aid's recommendation per cell, as the optional columns of a risk-level
+    table (:mod:`policy.decision.table_rules`): ``decision_cases_<level>`` (with ``_not_shown`` /
+    ``_shown`` by arm) and, where the aid recommends one level in every cell, ``aid_recommends``."""
+    out = {}
+    for a, arm in enumerate(cells.arms):
+        suffix = "" if arm is None else ("_shown" if arm == 1 else "_not_shown")
+        for d, value in enumerate(level_values):
+            out[f"decision_cases_{value}{suffix}"] = cells.cases[:, a, d].astype(np.float64)
+    if cells.recommended is not None:
+        rec = cells.recommended.sum(axis=1)
+        if ((rec > 0).sum(axis=1) == 1).all():
+            out["aid_recommends"] = np.asarray(level_values, dtype=object)[rec.argmax(axis=1)]
+    return out
+
+
 def bootstrap_draws_table(scenario, replicates: int | None = None, seed: int | None = None, resampling: str | None = None,
-                          outcomes: str | None = None, workers: int | None = None, runner=None) -> pd.DataFrame:
+                          outcomes: str | None = None, workers: int | None = None, runner=None,
+                          decisions: bool = True) -> pd.DataFrame:
     """A risk-level table with draws: the scenario's estimates and their bootstrap replicates.
 
     Parameters
@@ -39,6 +56,10 @@ def bootstrap_draws_table(scenario, replicates: int | None = None, seed: int | N
         Override the scenario's ``[uncertainty]`` settings and ``[scenario] seed``, as for ``compare``.
     workers, runner : optional
         How replicates are run; the table does not depend on them.
+    decisions : bool
+        Also write what courts did (cases per decision level, by arm) and the aid's recommendation
+        per cell, on the point rows (:func:`decision_columns`), so ``compare`` on the table scores
+        them too.
 
     Returns
     -------
@@ -66,4 +87,5 @@ def bootstrap_draws_table(scenario, replicates: int | None = None, seed: int | N
                        settings.resampling, settings.interval, runner=runner, workers=workers,
                        description="draws table: bootstrap replicates",
                        outcome_model=rl.p if settings.outcomes == "model" else None)
-    return risk_level_draws_frame(rl, result.replicates["p"], scenario.cell_columns)
+    extra = decision_columns(cells, scenario.level_values) if decisions else None
+    return risk_level_draws_frame(rl, result.replicates["p"], scenario.cell_columns, cell_values=extra)

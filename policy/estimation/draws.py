@@ -218,7 +218,7 @@ def read_draws(path, scenario: Scenario, parse, chunk_rows: int = 500_000) -> Ri
 
     def blocks(**kw):
         offset = 0
-        kw.setdefault("dtype", {"draw": str})
+        kw.setdefault("dtype", {"draw": str, "aid_recommends": str})
         for block in pd.read_csv(path, chunksize=chunk_rows, encoding="utf-8", **kw):
             yield block, offset
             offset += len(block)
@@ -235,7 +235,8 @@ def read_draws(path, scenario: Scenario, parse, chunk_rows: int = 500_000) -> Ri
     return filler.finish()
 
 
-def risk_level_draws_frame(point: RiskLevels, p_draws: np.ndarray, cell_columns, draw_ids=None) -> pd.DataFrame:
+def risk_level_draws_frame(point: RiskLevels, p_draws: np.ndarray, cell_columns, draw_ids=None,
+                           cell_values=None) -> pd.DataFrame:
     """A long risk-level table with draws: the point rows (draw ``point``) then every draw.
 
     Parameters
@@ -248,6 +249,9 @@ def risk_level_draws_frame(point: RiskLevels, p_draws: np.ndarray, cell_columns,
         The scenario's cell columns, in the layout.
     draw_ids : sequence, optional
         Labels of the draws (default 1..n_draws).
+    cell_values : mapping of str to ndarray of shape (n_cells,), optional
+        Further per-cell columns (what courts did, the aid's recommendation:
+        :mod:`policy.decision.table_rules`), written on the point rows and left empty in the draws'.
     """
     p_draws = np.asarray(p_draws, dtype=np.float64)
     B, n, J, L = p_draws.shape
@@ -265,5 +269,8 @@ def risk_level_draws_frame(point: RiskLevels, p_draws: np.ndarray, cell_columns,
             part[f"risk_level_{r}"] = q[:, :, r].reshape(-1)
         for col, v in point.cell_costs.items():
             part[col] = np.repeat(v, J)
+        for col, v in (cell_values or {}).items():
+            v = np.asarray(v)
+            part[col] = np.repeat(v, J) if label == POINT else pd.Series([None] * (n * J), dtype=object if v.dtype.kind in "OUS" else np.float64)
         parts.append(part)
     return pd.concat(parts, ignore_index=True)

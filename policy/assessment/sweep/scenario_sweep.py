@@ -157,12 +157,21 @@ def _scenario_rules(scenario, cells, rl) -> list[Rule]:
     from policy.decision.candidates import aid_rule, candidate_rules, observed_rules
 
     rules: list[Rule] = []
+    from_table = None
+    if cells is None:  # a risk-level table: the aid and what courts did where its optional columns say
+        from policy.decision.table_rules import table_rules
+
+        from_table = table_rules(scenario, rl)
     if cells is not None:
         aid = aid_rule(cells, scenario.aid.name, scenario.level_labels)
         rules += [aid] if aid is not None else []
+    elif from_table.aid is not None:
+        rules.append(from_table.aid)
     rules += candidate_rules(scenario, rl.layout, rl.weights)
     if cells is not None:
         rules += observed_rules(cells, scenario.aid.name, scenario.level_labels)
+    else:
+        rules += from_table.observed
     return rules
 
 
