@@ -10,6 +10,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
+import math
+
+import numpy as np
+import pandas as pd
+
 from policy.decision.candidates import aid_rule, candidate_rules, observed_rules
 from policy.decision.costs import Costs
 from policy.decision.robust import RobustRule, robust_rule, uncertainty_set
@@ -21,7 +26,12 @@ from policy.estimation.strata import RiskLevels
 from policy.inputs.cells import CellTable
 from policy.inputs.scenario import Scenario
 
-__all__ = ["DoubtSettings", "RulesUnderDoubt", "baseline_choices", "rules_under_doubt"]
+__all__ = ["DEFAULT_GAMMA", "DoubtChoice", "DoubtSettings", "RulesUnderDoubt", "baseline_choices", "chosen_doubt",
+           "rules_under_doubt"]
+
+#: Gamma of the set guarded against by default when the arm check finds no confounding (or cannot
+#: run): a moderate departure from unconfoundedness, chosen by the tool (an assumption, not a finding)
+DEFAULT_GAMMA = 1.5
 
 
 @dataclass(frozen=True)
@@ -54,11 +64,100 @@ class DoubtSettings:
 
 
 @dataclass(frozen=True)
+class DoubtChoice:
+    """The set and baseline chosen for the rules that hold under doubt, and why.
+
+    Attributes
+    ----------
+    settings : DoubtSettings
+    reason : str
+        Why this set, in a sentence or two (which values were asked for, what the arm check found).
+    contradicted : bool
+        The arm check shows more confounding than the set allows (Gamma below Gamma_low): the
+        data contradict the set, and the rules' guarantees may not hold.
+    """
+
+    settings: DoubtSettings
+    reason: str
+    contradicted: bool = False
+
+
+def _gamma_text(g: float) -> str:
+    return f"{g:.2f}".rstrip("0").rstrip(".")
+
+
+def chosen_doubt(check: Any = None, gamma: float | None = None, bounds: bool = False, safe_against: str | None = None,
+                 has_arm: bool = False, default_gamma: float = DEFAULT_GAMMA) -> DoubtChoice:
+    """The set and baseline of the rules that hold under doubt: the values asked for, else chosen
+    from what the randomized arm shows.
+
+    Parameters
+    ----------
+    check : ArmCheck, optional
+        The arm check (:func:`policy.estimation.arm_check.arm_check`), where the data have an arm.
+    gamma, bounds : optional
+        A Gamma value, or the monotone bounds, asked for (at most one of the two).
+    safe_against : str, optional
+        The safe rule's baseline asked for (default: what courts did without the aid where the
+        data have an arm, else what courts did).
+    has_arm : bool
+        The data have a randomized arm (so ``courts-not-shown`` exists).
+    default_gamma : float
+        Gamma when nothing is asked for and the arm check does not reject (or cannot run).
+
+    Returns
+    -------
+    DoubtChoice
+        When nothing is asked for: Gamma_low (rounded up to 2 decimals) where the arm check
+        rejects and Gamma_low is finite; the monotone bounds where it is infinite; else
+        ``default_gamma``.
+    """
+    if gamma is not None and bounds:
+        raise InputError("give a Gamma value or the monotone bounds for the rules that hold under doubt, not both.")
+    low = float(getattr(check, "gamma_lower", float("nan"))) if check is not None else float("nan")
+    rejects = bool(check is not None and check.rejects)
+    shown = f"the least confounding the randomized arm shows is Gamma_low = {'infinity' if low == np.inf else _gamma_text(low)}"
+    contradicted = False
+    if bounds:
+        reason = "Guarding against the monotone-response bounds, as asked: they assume monotonicity only."
+    elif gamma is not None:
+        reason = f"Guarding against confounding up to Gamma = {_gamma_text(gamma)}, as asked."
+        if rejects and low == low and gamma < low:
+            contradicted = True
+            reason += (f" The data contradict that set: {shown} (the arm check rejects unconfoundedness), so the "
+                       "guarantees below may not hold; use Gamma of at least that value or the monotone bounds.")
+    elif rejects and low == np.inf:
+        bounds = True
+        reason = ("The randomized arm contradicts unconfoundedness and no finite Gamma reconciles its two arms, so the "
+                  "rules guard against the monotone-response bounds (monotonicity only).")
+    elif rejects and low == low:
+        gamma = math.ceil(low * 100 - 1e-9) / 100
+        reason = (f"The randomized arm contradicts unconfoundedness; the rules guard against confounding up to "
+                  f"Gamma = {_gamma_text(gamma)}, since {shown} (a lower confidence bound: the confounding present may "
+                  "be larger; the monotone bounds hold at any Gamma).")
+    else:
+        gamma = default_gamma
+        found = ("the randomized arm found no contradiction of unconfoundedness" if check is not None and check.tested
+                 else "the data have no randomized arm to test unconfoundedness with" if check is None
+                 else "the arm check could not be run")
+        reason = (f"Guarding against confounding up to Gamma = {_gamma_text(gamma)}, a moderate departure chosen by the "
+                  f"tool ({found}; that is no proof that there is none).")
+    if safe_against is None:
+        safe_against = "courts-not-shown" if has_arm else "courts"
+        reason += (" The safe rule is set against what courts did " + ("without the aid." if has_arm else "(observed)."))
+    return DoubtChoice(DoubtSettings(gamma=gamma, bounds=bounds, safe_against=safe_against), reason, contradicted)
+
+
+@dataclass(frozen=True)
 class RulesUnderDoubt:
-    """The robust rule and, with a baseline, the safe rule."""
+    """The robust rule and, with a baseline, the safe rule.
+
+    ``standing`` (:func:`standing_frame`) sets them beside the ordinary optimum and the baseline.
+    """
 
     robust: RobustRule
     safe: SafeRule | None = None
+    standing: pd.DataFrame | None = None
 
     @property
     def rules(self) -> list[Rule]:
@@ -68,6 +167,8 @@ class RulesUnderDoubt:
         files = self.robust.output_files()
         if self.safe is not None:
             files.update(self.safe.output_files())
+        if self.standing is not None:
+            files["doubt_rules.csv"] = self.standing
         return files
 
     def summary(self) -> str:
@@ -131,5 +232,39 @@ def rules_under_doubt(scenario: Scenario, cells: CellTable | None, risk_levels: 
     if doubt.safe_against is not None:
         baseline = _find_baseline(doubt.safe_against, baseline_choices(scenario, cells, risk_levels, costs), where)
         safe = safe_rule(risk_levels, costs, the_set, baseline, constraints, settings=lp_settings, monotone=doubt.monotone)
-    return RulesUnderDoubt(robust, safe)
+    return RulesUnderDoubt(robust, safe, standing_frame(robust, safe, risk_levels, costs))
+
+
+def standing_frame(robust: RobustRule, safe: SafeRule | None, risk_levels: RiskLevels, costs: Costs) -> pd.DataFrame:
+    """The ordinary optimum (the robust rule's reference), the robust rule, the safe rule and its
+    baseline side by side, per 1,000 cases: ``cost_point`` (expected cost under the point
+    estimate), ``cost_worst_case`` (largest over the set), and with a safe rule
+    ``regret_worst_case`` (largest regret against the baseline over the set and monotonicity;
+    at most 0: never worse than the baseline) and ``share_<level>`` (share of cases at each
+    level, under the rule)."""
+    from policy.decision.robust import rule_cost, worst_case_p
+    from policy.decision.safe import worst_case_regret
+
+    rows: list[tuple[str, str, Rule]] = []
+    if robust.reference is not None:
+        rows.append(("ordinary optimum", robust.reference.name, robust.reference))
+    rows.append(("robust rule", robust.rule.name, robust.rule))
+    if safe is not None:
+        rows += [("safe rule", safe.rule.name, safe.rule), ("baseline", safe.baseline.name, safe.baseline)]
+    worst = worst_case_p(robust.bounds)
+    w = risk_levels.weights
+    out = []
+    for role, name, rule in rows:
+        delta = rule.cell_delta
+        rec = {"role": role, "rule": name, "set": robust.bounds.label,
+               "cost_point": 1000.0 * rule_cost(delta, risk_levels.p, w, costs),
+               "cost_worst_case": 1000.0 * rule_cost(delta, worst, w, costs)}
+        if safe is not None:
+            rec["regret_worst_case"] = (1000.0 * safe.worst_case_regret_per_case if role == "safe rule" else
+                                        1000.0 * worst_case_regret(delta, safe.baseline, risk_levels, costs, safe.bounds,
+                                                                   safe.monotone).total)
+        shares = (np.asarray(w, dtype=np.float64)[:, None] * delta).sum(axis=0) / float(np.sum(w))
+        rec.update({f"share_{v}": float(s) for v, s in zip(rule.level_values, shares)})
+        out.append(rec)
+    return pd.DataFrame(out)
 

@@ -182,6 +182,10 @@ def report(
     progress: bool = typer.Option(True, "--progress/--no-progress", help="Show a progress bar."),
     overwrite: bool = OverwriteOption,
     cache: bool = typer.Option(True, "--cache/--no-cache", help="Reuse the comparison and sweeps cached in the output folder when the scenario file, data, costs and replicates are unchanged."),
+    robust_gamma: Optional[float] = typer.Option(None, "--robust-gamma", help="Guard the robust and safe rules against confounding up to this Gamma >= 1 (default: the least confounding the randomized arm shows where its check rejects, else 1.5)."),
+    robust_bounds: bool = typer.Option(False, "--robust-bounds", help="Guard the robust and safe rules against the monotone-response bounds (monotonicity only)."),
+    safe_against: Optional[str] = typer.Option(None, "--safe-against", help="Baseline of the safe rule (courts, courts-shown, courts-not-shown, aid, optimum or a candidate's name; default: what courts did without the aid)."),
+    doubt: bool = typer.Option(True, "--doubt/--no-doubt", help="Solve and show the rules that hold if unconfoundedness fails."),
 ):
     """Write the committee report: one self-contained HTML page with live cost controls, and its tables.
 
@@ -196,9 +200,11 @@ def report(
     sc = as_scenario(scenario)
     outcome_costs, decision_costs = _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor)
     check_options(replicates=(replicates, 0, MAX_REPLICATES))
+    _doubt(robust_gamma, robust_bounds, None)
     inputs = claim(out, sc)
     n = replicates if replicates is not None else sc.sections["uncertainty"].replicates
-    if cache and (out / cache_name(cache_key(sc, outcome_costs, decision_costs, replicates))).is_file():
+    asked = (robust_gamma, bool(robust_bounds), safe_against) if doubt else None
+    if cache and (out / cache_name(cache_key(sc, outcome_costs, decision_costs, replicates, asked))).is_file():
         console.print(f"Reusing the comparison and sweeps cached in {out / CACHE_FOLDER} (same scenario file, data, "
                       "costs and replicates); --no-cache computes them afresh.")
     elif sc.data.kind != "risk_level_table" and n:
@@ -208,10 +214,16 @@ def report(
                       f"about {span} at 0.3 to 0.8 s per replicate (measured on a shared 2-core machine); the progress "
                       "bars show the time left. --replicates 100 gives a draft in a tenth of the time.")
     built = build_report(sc, outcome_costs, decision_costs, replicates=replicates, progress=progress,
-                         cache_folder=out if cache else None)
+                         cache_folder=out if cache else None, robust_gamma=robust_gamma, robust_bounds=robust_bounds,
+                         safe_against=safe_against, under_doubt=doubt)
     paths = write_outputs(out, built.output_files(), inputs=inputs, overwrite=overwrite, command="report")
     console.print(str(built))
     show_cautions()
+    show_arm_check(getattr(built.results.analysis, "arm_check", None) if built.results is not None else None)
+    found = getattr(built.results.comparison, "under_doubt", None) if built.results is not None else None
+    if found is not None:
+        console.print(built.results.doubt_choice.reason)
+        _print_doubt(found)
     show_written([p for p in paths if CACHE_FOLDER not in p.parts])
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
 

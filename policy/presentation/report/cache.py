@@ -33,8 +33,9 @@ def _file_digest(path: Path) -> str:
 
 
 def cache_key(scenario, outcome_costs: Mapping[str, float] | None, decision_costs: Mapping[str, Any] | None,
-              replicates: int | None) -> str:
-    """The digest naming a report's cached results (hex text)."""
+              replicates: int | None, doubt: Any = None) -> str:
+    """The digest naming a report's cached results (hex text); ``doubt``: the settings of the rules
+    that hold under doubt (:class:`policy.decision.doubt.DoubtSettings`), when the report solves them."""
     from importlib.metadata import PackageNotFoundError, version
 
     try:
@@ -46,6 +47,8 @@ def cache_key(scenario, outcome_costs: Mapping[str, float] | None, decision_cost
     parts.append(_file_digest(scenario.path) if scenario.path is not None else repr(sorted(scenario.raw.items())))
     if scenario.data.path is not None:
         parts.append(_file_digest(scenario.data.path))
+    if doubt is not None:
+        parts.append(repr(doubt))
     return hashlib.sha256("\n".join(parts).encode("utf-8")).hexdigest()[:32]
 
 

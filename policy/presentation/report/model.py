@@ -94,6 +94,9 @@ class ReportResults:
         The decision-cost overrides the analysis was run with (flat costs, or
         :class:`policy.decision.costs.CostFactor` factors on per-cell costs), so that the page
         can state its starting costs as the command line that reproduces them.
+    doubt_choice : DoubtChoice, optional
+        The set and baseline of the rules that hold under doubt (:func:`policy.decision.doubt.chosen_doubt`)
+        and why; the rules themselves are the comparison's ``under_doubt``.
     """
 
     analysis: Analysis
@@ -104,6 +107,7 @@ class ReportResults:
     sweeps: tuple[Any, ...] = ()
     lenient_map: Any = None
     decision_costs: Any = None
+    doubt_choice: Any = None
 
     @property
     def scenario(self) -> Scenario:

@@ -135,7 +135,8 @@ def compared_rules(comparison) -> list[ComparedRule]:
 
 def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, float] | None = None,
                  decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
-                 progress: bool = False, cache_folder: str | Path | None = None) -> Report:
+                 progress: bool = False, cache_folder: str | Path | None = None, robust_gamma: float | None = None,
+                 robust_bounds: bool = False, safe_against: str | None = None, under_doubt: bool = True) -> Report:
     """Run the stages for a scenario and assemble their results into the committee report.
 
     Parameters
@@ -153,6 +154,13 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
         The report's output folder: reuse the comparison and the sweeps cached there for the same
         scenario file, data, costs and replicates (:mod:`policy.presentation.report.cache`), and
         return them in :attr:`Report.cache` to be written there.
+    robust_gamma, robust_bounds, safe_against : optional
+        The set (a Gamma value or the monotone bounds) and the baseline of the rules that hold
+        under doubt; what is not given is chosen from the arm check
+        (:func:`policy.decision.doubt.chosen_doubt`).
+    under_doubt : bool
+        Solve the robust and safe rules and show them (default true; they need counts, so a
+        risk-level table has none).
 
     Returns
     -------
@@ -161,16 +169,24 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     from policy.assessment.compare import compare
     from policy.presentation.report.cache import cache_bytes, cache_key, cache_name, load_cached
 
+    from policy.decision.doubt import chosen_doubt
+
     scenario = as_scenario(scenario)
     analysis = analyze(scenario, outcome_costs, decision_costs)
-    key = cache_key(scenario, outcome_costs, decision_costs, replicates) if cache_folder is not None else None
+    asked = (robust_gamma, bool(robust_bounds), safe_against) if under_doubt else None
+    key = cache_key(scenario, outcome_costs, decision_costs, replicates, asked) if cache_folder is not None else None
+    choice = None
+    if under_doubt and analysis.cells is not None:
+        choice = chosen_doubt(analysis.arm_check, robust_gamma, robust_bounds, safe_against,
+                              has_arm=analysis.cells.has_arm)
     cached = load_cached(cache_folder, key) if key is not None else None
     comparison, why = None, ""
     if cached is not None:
         comparison = cached["comparison"]
     else:  # a risk-level table is compared too: intervals over its draws, or point figures without them
         comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
-                             decision_costs=decision_costs, progress=progress)
+                             decision_costs=decision_costs, progress=progress,
+                             doubt=choice.settings if choice is not None else None)
     compared = compared_rules(comparison)
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
@@ -181,7 +197,7 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
                                           replicates, progress)
     points = tuple(res.constrained for res in sweeps if res.constrained is not None)
     report = render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map,
-                                         dict(decision_costs or {})))
+                                         dict(decision_costs or {}), choice))
     if key is None:
         return report
     payload = {"comparison": comparison, "sweeps": list(sweeps), "lenient_map": lenient_map}

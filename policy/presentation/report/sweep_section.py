@@ -9,6 +9,7 @@ from typing import Callable
 from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct, inline_svg
 from policy.presentation.report.model import ReportResults, Section
 from policy.presentation.report.summary import summary_section
+from policy.presentation.report.doubt_view import doubt_section
 from policy.presentation.report.sections import aid_effect_section, comparison_section, constrained_section, data_section, groups_section, live_rule_section, risk_level_section, scenario_section
 
 
@@ -123,6 +124,7 @@ SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     live_rule_section,
     constrained_section,
     comparison_section,
+    doubt_section,
     aid_effect_section,
     sweep_section,
     groups_section,
