@@ -199,6 +199,8 @@ def _build_one(expression: str, library: CostLibrary, where: str) -> BuiltCost:
     used: dict[str, ComponentUse] = {}
     numbers: list[float] = []
     value, shown, _ = _evaluate(tree.body, library, where, used, numbers)
+    if isinstance(tree.body, ast.Name) and shown.startswith("("):
+        shown = shown[1:-1]
     if value < 0:
         raise InputError(f"{where}: {expression!r} comes to {fmt_amount(value)}; a cost must be >= 0.")
     arithmetic = shown if shown == fmt_amount(value) else f"{shown} = {fmt_amount(value)}"

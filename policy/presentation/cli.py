@@ -476,6 +476,34 @@ def batch(
         raise typer.Exit(2)
 
 
+@command
+def worksheet(
+    scenario: Path = typer.Argument(..., help="Scenario file (TOML)."),
+    out: Path = OutOption,
+    cost: Optional[List[str]] = CostOption,
+    decision_cost: Optional[List[str]] = DecisionCostOption,
+    decision_cost_factor: Optional[List[str]] = DecisionFactorOption,
+    overwrite: bool = OverwriteOption,
+):
+    """Write the cost worksheet: each cost, how it was built, its sources and flags, and the range over which the cost-minimizing rule does not change."""
+    from policy.assessment.cost_worksheet import worksheet_scenario
+    from policy.outputs import write_outputs
+    from policy.running.pipeline import as_scenario
+
+    sc = as_scenario(scenario)
+    outcome_costs, decision_costs = _pairs(cost, "--cost"), _decision_costs(decision_cost, decision_cost_factor)
+    inputs = claim(out, sc)
+    sheet = worksheet_scenario(sc, outcome_costs, decision_costs)
+    paths = write_outputs(out, sheet.output_files(), inputs=inputs, overwrite=overwrite, command="worksheet")
+    console.print(sc.title, style="bold")
+    console.print(str(sheet))
+    console.print("Assumptions behind the ranges:", style="bold")
+    for line in sheet.assumptions:
+        console.print(f"  - {line}")
+    show_cautions()
+    show_written(paths)
+
+
 def _plain_metavars() -> None:
     """Show each option's value as NAME=VALUE, TEXT, NUMBER or PATH in --help, never a Python type like <list[str]>."""
     import inspect
