@@ -279,3 +279,50 @@ def test_rule_grid_lays_out_every_rule_cell_once():
                     assert d == int(rule.level[g]) and label == rule.level_labels[d]
         # headings are the scenario's labels, never raw column names with underscores
         assert "_" not in grid["row_title"] + grid["column_title"], (grid["row_title"], grid["column_title"])
+
+
+def test_summary_gives_paired_intervals_shares_cheaper_and_stability_from_the_replicates():
+    """The summary's paired differences, shares of replicates and stability, recomputed here from
+    the comparison's raw replicates with numpy: percentile interval of the replicate-by-replicate
+    difference (numpy.percentile, linear interpolation: the bootstrap percentile interval of Efron
+    and Tibshirani 1993, section 13.3) and plain counts of replicates."""
+    from policy.assessment.compare import compare
+    from policy.presentation.report import ReportResults
+    from policy.presentation.report.page import compared_rules
+    from policy.presentation.report.summary import certainty_sentence, paired_with_recommended, stability
+
+    analysis = analyze(ROOT / "scenarios" / "demo.toml")
+    cmp = compare(analysis.scenario, replicates=12)
+    results = ReportResults(analysis, tuple(compared_rules(cmp)), comparison=cmp)
+    paired = paired_with_recommended(results)
+    names = [r.name for r in cmp.rules]
+    reps = 1000.0 * np.asarray(cmp.result.replicates["cost"], dtype=float)  # (B, R)
+    point = 1000.0 * np.asarray(cmp.result.point["cost"], dtype=float)
+    assert set(paired) == set(names[1:])
+    for k, name in enumerate(names[1:], start=1):
+        d, lo, hi, share = paired[name]
+        diff = reps[:, k] - reps[:, 0]
+        assert d == pytest.approx(point[k] - point[0])
+        assert (lo, hi) == pytest.approx(tuple(np.percentile(diff, [2.5, 97.5])))
+        assert share == pytest.approx(np.mean(reps[:, 0] < reps[:, k]))
+    sentence = certainty_sentence(results)
+    assert sentence.startswith("How sure: at the scenario's costs")
+    for name in names[1:]:
+        assert f"\u201c{name}\u201d ({paired[name][3]:.0%})" in sentence
+        # named before "with the whole ... above zero" exactly when the interval lies above zero
+        settled = sentence.split("with the whole")[0] if "with the whole" in sentence else ""
+        assert (paired[name][1] > 0) == (f"\u201c{name}\u201d" in settled), (name, sentence)
+    # stability: the share of replicates whose re-solved rule picks each cell's level again
+    again = (np.asarray(cmp.result.replicates["optimal_level"]) == analysis.rule.level[None, :]).mean(axis=0)
+    view = stability(results)
+    low = again < 0.8
+    assert f"for {int((~low).sum())} of {analysis.rule.n_rule_cells} rule cells" in view["sentence"]
+    assert [bool(n) for n in view["notes"]] == list(low)
+    for g in np.flatnonzero(low):
+        assert view["notes"][g] == f"picked again in {again[g]:.0%}"
+    for line in view["lines"]:
+        assert "_" not in line.split(":")[0]  # the scenario's column labels, not raw names
+    # without replicates: no intervals, no stability, and the sentences say nothing
+    none = ReportResults(analysis, tuple(compared_rules(compare(analysis.scenario, replicates=0))),
+                         comparison=compare(analysis.scenario, replicates=0))
+    assert paired_with_recommended(none) == {} and stability(none) is None and certainty_sentence(none) == ""

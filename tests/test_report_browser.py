@@ -491,7 +491,12 @@ def test_a_cost_slider_and_the_figures_it_moves_are_in_view_together(demo_page, 
     assert changed.count() == int((rule.level != results.analysis.rule.level).sum()) > 0
     assert "was" in changed.first.inner_text()
     page.screenshot(path=str(tmp_path / "slider-focused-1366.png"))
+    # the shares of replicates and the stability notes hold at the scenario's costs only: gone here
+    texts = lambda kind: [t.strip() for t in page.locator(f'[data-live="{kind}"]').all_inner_texts()]
+    assert texts("sum-cheaper") and not any(texts("sum-cheaper")) and not any(texts("grid-stability"))
     page.locator("#reset-costs").click()
+    assert all(t.startswith("recommended cheaper in ") for t in texts("sum-cheaper"))
+    assert all(t.startswith("\u00b7 picked again in ") for t in texts("grid-stability")) and texts("grid-stability")
 
 
 def test_on_a_phone_charts_are_full_width_and_tables_fit(demo_page, tmp_path):

@@ -3,9 +3,10 @@ compared rule, its shares and rates, the costs at which it would change, and the
 chosen costs (a scenario snippet, the command line, the rule as CSV).
 
 Everything here is formatted from result objects at the report's starting costs; the page's
-script recomputes the same figures when a cost moves (``report.js``). Figures of later stages
-(paired differences with intervals, stability, an assumption verdict) slot in as extra entries of
-``rows[i]["figures"]`` and ``verdicts`` without a change to the template.
+script recomputes the same figures when a cost moves (``report.js``). Where the
+comparison has bootstrap replicates, the summary also gives each compared rule's paired
+difference with its interval, the share of replicates in which the recommended rule is cheaper,
+and how often each rule cell's level is picked again (all at the scenario's costs).
 """
 
 from __future__ import annotations
@@ -124,11 +125,32 @@ def nearest_breakpoints(results: ReportResults) -> list[dict[str, str]]:
     return out
 
 
+def paired_with_recommended(results: ReportResults) -> dict[str, tuple[float, float, float, float]]:
+    """Each compared rule's paired difference in expected cost per 1,000 cases against the
+    recommended rule (the comparison's optimum, held fixed), from the same bootstrap replicates:
+    rule name -> (difference, lower, upper, share of replicates in which the recommended rule is
+    strictly cheaper). Empty without a comparison or without replicates."""
+    cmp = results.comparison
+    if cmp is None or not cmp.result.n_replicates:
+        return {}
+    best = cmp.rules[0].name  # the optimum comes first in the comparison's order
+    frame = cmp.differences_frame()
+    frame = frame[(frame["figure"] == "cost_per_1000_cases") & (frame["first_rule"] == best)]
+    return {r.second_rule: (-r.difference, -r.difference_upper, -r.difference_lower, r.share_first_lower)
+            for r in frame.itertuples(index=False)}
+
+
+def cheaper_text(share: float) -> str:
+    """'recommended cheaper in 90%' (of the replicates; empty when the share is not defined)."""
+    return f"recommended cheaper in {fmt_pct(share, 0)}" if np.isfinite(share) else ""
+
+
 def compared_rows(results: ReportResults) -> list[dict[str, Any]]:
     """Each compared rule against the recommended one at the report's costs: cost, the
-    difference, shares and rates; with the comparison's bootstrap intervals where there is one
-    (they hold at the scenario's costs only)."""
-    frame = results.comparison.comparison_frame().set_index("rule") if results.comparison is not None else None
+    difference, shares and rates; where the comparison has replicates, the paired difference's
+    interval and the share of replicates in which the recommended rule is cheaper (they hold at
+    the scenario's costs only)."""
+    paired = paired_with_recommended(results)
     out = []
     for i, c in enumerate(results.compared):
         if c.rule.kind == "optimal":
@@ -136,13 +158,15 @@ def compared_rows(results: ReportResults) -> list[dict[str, Any]]:
         ev = c.evaluation
         kind = c.rule.kind
         regret = fmt_num(1000.0 * ev.regret_per_case, DIGITS["cost"])
-        if frame is not None and c.rule.name in frame.index:
-            row = frame.loc[c.rule.name]
-            regret = fmt_interval(row["regret_per_1000_cases"], row["regret_per_1000_cases_lower"],
-                                  row["regret_per_1000_cases_upper"], lambda v: fmt_num(v, DIGITS["cost"]))
+        cheaper = ""
+        if c.rule.name in paired:
+            d, lo, hi, share = paired[c.rule.name]
+            regret = fmt_interval(d, lo, hi, lambda v: fmt_num(v, DIGITS["cost"]))
+            cheaper = cheaper_text(share)
         out.append({"index": i, "name": c.rule.name, "kind": KIND_WORDS.get(kind, kind),
                     "cost": fmt_num(ev.cost_per_1000, DIGITS["cost"]),
                     "difference": "+" + regret if not regret.startswith("-") else regret,
+                    "cheaper": cheaper,
                     "shares": [fmt_pct(s, DIGITS["share"]) for s in ev.level_shares],
                     "rates": [fmt_pct(r, DIGITS["rate"]) for r in ev.outcome_rates],
                     "figures": []})
@@ -186,6 +210,75 @@ def constrained_note(results: ReportResults) -> str:
             "\u201cThe constrained rule and its price\u201d (and in the comparison below).")
 
 
+def certainty_sentence(results: ReportResults) -> str:
+    """How sure the comparison is, in one sentence: the rules the recommended one beats in the
+    paired interval, and those it does not (the data do not settle which is cheaper)."""
+    paired = paired_with_recommended(results)
+    if not paired:
+        return ""
+    cmp = results.comparison
+    label, n = cmp.result.interval_label, cmp.result.n_replicates
+    clear, open_ = [], []
+    for c in results.compared:
+        if c.rule.kind == "optimal" or c.rule.name not in paired:
+            continue
+        d, lo, hi, share = paired[c.rule.name]
+        text = f"\u201c{c.rule.name}\u201d ({fmt_pct(share, 0)})"
+        (clear if lo > 0 else open_).append(text)
+    parts = []
+    if clear:
+        parts.append("the recommended rule costs less than " + _join(clear) + ", with the whole " + label
+                     + " of the paired difference above zero")
+    if open_:
+        parts.append(("against " if parts else "the recommended rule's difference from ") + _join(open_)
+                     + (", the interval" if parts else " has an interval that") + " includes zero: the data do not settle "
+                     "which is cheaper")
+    return (f"How sure: at the scenario's costs, {'; '.join(parts)}. In brackets, the share of the {n} bootstrap "
+            "replicates in which the recommended rule is cheaper; every rule is scored in the same replicates.")
+
+
+def _join(items: list[str]) -> str:
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def stability(results: ReportResults, limit: int = 6) -> dict[str, Any] | None:
+    """How often the rule re-solved in each bootstrap replicate picks each rule cell's level again:
+    a sentence, the least settled cells in words, and per rule cell a grid note for those below the
+    comparison's threshold. None without replicates."""
+    cmp = results.comparison
+    if cmp is None or not cmp.result.n_replicates:
+        return None
+    frame = cmp.stability_frame()
+    frame = frame[frame["rule"] == cmp.rules[0].name].reset_index(drop=True)
+    rule = results.analysis.rule
+    if len(frame) != rule.n_rule_cells or not frame["stability"].notna().any():
+        return None
+    sc = results.scenario
+    columns = list(rule.rule_cells.columns)
+    threshold = float(frame["stability_threshold"].iloc[0])
+    value = frame["stability"].to_numpy(dtype=float)
+    low = value < threshold
+    cases = np.asarray(rule.weights, dtype=float)
+    settled = fmt_pct(cases[~low].sum() / cases.sum(), DIGITS["share"]) if cases.sum() > 0 else "\u2013"
+    sentence = (f"Re-solved on each of the {cmp.result.n_replicates} bootstrap replicates, the rule picks the same level "
+                f"again in at least {threshold:.0%} of them for {int((~low).sum())} of {len(value)} rule cells "
+                f"({settled} of cases).")
+    if low.any():
+        sentence += (" The others are not settled by the data: read their level as a judgment the estimates leave open"
+                     " (marked in the grid).")
+    others = [c for c in frame.columns if c.startswith("share_optimal_")]
+    labels = dict(zip((f"share_optimal_{v}" for v in sc.level_values), rule.level_labels))
+    lines = []
+    for g in np.argsort(value, kind="stable")[: int(low.sum())][:limit]:
+        row = frame.iloc[g]
+        where = ", ".join(f"{sc.column_label(c)} {rule.rule_cells.iloc[g][c]}" for c in columns) or "every case"
+        alt = max((c for c in others if labels.get(c) != row["level"]), key=lambda c: row[c], default=None)
+        tail = f"; {labels.get(alt, alt)} in {row[alt]:.0%}" if alt is not None and row[alt] > 0 else ""
+        lines.append(f"{where}: {row['level']} picked again in {value[g]:.0%} of replicates{tail}")
+    notes = [f"picked again in {v:.0%}" if bad else "" for v, bad in zip(value, low)]
+    return {"sentence": sentence, "lines": lines, "more": max(0, int(low.sum()) - limit), "notes": notes}
+
+
 def summary_section(results: ReportResults) -> Section:
     """The first screen: the rule's grid, headline, what it changes, where it would change, export."""
     a = results.analysis
@@ -212,6 +305,8 @@ def summary_section(results: ReportResults) -> Section:
             "verdicts": [],
             "constrained_note": constrained_note(results),
             "changes": change_sentences(results),
+            "certainty": certainty_sentence(results),
+            "stability": stability(results),
         },
         assumptions=tuple(assumptions_for("rule")),
     )

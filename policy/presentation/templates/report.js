@@ -168,7 +168,7 @@
 
   // the summary's texts as the tool wrote them at the scenario's costs (with intervals and the sweeps' breakpoints)
   var exactSummary = {};
-  ["sum-diff", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
+  ["sum-diff", "sum-cheaper", "grid-stability", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
     exactSummary[kind] = [];
     var nodes = document.querySelectorAll('[data-live="' + kind + '"]');
     for (var i = 0; i < nodes.length; i++) { exactSummary[kind].push(nodes[i].textContent); }
@@ -302,6 +302,7 @@
       mine("sum-cost", function () { return fmtNum(1000 * r.cost, digits.cost); });
       if (!exact) {
         mine("sum-diff", function () { var t = fmtNum(1000 * (r.cost - ev.cost), digits.cost); return t.charAt(0) === "-" ? t : "+" + t; });
+        mine("sum-cheaper", function () { return ""; });
       }
       mine("change", function () {
         var gap = 1000 * (r.cost - ev.cost);
@@ -315,7 +316,9 @@
       for (var d = 0; d < L; d++) { mine("sum-share-" + d, function () { return fmtPct(r.shares[d], digits.share); }); }
       for (var j = 0; j < J; j++) { mine("sum-rate-" + j, function () { return fmtPct(r.rates[j], digits.rate); }); }
     });
-    if (exact) { restore("sum-diff"); }
+    // intervals, shares of replicates and stability hold at the scenario's costs only
+    if (exact) { restore("sum-diff"); restore("sum-cheaper"); restore("grid-stability"); }
+    else { each("grid-stability", function (el) { el.textContent = ""; }); }
     showGrid(levels);
     showBreakpoints(per, levels, exact);
     showExport(levels);
