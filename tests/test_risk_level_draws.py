@@ -137,12 +137,13 @@ def test_the_example_table_of_draws_runs_through_compare_and_solve(tmp_path, cap
     code, out, _ = run_cli(["compare", path, "--out", tmp_path / "c"], capsys)
     assert code == 0 and "percentile interval over 50 draws" in out
     frame = pd.read_csv(tmp_path / "c" / "comparison.csv")
-    assert list(frame["kind"]) == ["optimal", "candidate"]
+    assert list(frame["kind"]) == ["optimal", "aid", "candidate", "observed", "observed"]
     assert (frame["replicates"] == 50).all() and frame["cost_per_1000_cases_lower"].notna().all()
     import json
 
     notes = json.loads((tmp_path / "c" / "compare.json").read_text())["notes"]
-    assert any("50 draws" in n for n in notes) and any("not scored" in n for n in notes)
+    assert any("50 draws" in n for n in notes) and any("not scored" in n and "aid's effect" in n for n in notes)
+    assert any("taken from the table's decision shares" in n for n in notes)
     # solve reads the same table's point rows
     code, _, _ = run_cli(["solve", path, "--out", tmp_path / "s"], capsys)
     assert code == 0
