@@ -123,6 +123,10 @@ def test_report_shows_the_rules_that_hold_under_doubt(small_case_table):
     keys = [s.key for s in report.sections]
     assert keys.index("under-doubt") == keys.index("comparison") + 1
     assert report.results.analysis.arm_check.headline() in html
+    # and the ladder of sets, as written to doubt_ladder.csv
+    ladder = report.files["doubt_ladder.csv"]
+    assert "Where each conclusion stops holding" in html and list(ladder["set"])[-1] == "monotone bounds"
+    assert [row[0] for row in section.context["ladder"].rows] == list(ladder["set"])
 
 
 def test_report_without_doubt_has_no_such_section(small_case_table):

@@ -128,6 +128,9 @@ class Comparison:
     stability: float = STABILITY
     #: cross-fitted costs (policy.assessment.crossfit.CrossFit), or None without cross-fitting
     crossfit: Any = None
+    #: the optimum, robust and safe rules over a ladder of sets (policy.decision.doubt_ladder.DoubtLadder),
+    #: with the rules under doubt
+    doubt_ladder: Any = None
 
     # -- helpers -------------------------------------------------------------------------------
     def _fig(self, name: str):
@@ -380,6 +383,8 @@ class Comparison:
             files["compare.json"]["assumption_free"] = self.arm_costs.summary()
         if self.under_doubt is not None:
             files.update(self.under_doubt.output_files())
+        if self.doubt_ladder is not None:
+            files.update(self.doubt_ladder.output_files())
         return files
 
     def __str__(self) -> str:
@@ -537,8 +542,15 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
                                        arm_labels=tuple(r.name for r in observed))
         check = arm_check(cells, outcome_labels=scenario.outcome_label_map)
         gammas = with_gamma_low(gammas, check)
+    ladder = None
+    if under_doubt is not None:
+        from policy.decision.doubt_ladder import ladder_for
+
+        ladder = ladder_for(under_doubt, doubt, check, rl, cells, costs, SENSITIVITY_GAMMAS, specs,
+                            scenario.sections.get("linear_program"))
     intervals = robust_assumptions(rl, cells, gammas, True)
     ranges = (rule_ranges(all_rules, rl, costs, intervals), regret_ranges(all_rules, rl, costs, intervals))
     crossfit = cross_fit(cells, rl, costs, estimator, all_rules, solvers, folds, result.seed, fold_repeats) if folds else None
     return Comparison(scenario, cells, rl, costs, all_rules, evaluations, result, tuple(notes), stability=stability,
-                      crossfit=crossfit, arm_check=check, arm_costs=arm_costs, ranges=ranges, under_doubt=under_doubt)
+                      crossfit=crossfit, arm_check=check, arm_costs=arm_costs, ranges=ranges, under_doubt=under_doubt,
+                      doubt_ladder=ladder)

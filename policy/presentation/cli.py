@@ -155,19 +155,25 @@ def solve(
     analysis = analyze(sc, outcome_costs, decision_costs, constraints=added,
                        scenario_constraints=not ignore_constraints, lp_settings=settings)
     files = analysis.output_files()
-    found = None
+    found = ladder = None
     if doubt is not None:
         from policy.decision.doubt import rules_under_doubt
 
         c = analysis.constrained
+        from policy.decision.doubt_ladder import ladder_for
+        from policy.estimation.bounds_table import SENSITIVITY_GAMMAS
+
         found = rules_under_doubt(sc, analysis.cells, analysis.risk_levels, analysis.costs, doubt,
                                   c.specs if c is not None else (), settings, c.rule if c is not None else analysis.rule,
                                   where="--safe-against")
+        ladder = ladder_for(found, doubt, analysis.arm_check, analysis.risk_levels, analysis.cells, analysis.costs,
+                            SENSITIVITY_GAMMAS, c.specs if c is not None else (), settings)
         files.update(found.output_files())
+        files.update(ladder.output_files())
     paths = write_outputs(out, files, inputs=inputs, overwrite=overwrite, command="solve")
     _print_analysis(analysis)
     if found is not None:
-        _print_doubt(found)
+        _print_doubt(found, ladder)
     show_written(paths)
 
 
@@ -223,7 +229,7 @@ def report(
     found = getattr(built.results.comparison, "under_doubt", None) if built.results is not None else None
     if found is not None:
         console.print(built.results.doubt_choice.reason)
-        _print_doubt(found)
+        _print_doubt(found, built.results.comparison.doubt_ladder)
     show_written([p for p in paths if CACHE_FOLDER not in p.parts])
     console.print(f"Open {out / 'report.html'} in a web browser; it needs no network.")
 
@@ -412,7 +418,7 @@ def compare(
             console.print(f"  - {line}")
         show_assumptions("aid_effect")
     if comparison.under_doubt is not None:
-        _print_doubt(comparison.under_doubt)
+        _print_doubt(comparison.under_doubt, comparison.doubt_ladder)
     for note in comparison.notes:
         console.print(f"Note: {note}")
     show_cautions()

@@ -31,9 +31,13 @@ def Panel(*args, **kwargs):
     return RichPanel(*args, **kwargs)
 
 
-def _print_doubt(found) -> None:
+def _print_doubt(found, ladder=None) -> None:
     console.print("Rules that hold under doubt:", style="bold")
     console.print(found.summary())
+    if ladder is not None:
+        console.print("Where each conclusion stops holding (doubt_ladder.csv):", style="bold")
+        for line in ladder.lines():
+            console.print(f"  - {line}", markup=False)
     console.print("Assumptions behind the robust and safe rules:", style="bold")
     for a in found.robust.bounds.assumptions:
         console.print(f"  - {a}")

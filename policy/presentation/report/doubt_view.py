@@ -10,7 +10,7 @@ from __future__ import annotations
 from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct
 from policy.presentation.report.model import ReportResults, Section
 
-__all__ = ["doubt_section", "standing_view"]
+__all__ = ["doubt_section", "ladder_view", "standing_view"]
 
 #: what each row of the standing table is, in a phrase
 ROLE_NOTES = {
@@ -42,6 +42,28 @@ def standing_view(found, level_labels, unit: str) -> TableView:
                      + (True,) * len(levels))
 
 
+def ladder_view(ladder, level_labels, unit: str) -> TableView:
+    """The ladder of sets (:class:`policy.decision.doubt_ladder.DoubtLadder`) as the page shows it."""
+    frame = ladder.frame
+    regret = "optimum_regret_worst_case" in frame.columns
+    lenient = f"robust_share_{frame.columns[frame.columns.str.startswith('robust_share_')][0][len('robust_share_'):]}"
+    columns = (("set", "contradicted by the randomized arm", f"{ladder.reference}: worst-case cost",
+                "robust rule: worst-case cost", "robust rule: cost if unconfoundedness holds",
+                f"robust rule: share {level_labels[0]}")
+               + ((f"{ladder.reference}: worst-case regret against {ladder.baseline}",
+                   f"safe rule: guaranteed saving against {ladder.baseline}") if regret else ()))
+    rows = []
+    for _, row in frame.iterrows():
+        rows.append((row["set"], "yes" if row["contradicted"] else "no", fmt_num(row["optimum_cost_worst_case"]),
+                     fmt_num(row["robust_cost_worst_case"]), fmt_num(row["robust_cost_point"]), fmt_pct(row[lenient]))
+                    + ((fmt_num(row["optimum_regret_worst_case"]),
+                        fmt_num(row["safe_guaranteed_saving"]) if row["safe_certified"] else "not certified")
+                       if regret else ()))
+    caption = (f"Where each conclusion stops holding: each set from slight confounding to the monotone bounds, per "
+               f"1,000 cases ({unit}; doubt_ladder.csv)")
+    return TableView(caption, columns, tuple(rows), (False, False) + (True,) * (len(columns) - 2))
+
+
 def doubt_section(results: ReportResults) -> Section | None:
     """Which assumption the rule needs, what the randomized arm says of it, and the rules that
     hold when it fails; None when the comparison solved no such rules."""
@@ -64,6 +86,9 @@ def doubt_section(results: ReportResults) -> Section | None:
             "contradicted": bool(choice is not None and choice.contradicted),
             "set_label": robust.bounds.label,
             "standing": standing_view(found, cmp.risk_levels.level_labels, cmp.costs.unit),
+            "ladder": (ladder_view(cmp.doubt_ladder, cmp.risk_levels.level_labels, cmp.costs.unit)
+                       if getattr(cmp, "doubt_ladder", None) is not None else None),
+            "ladder_lines": cmp.doubt_ladder.lines() if getattr(cmp, "doubt_ladder", None) is not None else [],
             "lines": lines,
             "certified": None if safe is None else safe.certified,
             "set_assumptions": list(robust.bounds.assumptions),
