@@ -111,3 +111,21 @@ def test_cli_worksheet_writes_the_tables_and_marks_a_cost_set_on_the_command_lin
     data = json.loads((tmp_path / "w" / "cost_worksheet.json").read_text())
     assert "illustrative" in data["warning"] and data["price_year"] == 2024
     assert "the rule holds for" in out
+
+
+def test_the_report_shows_the_worksheet_and_the_implied_costs(demo_scenario):
+    from policy.assessment.implied import MEANING
+    from policy.presentation.report import render_report
+    from policy.running.pipeline import analyze
+
+    report = render_report(analyze(demo_scenario))
+    keys = [s.key for s in report.sections]
+    assert keys.index("sweeps" if "sweeps" in keys else "comparison") < keys.index("cost-worksheet") < keys.index("implied-costs")
+    text = " ".join(report.html.split())
+    assert "3,532 x 1.457 = 5,146.12" in text and "illustrative defaults" in text
+    assert "screen tier 4, charge misdemeanor: supervised release -&gt; secured bond" in text.lower()
+    assert "if the courts were minimizing expected cost, they acted as if one new offense cost" in text
+    assert " ".join(MEANING.split()).replace("'", "&#39;") in text
+    implied = report.files["implied_costs.csv"]
+    assert set(implied["outcome"]) == set(demo_scenario.outcome_keys)
+    assert {"cost_worksheet.csv", "cost_worksheet_components.csv"} <= set(report.files)

@@ -22,7 +22,7 @@ number the recommendation does not hinge on.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Mapping, Sequence
+from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
@@ -60,7 +60,7 @@ class CostRange:
 
 
 def _range(total: np.ndarray, slope: np.ndarray, t0: float, groups: pd.DataFrame,
-           level_labels: Sequence[str]) -> CostRange:
+           level_labels: Sequence[str], label: Callable[[str], str] = str) -> CostRange:
     """The exact range of t keeping each rule cell's level (module docstring)."""
     g = np.arange(total.shape[0])
     best = argmin_lenient(total)
@@ -73,7 +73,7 @@ def _range(total: np.ndarray, slope: np.ndarray, t0: float, groups: pd.DataFrame
 
     def change(bound: np.ndarray, pick) -> str:
         cell, level = np.unravel_index(pick(bound), bound.shape)
-        where = ", ".join(f"{c} {groups.iloc[cell][c]}" for c in groups.columns)
+        where = ", ".join(f"{label(c)} {groups.iloc[cell][c]}" for c in groups.columns)
         return f"{where}: {level_labels[best[cell]]} -> {level_labels[level]}"
 
     below = change(down, np.argmax) if float(down.max()) > 0 else ""
@@ -82,7 +82,8 @@ def _range(total: np.ndarray, slope: np.ndarray, t0: float, groups: pd.DataFrame
 
 
 def cost_ranges(risk_levels: RiskLevels, costs: Costs, decision_flat: Sequence[bool] | None = None,
-                columns: Sequence[str] | None = None) -> list[tuple[str, int, CostRange]]:
+                columns: Sequence[str] | None = None,
+                label: Callable[[str], str] = str) -> list[tuple[str, int, CostRange]]:
     """The range of each cost over which the cost-minimizing rule does not change.
 
     Parameters
@@ -95,6 +96,8 @@ def cost_ranges(risk_levels: RiskLevels, costs: Costs, decision_flat: Sequence[b
         Default: flat where every cell has the same cost.
     columns : sequence of str, optional
         Columns of the rule cells (default: the scenario's rule covariates).
+    label : callable, optional
+        A rule column's display name in the ``below``/``above`` texts (default: the name).
 
     Returns
     -------
@@ -117,10 +120,10 @@ def cost_ranges(risk_levels: RiskLevels, costs: Costs, decision_flat: Sequence[b
         else:
             slope[:, k] = m @ costs.decision[:, k]
             t0 = 1.0
-        out.append(("decision", k, _range(total, slope, t0, groups, risk_levels.level_labels)))
+        out.append(("decision", k, _range(total, slope, t0, groups, risk_levels.level_labels, label)))
     for j in range(len(costs.outcome)):
         out.append(("outcome", j, _range(total, m @ risk_levels.p[:, j, :], float(costs.outcome[j]), groups,
-                                         risk_levels.level_labels)))
+                                         risk_levels.level_labels, label)))
     return out
 
 
@@ -208,7 +211,7 @@ def cost_worksheet(scenario: Any, risk_levels: RiskLevels, costs: Costs, columns
     entries = [("decision", lv.value, lv.label, lv, k) for k, lv in enumerate(scenario.levels)]
     entries += [("outcome", o.key, o.label, o, j) for j, o in enumerate(scenario.outcomes)]
     flat = [lv.cost_column is None for lv in scenario.levels]
-    ranges = {(kind, i): r for kind, i, r in cost_ranges(risk_levels, costs, flat, columns)}
+    ranges = {(kind, i): r for kind, i, r in cost_ranges(risk_levels, costs, flat, columns, scenario.column_label)}
     weights = risk_levels.weights
     rows, parts = [], []
     for kind, key, label, item, i in entries:

@@ -10,6 +10,7 @@ from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct, i
 from policy.presentation.report.model import ReportResults, Section
 from policy.presentation.report.summary import summary_section
 from policy.presentation.report.doubt_view import doubt_section
+from policy.presentation.report.cost_sections import implied_section, worksheet_section
 from policy.presentation.report.sections import aid_effect_section, comparison_section, constrained_section, data_section, groups_section, live_rule_section, risk_level_section, scenario_section
 
 
@@ -127,6 +128,8 @@ SECTION_BUILDERS: list[Callable[[ReportResults], Section | None]] = [
     doubt_section,
     aid_effect_section,
     sweep_section,
+    worksheet_section,
+    implied_section,
     groups_section,
 ]
 
