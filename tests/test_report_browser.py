@@ -622,3 +622,83 @@ def test_the_exported_command_line_reproduces_the_page(demo_page, tmp_path, caps
     assert close(item.locator('[data-live="bp-above"]').inner_text(), above, 0), (above, item.inner_text())
     assert close(item.locator('[data-live="bp-below"]').inner_text(), below, 0), (below, item.inner_text())
     page.locator("#reset-costs").click()
+
+
+# where each marked element starts and ends in the printed PDF: an internal link to an id makes
+# Chromium write a named destination for it (its page and its top), read back from the PDF's
+# catalog (ISO 32000-1: 7.7.2 the catalog's /Dests, 7.7.3 the page tree, 12.3.2.2 explicit
+# destinations [page /XYZ left top zoom])
+MARK_ENDS = """() => {
+  const shown = Array.from(document.querySelectorAll('table tr, figure')).filter(e => e.getClientRects().length);
+  const links = document.createElement('div');
+  links.style.display = 'none';
+  const pairs = shown.map((e, i) => {
+    e.id = e.id || ('printed-start-' + i);
+    const box = e.tagName === 'TR' ? e.cells[0] : e;  // a row's cells are as tall as the row
+    box.style.position = 'relative';
+    const end = document.createElement('span');
+    end.id = 'printed-end-' + i;
+    end.style.cssText = 'position: absolute; left: 0; bottom: 0; width: 0; height: 0';
+    box.appendChild(end);
+    for (const id of [e.id, end.id]) { const a = document.createElement('a'); a.href = '#' + id; links.appendChild(a); }
+    return [e.id, end.id, e.tagName.toLowerCase()];
+  });
+  document.body.appendChild(links);
+  return pairs;
+}"""
+
+
+def pdf_destinations(pdf: bytes) -> dict[str, tuple[int, float]]:
+    """Named destinations of a PDF written by Chromium (objects uncompressed, no object streams):
+    name -> (page index from 0, top in points from the page's bottom)."""
+    import re
+
+    objects = {int(m.group(1)): m.group(2) for m in re.finditer(rb"(?m)^(\d+) 0 obj\s*(.*?)endobj", pdf, re.S)}
+    catalog = objects[int(re.search(rb"/Root (\d+) 0 R", pdf).group(1))]
+    order: list[int] = []
+
+    def walk(n: int) -> None:
+        body = objects[n]
+        kids = re.search(rb"/Kids\s*\[(.*?)\]", body, re.S)
+        if kids and re.search(rb"/Type\s*/Pages", body):
+            for k in re.findall(rb"(\d+) 0 R", kids.group(1)):
+                walk(int(k))
+        else:
+            order.append(n)
+
+    walk(int(re.search(rb"/Pages (\d+) 0 R", catalog).group(1)))
+    page = {n: i for i, n in enumerate(order)}
+    dests = objects[int(re.search(rb"/Dests (\d+) 0 R", catalog).group(1))]
+    return {m.group(1).decode(): (page[int(m.group(2))], float(m.group(3)))
+            for m in re.finditer(rb"/([^\s/\[\]<>()]+)\s*\[(\d+) 0 R /XYZ [-\d.]+ ([-\d.]+)", dests)}
+
+
+def cut_across_pages(page) -> tuple[list, int]:
+    """The table rows and figures whose start and end print on different A4 pages, and how many were checked."""
+    page.emulate_media(media="print")
+    pairs = page.evaluate(MARK_ENDS)
+    found = pdf_destinations(page.pdf(format="A4", print_background=True))
+    page.emulate_media(media="screen")
+    checked = [(a, e, kind) for a, e, kind in pairs if a in found and e in found]
+    return [(kind, a, found[a], found[e]) for a, e, kind in checked if found[a][0] != found[e][0]], len(checked)
+
+
+def test_cut_across_pages_finds_a_row_taller_than_a_page(browser, tmp_path):
+    """The check itself: a row taller than an A4 page must be reported cut, the short ones before it not."""
+    rows = "".join(f'<tr><td style="height: {1500 if i == 2 else 100}px">row {i}</td></tr>' for i in range(4))
+    path = tmp_path / "tall.html"
+    path.write_text(f"<!doctype html><html><body><table>{rows}</table></body></html>", encoding="utf-8")
+    page = browser.new_page()
+    page.goto(path.as_uri())
+    cut, checked = cut_across_pages(page)
+    page.close()
+    assert checked == 4
+    assert [c[1] for c in cut][:1] == ["printed-start-2"], cut
+
+
+def test_no_table_row_or_figure_is_cut_across_printed_pages(demo_page):
+    page, _ = demo_page
+    shown = page.evaluate("Array.from(document.querySelectorAll('table tr, figure')).length")
+    cut, checked = cut_across_pages(page)
+    assert checked >= 0.9 * shown > 0, (checked, shown)  # only what print hides (the controls) goes unchecked
+    assert not cut, cut[:10]
