@@ -8,9 +8,11 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from policy import load_scenario
-from policy.assessment.rule_ranges import regret_ranges, rule_ranges
+from policy.assessment.rule_ranges import regret_extremes, regret_ranges, rule_ranges
 from policy.decision.candidates import observed_rules
 from policy.decision.costs import costs_from_scenario
 from policy.decision.evaluate import evaluate
@@ -18,6 +20,8 @@ from policy.decision.solve import optimal_rule
 from policy.demo.quarrow import demo_scenario_path
 from policy.estimation.bounds import robust_assumptions
 from policy.running.pipeline import estimate
+
+from .test_robust import brute_worst, instance, random_rule_cells
 
 
 @pytest.fixture(scope="module")
@@ -75,8 +79,8 @@ def test_regret_range_equals_brute_force_over_the_box_vertices(setup):
     for idx in picks:
         lower[idx], upper[idx] = box.lower[idx], box.upper[idx]
     small = replace(box, key="small", lower=lower, upper=upper)
-    got = regret_ranges(rules[:2], rl, costs, [small]).iloc[0]
-    got_cost = rule_ranges(rules[:1], rl, costs, [small]).iloc[0]
+    got = regret_ranges(rules[:2], rl, costs, [small], monotone=False).iloc[0]
+    got_cost = rule_ranges(rules[:1], rl, costs, [small], monotone=False).iloc[0]
     values, costs_a = [], []
     for corner in itertools.product((0, 1), repeat=len(picks)):
         p = rl.p.copy()
@@ -90,3 +94,47 @@ def test_regret_range_equals_brute_force_over_the_box_vertices(setup):
     assert got["regret_per_1000_cases_upper"] == pytest.approx(1000 * max(values), rel=1e-9, abs=1e-6)
     assert got_cost["cost_per_1000_cases_lower"] == pytest.approx(1000 * min(costs_a), rel=1e-12)
     assert got_cost["cost_per_1000_cases_upper"] == pytest.approx(1000 * max(costs_a), rel=1e-12)
+
+
+# ----------------------------------------------------------------------------------------------
+# With monotonicity: the box intersected with p_0 >= p_1 >= ... in every cell and outcome kind
+# ----------------------------------------------------------------------------------------------
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 10_000), levels=st.integers(2, 3), outcomes=st.integers(1, 2),
+       kind=st.sampled_from(["gamma", "box"]), gamma=st.floats(1.0, 6.0))
+def test_monotone_regret_extremes_equal_brute_force_over_extreme_points(seed, levels, outcomes, kind, gamma):
+    # the extreme points of each chain-box enumerated by brute force (tests/test_robust.py);
+    # a linear function's extremes over a polytope are at its vertices (common practice)
+    rl, costs, columns, bounds = instance(seed, levels, outcomes, kind, gamma)
+    rng = np.random.default_rng(seed)
+    da, ia = random_rule_cells(rng, rl, columns)
+    db, ib = random_rule_cells(rng, rl, columns)
+    a, b = da[ia], db[ib]
+    lo, hi = regret_extremes(a, b, rl, costs, bounds, monotone=True)
+    w = rl.weights / rl.weights.sum()
+    fixed = float((w[:, None] * (a - b) * costs.decision).sum())
+    coef = w[:, None, None] * costs.outcome[None, :, None] * (a - b)[:, None, :]
+    assert hi == pytest.approx(fixed + brute_worst(coef, bounds, True), rel=1e-9, abs=1e-12)
+    assert lo == pytest.approx(fixed - brute_worst(-coef, bounds, True), rel=1e-9, abs=1e-12)
+    box_lo, box_hi = regret_extremes(a, b, rl, costs, bounds, monotone=False)
+    assert box_hi == pytest.approx(fixed + brute_worst(coef, bounds, False), rel=1e-9, abs=1e-12)
+    assert box_lo <= lo + 1e-12 and hi <= box_hi + 1e-12
+
+
+def test_monotone_ranges_lie_within_the_box_ranges_and_agree_with_the_extremes(setup):
+    _, rl, costs, rules, intervals = setup
+    mono = regret_ranges(rules, rl, costs, intervals).set_index(["rule", "against", "assumption"])
+    box = regret_ranges(rules, rl, costs, intervals, monotone=False).set_index(["rule", "against", "assumption"])
+    assert (mono["regret_per_1000_cases_lower"] >= box["regret_per_1000_cases_lower"] - 1e-6).all()
+    assert (mono["regret_per_1000_cases_upper"] <= box["regret_per_1000_cases_upper"] + 1e-6).all()
+    narrower = (box["regret_per_1000_cases_upper"] - box["regret_per_1000_cases_lower"]
+                - mono["regret_per_1000_cases_upper"] + mono["regret_per_1000_cases_lower"])
+    assert (narrower.xs("bounds", level="assumption") > 0).all()   # the monotone bounds' upper ends are not a chain
+    lo, hi = regret_extremes(rules[0].cell_delta, rules[1].cell_delta, rl, costs, intervals[-1])
+    row = mono.loc[(rules[0].name, rules[1].name, intervals[-1].key)]
+    assert 1000 * lo == pytest.approx(row["regret_per_1000_cases_lower"]) and 1000 * hi == pytest.approx(
+        row["regret_per_1000_cases_upper"])
+    costs_mono = rule_ranges(rules, rl, costs, intervals)
+    costs_box = rule_ranges(rules, rl, costs, intervals, monotone=False)
+    assert (costs_mono["cost_per_1000_cases_upper"] <= costs_box["cost_per_1000_cases_upper"] + 1e-6).all()
+    assert (costs_mono["cost_per_1000_cases_lower"] >= costs_box["cost_per_1000_cases_lower"] - 1e-6).all()

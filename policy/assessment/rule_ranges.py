@@ -14,9 +14,17 @@ the coefficient is positive and the lower end where it is negative, its smallest
 A regret range that lies wholly above 0 says A costs more than B under every distribution the
 assumption allows.
 
-The box ignores the links between the intervals (monotonicity across levels within a cell,
-one outcome kind nested in another), so the ranges are outer ranges: they contain every value
-the assumption allows and may be wider than the sharp range.
+Both assumptions (the sensitivity model and the monotone-response bounds) also assume
+monotonicity: a harsher level never raises an outcome's probability for the same person, so
+p_j0(x) >= p_j1(x) >= ... within every cell and outcome kind. With ``monotone=True`` (the
+default) the ranges are taken over the box intersected with that chain (the chain-box of
+:func:`policy.decision.safe.chain_box_maximum`): a cost or rate (coefficients >= 0) is largest at
+p_d = min_{d' <= d} u_d' and smallest at p_d = max_{d' >= d} l_d', and a regret's extremes come
+from the same dynamic program as the safe rule's worst case (:func:`regret_extremes`). Where a
+cell's chain-box is empty (intervals that no non-increasing sequence meets, e.g. a point
+estimate that is not monotone) that cell falls back to the box. Links between outcome kinds
+(one nested in another) are still ignored, so the ranges remain outer ranges: they contain every
+value the assumption allows and may be wider than the sharp range.
 
 References
 ----------
@@ -36,7 +44,62 @@ from policy.decision.rules import Rule
 from policy.estimation.bounds import RiskBounds
 from policy.estimation.strata import RiskLevels
 
-__all__ = ["rule_ranges", "regret_ranges"]
+__all__ = ["rule_ranges", "regret_ranges", "regret_extremes"]
+
+
+def _chain(lower: np.ndarray, upper: np.ndarray) -> np.ndarray:
+    """Whether each (cell, outcome kind) chain-box {l <= p <= u, p non-increasing in d} is
+    non-empty, shape lower.shape[:-1]."""
+    least = np.flip(np.maximum.accumulate(np.flip(lower, axis=-1), axis=-1), axis=-1)
+    return (least <= upper + 1e-12).all(axis=-1)
+
+
+def _monotone_ends(b: RiskBounds) -> tuple[np.ndarray, np.ndarray]:
+    """The coordinatewise least and greatest points of each chain-box (the box's own ends where the
+    chain-box is empty): every cost and rate with coefficients >= 0 is smallest at the first and
+    largest at the second."""
+    ok = _chain(b.lower, b.upper)[..., None]
+    least = np.minimum(np.flip(np.maximum.accumulate(np.flip(b.lower, axis=-1), axis=-1), axis=-1), b.upper)
+    most = np.maximum(np.minimum.accumulate(b.upper, axis=-1), b.lower)
+    return np.where(ok, least, b.lower), np.where(ok, most, b.upper)
+
+
+def regret_extremes(delta_a: np.ndarray, delta_b: np.ndarray, risk_levels: RiskLevels, costs: Costs,
+                    bounds: RiskBounds, monotone: bool = True) -> tuple[float, float]:
+    """The smallest and largest regret per case of rule A against rule B over a set: min and max
+    over p of cost(A, p) - cost(B, p), p in the box (with ``monotone``, intersected with the chain
+    p_j0 >= p_j1 >= ... of every cell and outcome kind; the box alone where that is empty).
+
+    Parameters
+    ----------
+    delta_a, delta_b : ndarray of shape (n_cells, L)
+        Per-cell decision probabilities of the two rules (``Rule.cell_delta``).
+    risk_levels, costs, bounds
+        The cells' weights, the costs and the set.
+    monotone : bool
+
+    Returns
+    -------
+    (float, float)
+        Smallest and largest regret per case; A costs more than B under every distribution of
+        the set when the first is above 0.
+    """
+    from policy.decision.safe import chain_box_maximum
+
+    w = np.asarray(risk_levels.weights, dtype=np.float64)
+    W = w.sum()
+    diff = np.asarray(delta_a, dtype=np.float64) - np.asarray(delta_b, dtype=np.float64)
+    n, J, L = bounds.lower.shape
+    a = (w[:, None, None] * costs.outcome[None, :, None] * diff[:, None, :] / W).reshape(n * J, L)
+    lo, hi = bounds.lower.reshape(n * J, L), bounds.upper.reshape(n * J, L)
+    chain = _chain(lo, hi) if monotone else np.zeros(n * J, dtype=bool)
+    top = chain_box_maximum(a, lo, hi, False)
+    bottom = -chain_box_maximum(-a, lo, hi, False)
+    if chain.any():
+        top[chain] = chain_box_maximum(a[chain], lo[chain], hi[chain], True)
+        bottom[chain] = -chain_box_maximum(-a[chain], lo[chain], hi[chain], True)
+    fixed = float((w[:, None] * diff * costs.decision).sum() / W)
+    return fixed + float(bottom.sum()), fixed + float(top.sum())
 
 
 def _parts(rules: Sequence[Rule], weights: np.ndarray, costs: Costs):
@@ -48,7 +111,8 @@ def _parts(rules: Sequence[Rule], weights: np.ndarray, costs: Costs):
     return wd, fixed, W
 
 
-def rule_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, intervals: Sequence[RiskBounds]) -> pd.DataFrame:
+def rule_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, intervals: Sequence[RiskBounds],
+                monotone: bool = True) -> pd.DataFrame:
     """The range of each rule's expected cost and outcome rates under each assumption.
 
     Parameters
@@ -60,6 +124,9 @@ def rule_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, in
     costs : Costs
     intervals : sequence of RiskBounds
         E.g. :func:`policy.estimation.bounds.robust_assumptions` (point, each Gamma, the bounds).
+    monotone : bool
+        Ranges over each box intersected with monotonicity in the level (default true; see the
+        module notes); false: over the box alone.
 
     Returns
     -------
@@ -71,8 +138,9 @@ def rule_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, in
     wd, fixed, W = _parts(rules, risk_levels.weights, costs)
     rows = []
     for b in intervals:
-        rates_lo = np.einsum("rxd,xjd->rj", wd, b.lower) / W
-        rates_hi = np.einsum("rxd,xjd->rj", wd, b.upper) / W
+        low, high = _monotone_ends(b) if monotone else (b.lower, b.upper)
+        rates_lo = np.einsum("rxd,xjd->rj", wd, low) / W
+        rates_hi = np.einsum("rxd,xjd->rj", wd, high) / W
         lo = fixed + rates_lo @ costs.outcome
         hi = fixed + rates_hi @ costs.outcome
         for i, rule in enumerate(rules):
@@ -86,9 +154,11 @@ def rule_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, in
     return pd.DataFrame(rows)
 
 
-def regret_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, intervals: Sequence[RiskBounds]) -> pd.DataFrame:
+def regret_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, intervals: Sequence[RiskBounds],
+                  monotone: bool = True) -> pd.DataFrame:
     """The range of each rule's regret against each other rule under each assumption
-    (parameters as :func:`rule_ranges`).
+    (parameters as :func:`rule_ranges`; with ``monotone``, by :func:`regret_extremes` over the
+    chain-boxes, the two rules' costs taken at the same distribution).
 
     Returns
     -------
@@ -103,10 +173,18 @@ def regret_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, 
     base = fixed[:, None] - fixed[None, :]
     c = costs.outcome
     rows = []
+    R = len(rules)
     for b in intervals:
-        coef = diff[:, :, :, None, :] * c[None, None, None, :, None]  # (R, R, n, J, L)
-        hi = base + np.where(coef > 0, coef * b.upper, coef * b.lower).sum(axis=(2, 3, 4)) / W
-        lo = base + np.where(coef > 0, coef * b.lower, coef * b.upper).sum(axis=(2, 3, 4)) / W
+        if monotone:
+            lo, hi = np.zeros((R, R)), np.zeros((R, R))
+            for a in range(R):
+                for o in range(a + 1, R):
+                    lo[a, o], hi[a, o] = regret_extremes(rules[a].cell_delta, rules[o].cell_delta, risk_levels, costs, b)
+                    lo[o, a], hi[o, a] = -hi[a, o], -lo[a, o]
+        else:
+            coef = diff[:, :, :, None, :] * c[None, None, None, :, None]  # (R, R, n, J, L)
+            hi = base + np.where(coef > 0, coef * b.upper, coef * b.lower).sum(axis=(2, 3, 4)) / W
+            lo = base + np.where(coef > 0, coef * b.lower, coef * b.upper).sum(axis=(2, 3, 4)) / W
         for a, ra in enumerate(rules):
             for o, rb in enumerate(rules):
                 if a == o:
