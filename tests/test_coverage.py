@@ -26,6 +26,9 @@ DENSE = ("varying", "four_levels")
 #: families that miss the target where it applies, with the floor the full run must keep: the
 #: measured coverage less three Monte Carlo sd (docs/method.md gives the figures and the cause)
 SHORTFALLS = {("four_levels", "difference"): 0.67}
+#: measured and recorded, never held to the target: the chosen rule's held-fixed interval, which
+#: does not allow for the rule's choice on the same data (the ``chosen`` family does)
+REPORTED_ONLY = ("chosen_fixed",)
 
 
 def _band(study, name):
@@ -50,7 +53,7 @@ def test_coverage_quick_dense(name):
     study = coverage_study(name, sets=12, replicates=60)
     table = study.table()
     for fam in FAMILIES:
-        if (name, fam) in SHORTFALLS:
+        if (name, fam) in SHORTFALLS or fam in REPORTED_ONLY:
             continue  # checked against its measured floor in the full run only
         lo, hi = _band(study, fam)
         assert lo <= study.coverage(fam) <= hi, table.to_string()
@@ -86,6 +89,8 @@ def test_coverage_full_dense(name):
     table = study.table()
     print(table.to_string())
     for fam in FAMILIES:
+        if fam in REPORTED_ONLY:
+            continue
         if (name, fam) in SHORTFALLS:
             assert study.coverage(fam) >= SHORTFALLS[name, fam], table.to_string()
             continue

@@ -39,6 +39,9 @@ def test_demo_scenario_reads(demo_scenario):
         ('value = "supervision"', 'value = "recognizance"', "[[decisions]] value 'recognizance' is declared twice"),
         ('key = "new_violent"', 'key = "new violent"', "must use letters, digits and _ only"),
         ('[aid]\nscore = "aid_tier"', '[aid]\nscore = "aid_points"', "[aid] score 'aid_points' must be a cell covariate"),
+        ('[aid]\n', '[estimator]\ntranslation_limit = 0\n[aid]\n',
+         "key 'translation_limit' in [estimator] must be a number > 0 (standard errors); got 0.0"),
+        ('[aid]\n', '[estimator]\nlevel_terms = "yes"\n[aid]\n', "key 'level_terms' in [estimator] must be"),
     ],
 )
 def test_bad_scenarios_name_file_key_and_expectation(tmp_path, old, new, message):
@@ -155,3 +158,13 @@ BINS
     frame.to_csv(tmp_path / "cases.csv", index=False)
     with pytest.raises(InputError, match=r"cases.csv: column 'age' is binned.*row 8 with 'unknown'"):
         policy.analyze(tmp_path / "s.toml")
+
+
+def test_estimator_keys_reach_the_estimator(tmp_path):
+    from policy.estimation.strata import RiskLevelEstimator
+
+    default = RiskLevelEstimator.from_scenario(load_scenario(write_scenario(tmp_path)))
+    assert default.level_terms is True and default.translation_limit is None
+    path = write_scenario(tmp_path, replace={"[aid]\n": "[estimator]\nlevel_terms = false\ntranslation_limit = 2\n[aid]\n"})
+    est = RiskLevelEstimator.from_scenario(load_scenario(path))
+    assert est.level_terms is False and est.translation_limit == 2.0

@@ -44,6 +44,8 @@ from policy.decision.rules import Rule
 from policy.inputs.scenario import Scenario
 from policy.decision.solve import optimal_rule
 from policy.estimation.strata import RiskLevelEstimator, RiskLevels
+from policy.estimation.world import outcome_world
+from policy.assessment.selection import chosen_cost_columns
 from policy.decision.candidates import CandidateSpec, aid_rule, candidate_rule, candidate_rules, observed_delta, observed_rules  # noqa: F401
 from policy.assessment.crossfit import check_folds, cross_fit
 from policy.assessment.paired import cost_matrix, paired_differences, paired_figures
@@ -160,6 +162,9 @@ class Comparison:
 
         c, lo, hi = self._fig("cost")
         put("cost_per_1000_cases", c, lo, hi, 1000.0)
+        # the chosen rules' true cost, allowing for their choice on the same data (policy.assessment.selection)
+        out["cost_per_1000_cases_chosen_lower"], out["cost_per_1000_cases_chosen_upper"] = chosen_cost_columns(
+            self.result.point, self.result.replicates, len(self.rules), self.result.level)
         c, lo, hi = self._fig("regret")
         put("regret_per_1000_cases", c, lo, hi, 1000.0)
         put("agreement", *self._fig("agreement"))
@@ -393,6 +398,9 @@ class Comparison:
         for _, row in frame.iterrows():
             lo, hi = row["cost_per_1000_cases_lower"], row["cost_per_1000_cases_upper"]
             interval = f" ({lo:,.0f} to {hi:,.0f})" if np.isfinite(lo) else ""
+            clo, chi = row["cost_per_1000_cases_chosen_lower"], row["cost_per_1000_cases_chosen_upper"]
+            if np.isfinite(clo):
+                interval += f", allowing for its choice on these data {clo:,.0f} to {chi:,.0f}"
             lines.append(f"  {row['rule']}: {row['cost_per_1000_cases']:,.0f} per 1,000 cases{interval}; "
                          f"regret {row['regret_per_1000_cases']:,.0f}; agreement {row['agreement']:.1%}")
         lines += ["Paired differences in expected cost per 1,000 cases (row rule minus column rule):",
@@ -500,16 +508,18 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         raise InputError(f"{scenario.file}: two compared rules are both called {dup[0]!r}; give candidates distinct names.")
     evaluations = [evaluate(r, rl, costs, reference=optimum) for r in all_rules]
     estimator = RiskLevelEstimator.from_scenario(scenario)
+    world = outcome_world(estimator, cells, settings.outcomes) if settings.replicates else None
     statistic = ComparisonStatistic(estimator, estimator.design(cells.layout, len(cells.levels)), costs, cells.layout,
                                     [r.cell_delta for r in fixed], cells.has_arm, len(cells.arms), solvers, rl,
-                                    chosen=[optimum] + solved)
+                                    chosen=[optimum] + solved, world=rl.p if world is None else world)
     result = bootstrap(cells, statistic, settings.replicates, scenario.seed if seed is None else seed,
                        settings.resampling, settings.interval, runner=runner, workers=workers, progress=progress,
                        description="compare: bootstrap replicates",
-                       outcome_model=rl.p if settings.outcomes == "model" else None)
+                       outcome_model=world)
     notes = [r.note and f"{r.name}: {r.note}" for r in all_rules if r.note]
     if result.outcomes == "model":
-        notes.append("replicate outcomes were drawn from the estimated risk levels (model-based bootstrap), "
+        notes.append("replicate outcomes were drawn from the risk levels re-estimated with every covariate-by-level term in "
+                     "the estimator's target, so replicates can miss or keep a term as the estimate did (model-based bootstrap), "
                      "independently per outcome kind given cell and level")
     elif not result.joint_states:
         notes.append("counts-table input: outcome kinds of one case were resampled independently given cell, arm and level")

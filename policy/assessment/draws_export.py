@@ -18,6 +18,7 @@ import pandas as pd
 from policy.assessment.uncertainty import OnRiskLevels, UncertaintySettings, bootstrap, validate_settings
 from policy.estimation.draws import risk_level_draws_frame
 from policy.estimation.strata import RiskLevelEstimator
+from policy.estimation.world import outcome_world
 from policy.errors import InputError
 
 __all__ = ["bootstrap_draws_table", "decision_columns"]
@@ -86,6 +87,6 @@ def bootstrap_draws_table(scenario, replicates: int | None = None, seed: int | N
     result = bootstrap(cells, statistic, settings.replicates, scenario.seed if seed is None else seed,
                        settings.resampling, settings.interval, runner=runner, workers=workers,
                        description="draws table: bootstrap replicates",
-                       outcome_model=rl.p if settings.outcomes == "model" else None)
+                       outcome_model=outcome_world(estimator, cells, settings.outcomes))
     extra = decision_columns(cells, scenario.level_values) if decisions else None
     return risk_level_draws_frame(rl, result.replicates["p"], scenario.cell_columns, cell_values=extra)

@@ -24,6 +24,7 @@ from policy.decision.candidates import observed_delta
 from policy.decision.costs import Costs
 from policy.errors import InputError
 from policy.estimation.strata import RiskLevels
+from policy.estimation.world import outcome_world
 from policy.assessment.implied import ImpliedCosts, protected_groups, implied_interval
 from policy.assessment.sweep.axes import RatioAxis
 from policy.assessment.sweep.bands import centred_interval
@@ -89,7 +90,7 @@ def implied_bands(cells, risk_levels: RiskLevels, costs: Costs, implied: Implied
                              estimator, estimator.design(cells.layout, len(cells.levels)))
     result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
                        progress=progress, description="implied costs: bootstrap replicates",
-                       outcome_model=risk_levels.p if outcomes == "model" else None)
+                       outcome_model=outcome_world(estimator, cells, outcomes))
     shape = (n_arms, len(masks))
     lo_point = table["ratio_low"].to_numpy(dtype=np.float64).reshape(shape)
     hi_point = table["ratio_high"].to_numpy(dtype=np.float64).reshape(shape)

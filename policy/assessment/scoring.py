@@ -165,7 +165,7 @@ class ComparisonStatistic:
     def __init__(self, estimator: RiskLevelEstimator, design: np.ndarray, costs: Costs, layout: CellLayout,
                  fixed: Sequence[np.ndarray], has_arm: bool, n_arms: int,
                  solvers: Sequence[RuleSolver] = (), base: RiskLevels | None = None,
-                 chosen: Sequence[Rule] = ()):
+                 chosen: Sequence[Rule] = (), world: np.ndarray | None = None):
         self.estimator = estimator
         self.design = design
         self.costs = costs
@@ -183,6 +183,11 @@ class ComparisonStatistic:
         # replicate (the re-solved ones then only give each rule cell's stability)
         self.chosen = [np.asarray(r.cell_delta, dtype=np.float64) for r in chosen]
         self.chosen_index = [(r.index, r.n_rule_cells) for r in chosen[1:]]
+        # the bootstrap world's expected cost per case of each level and its cases per cell: the
+        # re-solved rules' cost there is what their in-sample cost estimates (policy.assessment.selection)
+        self.world = None
+        if world is not None and base is not None:
+            self.world = (costs.expected(np.asarray(world, dtype=np.float64)[None])[0], np.asarray(base.weights, dtype=np.float64))
 
     def __call__(self, batch: ResampledCounts) -> dict[str, np.ndarray]:
         p, _, _ = self.estimator.estimate_p(batch.pooled_events, batch.pooled_observed, self.design)
@@ -212,7 +217,8 @@ class ComparisonStatistic:
         arm_deltas = [observed_delta(batch.cases[:, :, a, :], self.rule_index, self.n_rule_cells)[0] for a in range(self.n_arms)]
         if self.chosen:
             out = score_rules(self.chosen + self.fixed + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
-            out.update(resolved_figures(levels, deltas[1:len(self.solvers) + 1], self.chosen_index, per_case, w, best))
+            out.update(resolved_figures(levels, deltas[1:len(self.solvers) + 1], self.chosen_index, per_case, w, best,
+                                        self.world))
         else:
             out = score_rules(deltas + arm_deltas, p, w, self.costs, self.onehot, self.attributes)
         q = np.clip(risk_level_distribution(p), 0.0, 1.0)

@@ -108,7 +108,8 @@ def stability_frame(rules: Sequence[Rule], shares: Sequence[np.ndarray], thresho
 
 
 def resolved_figures(levels: np.ndarray, solved: Sequence[np.ndarray], indices: Sequence[tuple[np.ndarray, int]],
-                     per_case: np.ndarray, weights: np.ndarray, best: np.ndarray) -> dict[str, np.ndarray]:
+                     per_case: np.ndarray, weights: np.ndarray, best: np.ndarray,
+                     world: tuple[np.ndarray, np.ndarray] | None = None) -> dict[str, np.ndarray]:
     """What the comparison keeps of the rules re-solved in a batch of replicates.
 
     Parameters
@@ -124,13 +125,17 @@ def resolved_figures(levels: np.ndarray, solved: Sequence[np.ndarray], indices: 
     weights : ndarray of shape (b, n_cells)
     best : ndarray of shape (b, n_cells, L)
         The unconstrained optimum per cell.
+    world : (per_case (n_cells, L), weights (n_cells,)), optional
+        Expected cost per case of each level, and the cases per cell, in the bootstrap world
+        (:mod:`policy.estimation.world`): the truth the replicates were drawn from.
 
     Returns
     -------
     dict
         ``optimal_level`` (b, G) int8; ``solved_share_<k>`` (b, G_k, L) float32 for each solver;
         ``resolved_cost`` (b, 1 + S): each re-solved rule's expected cost per case in its own
-        replicate (the optimum first).
+        replicate (the optimum first); with ``world``, ``resolved_world_cost`` (b, 1 + S): the same
+        rules' expected cost in the bootstrap world (:mod:`policy.assessment.selection`).
     """
     out: dict[str, np.ndarray] = {"optimal_level": np.asarray(levels, dtype=np.int8)}
     W = weights.sum(axis=-1)
@@ -138,6 +143,10 @@ def resolved_figures(levels: np.ndarray, solved: Sequence[np.ndarray], indices: 
     for k, (d, (index, n_groups)) in enumerate(zip(solved, indices)):
         out[f"solved_share_{k}"] = rule_cell_means(d, index, n_groups)
     out["resolved_cost"] = np.stack(cost, axis=1)
+    if world is not None:
+        world_case, world_w = world
+        out["resolved_world_cost"] = np.stack([np.einsum("x,bxd,xd->b", world_w, d, world_case) / world_w.sum()
+                                               for d in [best] + list(solved)], axis=1)
     return out
 
 

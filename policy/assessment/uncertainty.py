@@ -132,7 +132,7 @@ UNCERTAINTY_KEYS = (
         "'poisson' (cases get Poisson(1) weights: intervals for the population) or 'multinomial' "
         "(cases redrawn within each cell x arm: intervals given the observed case mix)"),
     Key("outcomes", (str,), False, "model",
-        "'model' (replicate outcomes drawn from the estimated risk levels: the parametric bootstrap that keeps "
+        "'model' (replicate outcomes drawn from risk levels re-estimated with every covariate-by-level term: the parametric bootstrap that keeps "
         "shrinkage estimates calibrated) or 'cases' (each case keeps its own outcomes: fully nonparametric)"),
 )
 

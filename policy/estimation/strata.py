@@ -334,7 +334,7 @@ def shrunk_rates(
     factors: Sequence[tuple[sp.csr_matrix, np.ndarray]] | None,
     prior_strength: float | str = "auto",
     zero: np.ndarray | None = None,
-    level_terms: bool = True,
+    level_terms: bool | str = True,
     translation_limit: float | None = TRANSLATION_LIMIT,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Rates per (cell, outcome, level) shrunk toward a pooled target (beta-binomial).
@@ -362,9 +362,9 @@ def shrunk_rates(
         moments per outcome kind and level.
     zero : ndarray of shape (J, L) of bool, optional
         Structural zeros: the outcome cannot occur at these levels.
-    level_terms : bool
+    level_terms : bool or 'all'
         Let the level ratios vary with the cell columns of ``factors`` where Akaike's
-        information criterion keeps the term; False: common ratios only.
+        information criterion keeps the term; False: common ratios only; 'all': every term.
     translation_limit : float or None
         D of the limited-translation rule; None: no limit.
 
@@ -385,7 +385,7 @@ def shrunk_rates(
     if zero is not None:
         theta = np.where(zero, 0.0, theta)
     if level_terms and factors:
-        theta, _ = cell_level_ratios(events, observed, factors, theta, zero)
+        theta, _ = cell_level_ratios(events, observed, factors, theta, zero, every=level_terms == "all")
     else:
         theta = np.broadcast_to(theta[..., None, :, :], events.shape)
     base = shrunk_baselines(events, observed, theta, factors)
@@ -621,7 +621,7 @@ class RiskLevelEstimator:
                  translation_limit: float | None = TRANSLATION_LIMIT):
         if translation_limit is not None and not translation_limit > 0:
             raise InputError(f"translation_limit must be a number > 0 or None; got {translation_limit!r}.")
-        self.level_terms = bool(level_terms)
+        self.level_terms = level_terms if level_terms == "all" else bool(level_terms)
         self.translation_limit = translation_limit
         self.prior_strength = prior_strength
         self.target_covariates = None if target_covariates is None else tuple(target_covariates)
@@ -630,7 +630,8 @@ class RiskLevelEstimator:
     @classmethod
     def from_scenario(cls, scenario: Scenario) -> "RiskLevelEstimator":
         zeros = {j: o.impossible_from for j, o in enumerate(scenario.outcomes) if o.impossible_from is not None}
-        return cls(scenario.estimator.prior_strength, scenario.estimator.target_covariates, zeros)
+        est = scenario.estimator
+        return cls(est.prior_strength, est.target_covariates, zeros, est.level_terms, est.translation_limit)
 
     def zero_mask(self, J: int, L: int) -> np.ndarray:
         mask = np.zeros((J, L), dtype=bool)

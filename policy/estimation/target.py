@@ -337,7 +337,7 @@ def select_level_terms(events: np.ndarray, observed: np.ndarray, factors: Sequen
 
 def cell_level_ratios(events: np.ndarray, observed: np.ndarray, factors: Sequence[tuple[sp.csr_matrix, np.ndarray]],
                       common: np.ndarray, zero: np.ndarray | None = None,
-                      several: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                      several: bool = False, every: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """Risk at each level relative to the most lenient, per cell, with the selected terms.
 
     Parameters
@@ -350,6 +350,10 @@ def cell_level_ratios(events: np.ndarray, observed: np.ndarray, factors: Sequenc
     several : bool
         Keep every term that passes and fit them jointly (:func:`fit_level_model`); default:
         the best one per outcome kind (:func:`select_level_terms`).
+    every : bool
+        Keep every term with at least one degree of freedom, without a criterion, fitted jointly
+        (the ridge :data:`RIDGE` keeps thin categories near the common ratio): the liberal model
+        of the bootstrap world (:mod:`policy.estimation.world`).
 
     Returns
     -------
@@ -361,6 +365,8 @@ def cell_level_ratios(events: np.ndarray, observed: np.ndarray, factors: Sequenc
     e = np.asarray(events, dtype=np.float64)
     n = np.asarray(observed, dtype=np.float64)
     include, _ = select_level_terms(e, n, factors, zero, several=several)
+    if every:
+        include, several = np.full(include.shape, e.shape[-1] > 1), True
     theta = np.broadcast_to(np.asarray(common)[..., None, :, :], e.shape)
     any_term = include.any(axis=-2)  # (..., J)
     if any_term.any():

@@ -190,6 +190,9 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("prior_strength", (str, float), False, "auto", "'auto' (empirical Bayes) or the beta prior's strength in cases"),
         Key("target_covariates", (list,), doc="cell columns of the log-linear baseline model sparse cells borrow from (default: every cell column)", item_type=str),
         Key("sparse_below", (int,), False, 20, "a cell with fewer cases is reported as sparse"),
+        Key("level_terms", (bool,), False, True,
+            "let each level's risk ratio vary with a cell column where Akaike's criterion keeps that term (false: one ratio per level)"),
+        Key("translation_limit", (float,), doc="keep each shrunk rate within this many standard errors of the cell's own rate (a number > 0; default: no limit)"),
     ),
 }
 
@@ -261,6 +264,8 @@ class EstimatorSettings:
     prior_strength: float | str = "auto"
     target_covariates: tuple[str, ...] | None = None
     sparse_below: int = 20
+    level_terms: bool = True
+    translation_limit: float | None = None
 
 
 @dataclass(frozen=True)
@@ -447,6 +452,9 @@ class Scenario:
         for i, level in enumerate(levels, 1):
             if level.cost_build is not None and level.cost_build.by is not None:
                 _check_cost_by(level.cost_build, cell_columns, order, f"{file}: key 'cost_by' in [[decisions]] #{i}")
+        if est["translation_limit"] is not None and not est["translation_limit"] > 0:
+            raise InputError(f"{file}: key 'translation_limit' in [estimator] must be a number > 0 (standard errors); "
+                             f"got {est['translation_limit']!r}.")
         if data.kind == "risk_level_table" and cols["arm"] is not None:
             raise InputError(f"{file}: [columns] arm has no meaning with [data] risk_level_table (no decisions are observed); remove it.")
         if data.kind == "simulate":
@@ -475,6 +483,8 @@ class Scenario:
                 prior_strength=strength,
                 target_covariates=None if est["target_covariates"] is None else tuple(est["target_covariates"]),
                 sparse_below=est["sparse_below"],
+                level_terms=est["level_terms"],
+                translation_limit=est["translation_limit"],
             ),
             path=path,
             raw=raw,

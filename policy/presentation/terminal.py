@@ -176,12 +176,15 @@ def _interval_text(value: float, lo: float, hi: float, fmt: str) -> str:
 
 
 def _comparison_table(comparison) -> Table:
+    import numpy as np
+
     frame = comparison.comparison_frame()
     keys = comparison.risk_levels.outcome_keys
     first = comparison.risk_levels.outcome_labels[0]
     table = Table(title=f"Rules compared ({comparison.result.interval_label} in brackets)")
     table.add_column("rule")
     table.add_column(f"expected cost per 1,000 cases ({comparison.costs.unit})", justify="right")
+    table.add_column("allowing for the rule's choice on these data", justify="right")
     table.add_column("regret per 1,000 cases", justify="right")
     table.add_column("same level as the optimum", justify="right")
     table.add_column(f"safe ({first}) given a harsher level", justify="right")
@@ -190,6 +193,8 @@ def _comparison_table(comparison) -> Table:
         table.add_row(
             row["rule"],
             _interval_text(row["cost_per_1000_cases"], row["cost_per_1000_cases_lower"], row["cost_per_1000_cases_upper"], ",.0f"),
+            (f"{row['cost_per_1000_cases_chosen_lower']:,.0f} to {row['cost_per_1000_cases_chosen_upper']:,.0f}"
+             if np.isfinite(row["cost_per_1000_cases_chosen_lower"]) else ""),
             _interval_text(row["regret_per_1000_cases"], row["regret_per_1000_cases_lower"], row["regret_per_1000_cases_upper"], ",.0f"),
             _interval_text(row["agreement"], row["agreement_lower"], row["agreement_upper"], ".1%"),
             _interval_text(row[f"safe_given_harsher_{keys[0]}"], row[f"safe_given_harsher_{keys[0]}_lower"],

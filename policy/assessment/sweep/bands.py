@@ -28,6 +28,7 @@ import pandas as pd
 from policy.decision.costs import Costs
 from policy.decision.solve import aggregation_matrix
 from policy.estimation.strata import RiskLevels
+from policy.estimation.world import outcome_world
 from typing import TYPE_CHECKING
 
 from policy.assessment.sweep.axes import RatioAxis, _plain_groups
@@ -238,7 +239,7 @@ def sweep_bands(cells, risk_levels: RiskLevels, costs: Costs, sweep: "OneRatioSw
                              estimator, estimator.design(cells.layout, len(cells.levels)))
     result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
                        progress=progress, description="sweep: bootstrap replicates",
-                       outcome_model=risk_levels.p if outcomes == "model" else None)
+                       outcome_model=outcome_world(estimator, cells, outcomes))
     p_lower, p_upper = result.interval("share_lenient")
     tp_lower, tp_upper = result.interval("thresholds")
     thresholds = np.clip(level_thresholds(sweep.envelope, len(sweep.level_values)), sweep.lo, sweep.hi)

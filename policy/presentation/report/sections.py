@@ -313,18 +313,22 @@ def comparison_section(results: ReportResults) -> Section:
     def iv(row, col, fmt):
         return fmt_interval(row[col], row[f"{col}_lower"], row[f"{col}_upper"], fmt)
 
+    def chosen(row):
+        lo, hi = row["cost_per_1000_cases_chosen_lower"], row["cost_per_1000_cases_chosen_upper"]
+        return f"{cost(lo)} to {cost(hi)}" if np.isfinite(lo) else ""
+
     main_rows, share_rows = [], []
     for _, row in frame.iterrows():
-        main_rows.append((row["rule"], row["kind"], iv(row, "cost_per_1000_cases", cost),
+        main_rows.append((row["rule"], row["kind"], iv(row, "cost_per_1000_cases", cost), chosen(row),
                           iv(row, "regret_per_1000_cases", cost), iv(row, "agreement", pct1)))
         share_rows.append((row["rule"],) + tuple(iv(row, f"share_{v}", pct1) for v in rl.level_values)
                           + tuple(iv(row, f"rate_{k}", pct2) for k in rl.outcome_keys))
     label = cmp.result.interval_label
     unit = cmp.costs.unit
     costs_view = TableView(f"Expected cost, regret and agreement per 1,000 cases ({unit}; {label} in brackets)",
-                           ("rule", "kind", "expected cost", "regret against the cost-minimizing rule",
-                            "same decision as the cost-minimizing rule"),
-                           tuple(main_rows), (False, False, True, True, True))
+                           ("rule", "kind", "expected cost", "expected cost allowing for the rule's choice on these data",
+                            "regret against the cost-minimizing rule", "same decision as the cost-minimizing rule"),
+                           tuple(main_rows), (False, False, True, True, True, True))
     shares_view = TableView(f"Decision shares and expected outcome rates ({label} in brackets)",
                             ("rule",) + tuple(f"share: {lab}" for lab in rl.level_labels)
                             + tuple(f"rate: {lab}" for lab in rl.outcome_labels),
