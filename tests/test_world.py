@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-import pytest
 
 import policy.estimation.target as target
 from policy.estimation.strata import RiskLevelEstimator, factor_matrices, isotonic_nonincreasing, shrunk_rates
