@@ -222,6 +222,10 @@ def test_report_on_a_table_with_draws_compares_and_bands_from_the_draws(round_tr
     assert "the risk-level table carries 40 draws" in text
     assert "from 40 draws of the risk-level table" in text
     assert "not scored (missing from a risk-level table)" in text
+    # the lenient map over the draws
+    assert "Over the table's 40 draws, the share of cases for which" in text
+    grid = pd.read_csv(tmp_path / "r" / "map_draws_grid.csv")
+    assert (grid["draws"] == 40).all() and grid["share_lenient_mean_over_draws"].between(0, 1).all()
 
 
 def test_report_on_a_table_without_draws_gives_point_figures_and_says_so(round_trip, tmp_path, capsys):

@@ -44,6 +44,8 @@ class SweepResult:
     bands: SweepBands | None = None
     #: the randomized arm's test of unconfoundedness (policy.estimation.arm_check), when the data have an arm
     arm_check: ArmCheck | None = None
+    #: the lenient map over a risk-level table's draws (policy.assessment.sweep.draws_map.DrawsMap), two ratios
+    draws_map: Any = None
 
     def __str__(self) -> str:
         text = str(self.sweep if self.sweep is not None else self.map)
@@ -54,6 +56,8 @@ class SweepResult:
             i = int(np.argmin(np.abs(b.ratios - self.sweep.axis.scenario_ratio)))
             text += (f"\nLenient share near the scenario's ratio ({b.ratios[i]:.4g}): {b.share[i]:.1%} "
                      f"({b.lower[i]:.1%} to {b.upper[i]:.1%}, {b.label}, {b.meta['replicates']} replicates, seed {b.meta['seed']}).")
+        if self.draws_map is not None:
+            text += "\n" + self.draws_map.summary()
         if "constraints" in self.settings:
             text += "\nNote: " + self.settings["constraints"] + "."
         return text
@@ -83,7 +87,8 @@ class SweepResult:
                         "note": b.note} for b in self.assumptions],
             "summary": summary.to_dict(orient="records"),
             "constrained": self._describe_constrained(),
-            "uncertainty": self.bands.meta if self.bands is not None else None,
+            "uncertainty": (self.bands.meta if self.bands is not None else
+                            self.draws_map.meta() if self.draws_map is not None else None),
             "assumptions": assumptions,
             "cautions": list(CAUTIONS),
         }
@@ -147,6 +152,9 @@ class SweepResult:
             m = self.map
             files["map_grid.csv"] = m.grid_table(table_points)
             files["map_polygons.csv"] = m.polygon_table()
+            if self.draws_map is not None:
+                files["map_draws_grid.csv"] = self.draws_map.grid_table(table_points)
+                files["map_draws_rule_cells.csv"] = self.draws_map.rule_cell_table(table_points)
         files["sweep.json"] = self.describe()
         return files
 
@@ -359,4 +367,14 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         settings["constraints"] = "the scenario's constraints are not applied to a two-ratio map (sweep one ratio for them)"
     m = lenient_map(rl, costs, axes, box, assumptions=assumptions, scale=scale)
     step("exact lenient map")
-    return SweepResult(scenario, rl, costs, None, m, assumptions, settings, arm_check=check)
+    over_draws = None
+    if cells is None and replicates != 0:  # a risk-level table: the map over its draws, if it has any
+        from policy.assessment.sweep.draws_map import draws_map
+        from policy.estimation.from_scenario import load_risk_level_draws
+
+        draws = load_risk_level_draws(scenario)
+        if draws is not None:
+            u_level = (scenario.sections.get("uncertainty").interval if scenario.sections.get("uncertainty") else 0.95)
+            over_draws = draws_map(m, rl, costs, draws.p, u_level if interval is None else interval)
+            step("the map over the table's draws")
+    return SweepResult(scenario, rl, costs, None, m, assumptions, settings, arm_check=check, draws_map=over_draws)

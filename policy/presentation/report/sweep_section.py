@@ -104,6 +104,8 @@ def sweep_section(results: ReportResults) -> Section | None:
                                  f"Lenient map of {ax[0].outcome_label} against {ax[1].outcome_label}"),
             "lines": assumption_lines(kind, res.assumptions)[:-1],
             "note": res.settings.get("constraints", ""),
+            "lenient": m.level_labels[0],
+            "draws": res.draws_map.summary() if getattr(res, "draws_map", None) is not None else "",
         }
         files.update({name: content for name, content in outputs.items()
                       if not name.endswith(".svg") and name != "sweep.json"})
