@@ -147,10 +147,10 @@ def test_cli_sweep_implied_writes_the_tables_and_one_sentence_per_arm(small_case
     assert "not what any judge intended" in " ".join(out.split())
 
 
-def test_cli_implied_needs_one_ratio(tmp_path, capsys):
+def test_cli_implied_needs_one_ratio_or_two(tmp_path, capsys):
     from .conftest import SCENARIOS
     code, out, err = run_cli(["sweep", SCENARIOS / "demo.toml", "--out", tmp_path / "o", "--ratio", "new_offense",
-                              "--ratio", "missed_court", "--implied", "--no-figures"], capsys)
+                              "--ratio", "missed_court", "--ratio", "new_violent", "--implied", "--no-figures"], capsys)
     assert code == 2 and "--implied" in err + out
     assert not (tmp_path / "o" / "implied_costs.csv").exists()
 

@@ -263,7 +263,7 @@ def sweep(
     lp_points: int = typer.Option(50, "--lp-points", help="Ratios at which the constrained optimum is re-solved (one ratio, with constraints)."),
     vary: Optional[str] = typer.Option(None, "--vary", help="Sweep a constraint's tolerance or cap too: NAME=V1,V2,... (NAME or its 1-based position)."),
     duals_only: bool = typer.Option(False, "--duals-only", help="Price each constraint by its dual value only (no re-solve without it)."),
-    implied: bool = typer.Option(False, "--implied", help="Also find the ratio under which what courts did (each arm, each protected group) comes closest to the cheapest rule (one ratio, data with cases)."),
+    implied: bool = typer.Option(False, "--implied", help="Also find the ratio (one --ratio) or the region of two ratios (two) under which what courts did (each arm, each protected group) comes closest to the cheapest rule (data with cases)."),
     replicates: Optional[int] = ReplicatesOption,
     seed: Optional[int] = SeedOption,
     resampling: Optional[str] = ResamplingOption,
@@ -299,8 +299,8 @@ def sweep(
     unknown = [f for f in formats if f not in ("png", "svg")]
     if unknown:
         raise InputError(f"--figure {unknown[0]!r} is not a figure format; expected png or svg.")
-    if implied and len(ratio) != 1:
-        raise InputError(f"--implied reads one ratio; got {len(ratio)} --ratio options.")
+    if implied and len(ratio) not in (1, 2):
+        raise InputError(f"--implied reads one ratio or two; got {len(ratio)} --ratio options.")
     with _runner(run_on, workers) as runner:
         result = sweep_scenario(
             sc, ratio, ranges=ranges, scale=scale, per=per, gammas=gamma or None,
@@ -314,12 +314,18 @@ def sweep(
         files.update(result.arm_check.output_files())
     implied_result = None
     if implied:
+        from policy.assessment.implied_region_bands import implied_region_scenario
         from policy.assessment.implied_scenario import implied_scenario
 
+        bootstrap = dict(replicates=replicates, seed=seed, resampling=resampling, interval=interval,
+                         outcomes=outcomes, workers=workers, progress=progress)
         with _runner(run_on, workers) as runner:
-            implied_result = implied_scenario(sc, ratio[0], per, outcome_costs=outcome_costs, decision_costs=decision_costs,
-                                              replicates=replicates, seed=seed, resampling=resampling, interval=interval,
-                                              outcomes=outcomes, workers=workers, runner=runner, progress=progress)
+            if len(ratio) == 1:
+                implied_result = implied_scenario(sc, ratio[0], per, outcome_costs=outcome_costs,
+                                                  decision_costs=decision_costs, runner=runner, **bootstrap)
+            else:
+                implied_result = implied_region_scenario(sc, ratio, ranges, per, outcome_costs=outcome_costs,
+                                                         decision_costs=decision_costs, runner=runner, **bootstrap)
         files.update(implied_result.output_files())
     drawn = [name for name, content in files.items() if callable(content)]
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
