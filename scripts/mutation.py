@@ -49,7 +49,7 @@ MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "costs": ("policy/decision/costs.py", ("tests/test_solve.py",)),
     "bounds": ("policy/estimation/bounds.py", ("tests/test_bounds.py",)),
     "evaluate": ("policy/decision/evaluate.py", ("tests/test_evaluate.py",)),
-    "strata": ("policy/estimation/strata.py", ("tests/test_strata.py", "tests/test_risk_level_tables.py")),
+    "strata": ("policy/estimation/strata.py", ("tests/test_strata.py", "tests/test_strata_edges.py", "tests/test_risk_level_tables.py")),
     "constraints": ("policy/decision/constraints.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
     "envelope": ("policy/assessment/sweep/envelope.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
     "one_ratio": ("policy/assessment/sweep/one_ratio.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
