@@ -326,3 +326,56 @@ def test_summary_gives_paired_intervals_shares_cheaper_and_stability_from_the_re
     none = ReportResults(analysis, tuple(compared_rules(compare(analysis.scenario, replicates=0))),
                          comparison=compare(analysis.scenario, replicates=0))
     assert paired_with_recommended(none) == {} and stability(none) is None and certainty_sentence(none) == ""
+
+
+def test_every_sweep_figure_has_a_table_agreeing_with_a_direct_solve():
+    """The figures' text tables, checked against the solver run afresh at single costs (not the
+    sweep's envelope): the optimal rule's shares in the middle of each piece, each rule's regret at
+    the curves' knots, and the map's lenient share at its grid points."""
+    from policy import costs_from_scenario, evaluate, optimal_rule
+    from policy.assessment.sweep import sweep_scenario
+    from policy.presentation.report.figure_tables import map_table, regret_table, robust_table, shares_table
+    from policy.presentation.report.formatting import fmt_num, fmt_pct
+
+    analysis = analyze(ROOT / "scenarios" / "demo.toml")
+    sc, rl = analysis.scenario, analysis.risk_levels
+    rules = {r.name: r for r in [analysis.rule]}
+
+    def solve(costs: dict):
+        c = costs_from_scenario(sc, rl, costs)
+        rule = optimal_rule(rl, c)
+        return rule, evaluate(rule, rl, c), c
+
+    res = sweep_scenario(sc, ["new_offense"], rules=list(rules.values()), replicates=4)
+    s = res.sweep
+    axis = s.axis
+    shares = shares_table(res, axis.unit)
+    assert shares.columns[-1].endswith("over the piece") and len(shares.rows) >= 2
+    for row in shares.rows:
+        a, b = (float(v.replace(",", "")) for v in row[0].split(" to "))
+        _, ev, _ = solve({"new_offense": 0.5 * (a + b) * axis.reference_cost})
+        assert list(row[2:2 + rl.n_levels]) == [fmt_pct(v) for v in ev.level_shares], row
+    lines = robust_table(res)
+    assert [r[0] for r in lines.rows] == [info.label for info in s.robust]
+    regret = regret_table(res, axis.unit)
+    assert any("the scenario's" in h for h in regret.columns)
+    for name, *cells in regret.rows:
+        for head, text in zip(regret.columns[1:], cells):
+            ratio = float(head.split()[1].rstrip(",")) if "the scenario's" not in head else axis.scenario_ratio
+            cost = ratio * axis.reference_cost if "the scenario's" not in head else float(analysis.costs.outcome[axis.outcome_index])
+            best, ev, c = solve({"new_offense": cost})
+            held = evaluate(rules[name], rl, c, reference=best)
+            # the column's ratio is printed to 3 digits: allow the regret's change over that rounding
+            slope = abs(float(s.regret[name](ratio + 5e-4)) - float(s.regret[name](ratio - 5e-4)))
+            assert abs(float(text.replace(",", "")) - 1000 * held.regret_per_case) <= 0.5 + 1000 * slope, (name, head, text)
+    # the map's left panel: each grid point's lenient share equals a solve at those two costs
+    both = sweep_scenario(sc, ["missed_court", "new_offense"])
+    grid = map_table(both, points=3)
+    ax = both.map.axes
+    x, y = both.map.grid_axes(3)
+    for i, row in enumerate(grid.rows):
+        yi = y[len(y) - 1 - i]
+        for j, text in enumerate(row[1:]):
+            _, ev, _ = solve({"missed_court": x[j] * ax[0].reference_cost, "new_offense": yi * ax[1].reference_cost})
+            assert text == fmt_pct(ev.level_shares[0]), (i, j, text, ev.level_shares[0])
+    assert row[0].startswith(fmt_num(y[0], 3))

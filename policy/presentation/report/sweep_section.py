@@ -6,6 +6,7 @@ from __future__ import annotations
 from typing import Callable
 
 
+from policy.presentation.report.figure_tables import map_table, regret_table, robust_table, shares_table
 from policy.presentation.report.formatting import TableView, fmt_num, fmt_pct, inline_svg
 from policy.presentation.report.model import ReportResults, Section
 from policy.presentation.report.summary import summary_section
@@ -68,16 +69,10 @@ def sweep_section(results: ReportResults) -> Section | None:
                 rename={"ratio": "grid ratio nearest the scenario's", "price_per_1000_there": "price there",
                         "lowest_price_per_1000": "lowest price", "highest_price_per_1000": "highest price",
                         "infeasible_points": "ratios where the constraints cannot all hold"})
-        # the regret figure as text: each rule's exact regret at the range's ends and the scenario's ratio
-        points = [(f"ratio {fmt_num(sw.lo, 2)}", sw.lo), (f"scenario's ratio {fmt_num(axis.scenario_ratio, 2)}", axis.scenario_ratio),
-                  (f"ratio {fmt_num(sw.hi, 2)}", sw.hi)]
-        regret_rows = tuple((name,) + tuple(fmt_num(1000.0 * float(f(r))) for _, r in points) for name, f in sw.regret.items())
-        regret_view = TableView(f"The regret figure as a table: each rule's regret per 1,000 cases ({axis.unit}) as the "
-                                f"{axis.outcome_label} cost varies (exact; every knot in sweep_{axis.outcome}_regret.csv)",
-                                ("rule",) + tuple(label for label, _ in points), regret_rows,
-                                (False,) + (True,) * len(points))
+        # every figure as a table (for screen readers and print)
+        tables = [shares_table(res, axis.unit), robust_table(res), regret_table(res, axis.unit)]
         blocks.append({
-            "regret": regret_view,
+            "figure_tables": [t for t in tables if t is not None],
             "title": f"Cost of one {axis.outcome_label}, as a ratio to the mean cost of {axis.reference_label}",
             "definition": axis.describe()["definition"],
             "scenario_ratio": fmt_num(axis.scenario_ratio, 3),
@@ -100,6 +95,7 @@ def sweep_section(results: ReportResults) -> Section | None:
             "summary": TableView.from_frame(summary, "Share of cases for which leniency is optimal at the scenario's "
                                             "ratios, under each assumption",
                                             {c: fmt_pct for c in summary.columns if c != "assumption"}),
+            "grid": map_table(res),
             "figure": inline_svg(outputs["map_lenient.svg"], "map",
                                  f"Lenient map of {ax[0].outcome_label} against {ax[1].outcome_label}"),
             "lines": assumption_lines(kind, res.assumptions)[:-1],
