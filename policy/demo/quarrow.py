@@ -23,7 +23,7 @@ from scipy.special import expit
 from policy.inputs.cells import CellLayout
 from policy.estimation.strata import RiskLevels
 
-__all__ = ["simulate_cases", "true_risk_levels", "true_arm_rates", "DEMO", "CONFOUNDED", "builtin_scenarios", "demo_scenario_path"]
+__all__ = ["simulate_cases", "true_risk_levels", "true_arm_rates", "true_group_rates", "DEMO", "CONFOUNDED", "builtin_scenarios", "demo_scenario_path"]
 
 LEVELS = ("recognizance", "supervision", "bond")
 OUTCOMES = ("missed_court", "new_offense", "new_violent")
@@ -313,6 +313,34 @@ def true_arm_rates(model: DemoModel = DEMO) -> tuple[pd.DataFrame, np.ndarray, n
     both = _cell_sum(pos, mass[:, :, None, :] * e["p"][:, None, :, :])  # (cells, arm, J, L)
     at = _cell_sum(pos, mass)  # (cells, arm, L)
     return e["frame"], both / at[:, :, None, :], at / w[:, None, None]
+
+
+def true_group_rates(model: DemoModel = DEMO) -> tuple[pd.DataFrame, np.ndarray, np.ndarray]:
+    """The exact rate of every potential outcome among the cases given each decision, per cell and arm.
+
+    Returns
+    -------
+    cells : DataFrame
+        As :func:`true_arm_rates`.
+    rates : ndarray of shape (n_cells, 2 arms, 3 outcome kinds, 3 levels d, 3 levels z)
+        P(Y_j(d) = 1 | D = z, x, arm): the rate the cases given level z would have had at level d
+        (z = d is the observed rate of :func:`true_arm_rates`).
+    gamma : float
+        The sensitivity model's Gamma that the simulator satisfies exactly within each arm: the
+        largest odds ratio of Y_j(d) between two groups given different levels, over cells, arms,
+        outcome kinds and levels (groups of positive probability only).
+    """
+    e = _enumerate(model)
+    prob, pos = e["prob"], e["pos"]
+    mass = prob[:, None, None] * e["court"]  # (combos, arm, z)
+    both = _cell_sum(pos, mass[:, :, None, None, :] * e["p"][:, None, :, :, None])  # (cells, arm, J, d, z)
+    at = _cell_sum(pos, mass)  # (cells, arm, z)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rates = both / at[:, :, None, None, :]
+        odds = np.log(rates / (1.0 - rates))
+    odds = np.where(at[:, :, None, None, :] > 1e-12, odds, np.nan)
+    spread = np.nanmax(odds, axis=-1) - np.nanmin(odds, axis=-1)
+    return e["frame"], rates, float(np.exp(np.nanmax(spread)))
 
 
 def builtin_scenarios() -> Path:

@@ -41,8 +41,12 @@ chi-square with one degree of freedom per level under that hypothesis; T(1) is Q
 is the smallest Gamma at which T(Gamma) no longer exceeds the critical value the test uses (the
 largest such value over outcome kinds). It is 1 exactly when the test does not reject, and
 every Gamma below it is contradicted by the data at the test's level: a lower confidence bound
-on the confounding present (or a sign that the exclusion restriction fails). The bound uses the
-odds-ratio consequence of the model only, so it is conservative.
+on the confounding present (or a sign that the exclusion restriction fails). By default the
+strata's odds ratios are not Gamma^2 and Gamma^-2 but those at which the two arms' sensitivity
+intervals of p_jd(x) just meet (:func:`overlap_odds_ratios`): a share pi_zd(x) of arm z's cases
+was given d, so p_jd(x) is pi r + (1 - pi) x (a rate within Gamma's odds of r), a narrower
+interval than the odds alone give, and a larger (sharper) Gamma_low; :func:`overlap_gamma` gives
+the same figure for exact rates.
 
 References
 ----------
@@ -65,9 +69,11 @@ import pandas as pd
 from scipy import stats
 
 from policy.errors import InputError
+from policy.estimation.bounds import odds_shift
 from policy.inputs.cells import CellTable
 
-__all__ = ["ArmCheck", "arm_check", "cmh_by_level", "discrepancy_at", "gamma_lower_bound"]
+__all__ = ["ArmCheck", "arm_check", "cmh_by_level", "discrepancy_at", "gamma_lower_bound", "overlap_gamma",
+           "overlap_odds_ratios"]
 
 #: the largest Gamma searched; a stratum needing more is reported as infinite
 GAMMA_CEILING = 1e6
@@ -132,15 +138,116 @@ def _z_at(events: np.ndarray, observed: np.ndarray, used: np.ndarray, odds_ratio
     mean = np.zeros_like(a)
     var = np.zeros_like(a)
     if ok.any():
+        psi = np.broadcast_to(np.asarray(odds_ratio, dtype=np.float64), a.shape)[ok]
         mu, v = stats.nchypergeom_fisher.stats(N[ok].astype(np.int64), n1[ok].astype(np.int64),
-                                               m[ok].astype(np.int64), odds_ratio, moments="mv")
+                                               m[ok].astype(np.int64), psi, moments="mv")
         mean[ok], var[ok] = mu, v
     total_var = var.sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(total_var > 0, np.where(ok, a - mean, 0.0).sum(axis=0) / np.sqrt(total_var), np.nan)
 
 
-def discrepancy_at(events: np.ndarray, observed: np.ndarray, gamma: float) -> tuple[float, int]:
+def _invert(p: np.ndarray, pi: np.ndarray, k: float) -> np.ndarray:
+    """The rate r with pi r + (1 - pi) S_k(r) = p, S_k(r) the probability whose odds are k times
+    r's: the root in [0, 1] of pi (k - 1) r^2 + (pi + (1 - pi) k - p (k - 1)) r - p = 0."""
+    a = pi * (k - 1.0)
+    b = pi + (1.0 - pi) * k - p * (k - 1.0)
+    root = np.sqrt(np.maximum(b * b + 4.0 * a * p, 0.0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = np.where(b + root > 0, 2.0 * p / (b + root), 1.0)
+    return np.clip(r, 0.0, 1.0)
+
+
+def _arm_interval(r: np.ndarray, pi: np.ndarray, gamma: float) -> tuple[np.ndarray, np.ndarray]:
+    """The sensitivity interval of p_d(x) from one arm: pi r + (1 - pi) [S_{1/Gamma}(r), S_Gamma(r)],
+    r the arm's rate at (x, d) and pi its share of cases given d (the levels' monotone links left
+    out, so the interval is an outer one)."""
+    lo = pi * r + (1.0 - pi) * odds_shift(r, 1.0 / gamma)
+    hi = pi * r + (1.0 - pi) * odds_shift(r, gamma)
+    return lo, hi
+
+
+def overlap_odds_ratios(events: np.ndarray, observed: np.ndarray, shares: np.ndarray,
+                        gamma: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per stratum, the largest and smallest odds ratio (shown against not shown) of two arm rates
+    whose sensitivity intervals at ``gamma`` still meet, at the stratum's own margin.
+
+    Parameters
+    ----------
+    events, observed : ndarray of shape (n_cells, 2, L)
+    shares : ndarray of shape (n_cells, 2, L)
+        Each arm's share of the cell's cases given each level.
+    gamma : float
+
+    Returns
+    -------
+    upper, lower : ndarray of shape (n_cells, L)
+        At the upper end, arm 1's interval starts where arm 0's ends (a common p with
+        p = pi_1 r_1 + (1 - pi_1) S_{1/Gamma}(r_1) = pi_0 r_0 + (1 - pi_0) S_Gamma(r_0)), the pair
+        chosen so that n_0 r_0 + n_1 r_1 equals the stratum's events; the lower end likewise with
+        the arms' roles swapped. With no share at d (pi = 0) they are Gamma^2 and Gamma^-2.
+    """
+    n = np.asarray(observed, dtype=np.float64)
+    m = np.asarray(events, dtype=np.float64).sum(axis=1)
+    pi0, pi1 = shares[:, 0], shares[:, 1]
+
+    def ends(k1: float, k0: float) -> np.ndarray:
+        lo, hi = np.zeros_like(m), np.ones_like(m)
+        for _ in range(45):   # the pair's events grow with the common p: bisection
+            p = 0.5 * (lo + hi)
+            r1, r0 = _invert(p, pi1, k1), _invert(p, pi0, k0)
+            low = n[:, 0] * r0 + n[:, 1] * r1 < m
+            lo, hi = np.where(low, p, lo), np.where(low, hi, p)
+        p = 0.5 * (lo + hi)
+        r1, r0 = _invert(p, pi1, k1), _invert(p, pi0, k0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return (r1 / (1 - r1)) / (r0 / (1 - r0))
+
+    up = ends(1.0 / gamma, gamma)
+    down = ends(gamma, 1.0 / gamma)
+    # in [1, Gamma^2] and [Gamma^-2, 1] (rounding aside), and exactly 1 within 1e-9 of it
+    up = np.clip(np.where(np.isfinite(up), up, gamma ** 2), 1.0, gamma ** 2)
+    down = np.clip(np.where(np.isfinite(down) & (down > 0), down, gamma ** -2), gamma ** -2, 1.0)
+    up = np.where(up < 1 + 1e-9, 1.0, up)
+    down = np.where(down > 1 - 1e-9, 1.0, down)
+    return up, down
+
+
+def overlap_gamma(rates: np.ndarray, shares: np.ndarray, tol: float = 1e-6) -> float:
+    """The smallest Gamma at which, in every cell x outcome kind x decision level, the two arms'
+    sensitivity intervals of p_jd(x) meet (exact rates: a population figure, not a test).
+
+    Parameters
+    ----------
+    rates : ndarray of shape (n_cells, 2, J, L)
+        Each arm's outcome rate at (x, j, d) (NaN where an arm has no case at d).
+    shares : ndarray of shape (n_cells, 2, L)
+        Each arm's share of the cell's cases given each level.
+    """
+    r = np.asarray(rates, dtype=np.float64)
+    pi = np.broadcast_to(np.asarray(shares, dtype=np.float64)[:, :, None, :], r.shape)
+    use = np.isfinite(r).all(axis=1) & (pi > 0).all(axis=1)
+    r0, r1 = r[:, 0][use], r[:, 1][use]
+    p0, p1 = pi[:, 0][use], pi[:, 1][use]
+
+    def meets(g: float) -> bool:
+        lo0, hi0 = _arm_interval(r0, p0, g)
+        lo1, hi1 = _arm_interval(r1, p1, g)
+        return bool(((lo1 <= hi0 + 1e-12) & (lo0 <= hi1 + 1e-12)).all())
+
+    if meets(1.0):
+        return 1.0
+    lo, hi = 0.0, np.log(GAMMA_CEILING)
+    if not meets(GAMMA_CEILING):
+        return float("inf")
+    while hi - lo > tol:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (lo, mid) if meets(np.exp(mid)) else (mid, hi)
+    return float(np.exp(hi))
+
+
+def discrepancy_at(events: np.ndarray, observed: np.ndarray, gamma: float,
+                   shares: np.ndarray | None = None) -> tuple[float, int]:
     """The arm discrepancy left over at sensitivity value ``gamma``, for one outcome kind.
 
     Parameters
@@ -149,28 +256,36 @@ def discrepancy_at(events: np.ndarray, observed: np.ndarray, gamma: float) -> tu
         Arm axis (not shown, shown).
     gamma : float
         Gamma >= 1.
+    shares : ndarray of shape (n_cells, 2, L), optional
+        Each arm's share of the cell's cases given each level: the strata's odds ratios are then
+        those at which the arms' sensitivity intervals just meet (:func:`overlap_odds_ratios`),
+        at most Gamma^2; without them, Gamma^2 and Gamma^-2 throughout.
 
     Returns
     -------
     statistic : float
-        T(Gamma) = sum over levels of max(Z_d(Gamma^2), -Z_d(Gamma^-2), 0)^2, where Z_d(psi) is
-        the standardized excess of events where the aid was shown over their expectation with
-        every stratum's odds ratio at psi. T(1) is the sum of the levels' Cochran-Mantel-Haenszel
-        statistics; T falls as Gamma grows.
+        T(Gamma) = sum over levels of max(Z_d(psi+), -Z_d(psi-), 0)^2, where Z_d(psi) is the
+        standardized excess of events where the aid was shown over their expectation with each
+        stratum's odds ratio at psi (psi+ = Gamma^2, psi- = Gamma^-2 without shares). T(1) is
+        the sum of the levels' Cochran-Mantel-Haenszel statistics; T falls as Gamma grows.
     df : int
         Levels with information (the chi-square degrees of freedom bounding T under the
         hypothesis that every stratum's odds ratio lies in [Gamma^-2, Gamma^2]).
     """
     observed = np.asarray(observed)
     used = (observed[:, 0] > 0) & (observed[:, 1] > 0)
-    up = _z_at(events, observed, used, gamma ** 2)
-    down = _z_at(events, observed, used, gamma ** -2)
+    if shares is None or gamma == 1:
+        psi_up, psi_down = gamma ** 2, gamma ** -2
+    else:
+        psi_up, psi_down = overlap_odds_ratios(events, observed, np.asarray(shares, dtype=np.float64), gamma)
+    up = _z_at(events, observed, used, psi_up)
+    down = _z_at(events, observed, used, psi_down)
     informative = np.isfinite(up)
     excess = np.maximum(np.maximum(np.where(informative, up, 0.0), np.where(informative, -down, 0.0)), 0.0)
     return float(np.sum(excess ** 2)), int(informative.sum())
 
 
-def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3) -> dict[str, Any]:
+def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3, overlap: bool = True) -> dict[str, Any]:
     """The smallest Gamma that reconciles the two arms, from below with confidence 1 - alpha.
 
     Parameters
@@ -181,6 +296,10 @@ def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3) 
         Level; Bonferroni over the outcome kinds with information, as the test's verdict.
     tol : float
         Precision of the search on log Gamma.
+    overlap : bool
+        Test that the arms' sensitivity intervals meet (default; :func:`overlap_odds_ratios`),
+        which uses each arm's decision shares; false: only the odds-ratio consequence
+        [Gamma^-2, Gamma^2], a weaker bound.
 
     Returns
     -------
@@ -198,11 +317,17 @@ def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3) 
     (x, d) lies in [Gamma^-2, Gamma^2]. T(Gamma) tests that consequence (the one-sided
     statistics at the ends of the interval are the least favourable points, as in Rosenbaum's
     sensitivity analysis of stratified 2 x 2 tables), so every Gamma it rejects is contradicted
-    by the data. The sharper intervals of :mod:`policy.estimation.bounds` would reject more:
-    the value found is conservative.
+    by the data. With ``overlap`` the intervals are sharper still: p_d(x) is the arm's share
+    pi given d times its rate plus the rest within Gamma's odds, so the two arms' rates may differ
+    by an odds ratio psi+_x(Gamma) <= Gamma^2 only (:func:`overlap_odds_ratios`, at the stratum's
+    margin), and T(Gamma) uses those. The links between levels are left out, so the value found
+    is still conservative.
     """
     _require_arm(cells)
     J = len(cells.outcomes)
+    cases = np.asarray(cells.cases, dtype=np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = np.nan_to_num(cases / cases.sum(axis=2, keepdims=True)) if overlap else None
     at_one = [discrepancy_at(cells.events[:, :, j, :], cells.observed[:, :, j, :], 1.0) for j in range(J)]
     tested = [j for j in range(J) if at_one[j][1] > 0]
     per_outcome = {key: 1.0 for key in cells.outcomes}
@@ -214,7 +339,7 @@ def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3) 
         ev, obs = cells.events[:, :, j, :], cells.observed[:, :, j, :]
 
         def rejected(g):
-            return discrepancy_at(ev, obs, g)[0] > crit
+            return discrepancy_at(ev, obs, g, shares)[0] > crit
 
         if rejected(GAMMA_CEILING):
             per_outcome[cells.outcomes[j]] = np.inf
@@ -368,8 +493,8 @@ class ArmCheck:
             "gamma_lower_by_outcome": self.gamma_by_outcome,
             "gamma_confidence": 1 - self.alpha,
             "gamma_definition": ("smallest sensitivity value Gamma at which the data no longer reject (at the test's "
-                                 "level) that in every cell x decision level the odds ratio of the outcome between the "
-                                 "arms lies in [1/Gamma^2, Gamma^2], as the sensitivity model with that Gamma implies: "
+                                 "level) that in every cell x decision level the two arms' sensitivity intervals of "
+                                 "the outcome probability meet, as the sensitivity model with that Gamma implies: "
                                  "a lower confidence bound on the confounding present (docs/method.md)"),
             "assumes": ["the aid was shown or withheld at random",
                         "missing outcome records are missing at random given cell, arm and decision level"],
