@@ -42,7 +42,8 @@ Chinneck, J. W. (2008). Feasibility and Infeasibility in Optimization. Springer.
 programs for explaining infeasibility.)
 
 Modules: ``settings`` (the ``[linear_program]`` section), ``program`` (the LP's rows and
-columns built once), ``highs`` (the HiGHS driver: warm starts, most-lenient optimum), ``cvxpy_route``
+columns built once), ``highs`` (the HiGHS driver: warm starts, most-lenient optimum), ``cumulative`` (the same LP
+in cumulative variables P(D >= t | g), loaded from 1,000 rule cells on), ``cvxpy_route``
 (the same LP through cvxpy), ``problem`` (:class:`ConstrainedProblem`: re-solves and prices),
 ``elastic`` (which constraints conflict when infeasible), ``result`` (:class:`ConstrainedRule`).
 """

@@ -111,7 +111,7 @@ def dual_degenerate(c: np.ndarray, reduced: np.ndarray, row_dual: np.ndarray) ->
     return zeros > len(row_dual)
 
 
-def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
+def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi, scale=None, offset: float = 0.0):
     """The most lenient of the optimal rules: minimize harshness over the optimal face of a loaded model.
 
     With the optimal dual (y, reduced costs) fixed, a feasible point is optimal exactly when it
@@ -120,6 +120,10 @@ def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
     (complementary slackness). Those are fixed; the rest is free to move toward leniency.
     Reduced costs and duals within 1e-9 of the largest cost count as zero, the tie tolerance of
     the unconstrained rule. The model is restored afterwards (bounds, costs, basis).
+
+    ``scale`` (default ``c``): the costs whose largest sets the tie tolerance and the optimum's
+    relative tolerance (the costs in delta when the model is loaded in other variables); ``offset``:
+    the objective's constant dropped by such a change of variables.
 
     Returns
     -------
@@ -130,7 +134,8 @@ def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
     basis = h.getBasis()
     n = len(c)
     cols = np.arange(n, dtype=np.int32)
-    tol = 1e-9 * max(float(np.abs(c).max()), 1e-12)
+    scale = c if scale is None else scale
+    tol = 1e-9 * max(float(np.abs(scale).max()), 1e-12)
     at_zero = np.flatnonzero(reduced > tol).astype(np.int32)
     at_upper = np.flatnonzero((reduced < -tol) & np.isfinite(col_hi)).astype(np.int32)
     rows = np.flatnonzero(np.abs(y) > tol).astype(np.int32)
@@ -145,8 +150,8 @@ def most_lenient(h, A: sp.csr_matrix, c, x, y, reduced, lo, hi, harsh, col_hi):
     x2 = None
     if status == "kOptimal":
         candidate = np.asarray(h.getSolution().col_value)
-        optimum = float((c * x).sum())
-        if float((c * candidate).sum()) <= optimum + 1e-9 * max(1.0, abs(optimum)):
+        optimum = float((c * x).sum()) + offset
+        if float((c * candidate).sum()) + offset <= optimum + 1e-9 * max(1.0, abs(optimum)):
             x2 = candidate
     changed = np.concatenate([at_zero, at_upper])
     h.changeColsBounds(len(changed), changed, np.zeros(len(changed)), col_hi[changed])
@@ -193,7 +198,10 @@ class _HighsDriver:
 
     With method ``auto`` a first solve (a new model without a basis) starts the dual simplex
     from :func:`unconstrained_basis`; the start depends only on the LP, so the result is the
-    same bits in any process.
+    same bits in any process. From :data:`~policy.decision.constrained.cumulative.CUMULATIVE_FROM_RULE_CELLS`
+    rule cells on (method ``auto``), the model is loaded in cumulative variables
+    (:mod:`policy.decision.constrained.cumulative`) and the dual simplex starts from HiGHS's own
+    slack basis, which is dual feasible there; points, duals and the lenient pass are mapped back to decision probabilities.
     """
 
     def __init__(self, settings: LPSettings):
@@ -202,34 +210,58 @@ class _HighsDriver:
         self.best_basis = None
         self.shape = None
         self.fresh = True
+        self.cum = None
 
     def _load(self, data: _LPData, c, lo, hi) -> None:
-        basis = self.h.getBasis() if self.h is not None and self.shape == data.A.shape else None
+        from policy.decision.constrained import cumulative
+
+        if self.settings.method == "auto" and data.n_levels >= 2 and data.n_groups >= cumulative.CUMULATIVE_FROM_RULE_CELLS:
+            # the rows depend on the risk levels: rebuilt on every load (vectorized)
+            self.cum = cumulative.cumulative_lp(data)
+        else:
+            self.cum = None
+        A = data.A if self.cum is None else self.cum.A
+        basis = self.h.getBasis() if self.h is not None and self.shape == A.shape else None
         h = new_highs()
         if self.settings.time_limit is not None:
             h.setOptionValue("time_limit", float(self.settings.time_limit))
-        n = data.n_cols
-        load_lp(h, c, data.A, lo, hi, np.zeros(n), np.ones(n))
+        if self.cum is not None:
+            h.setOptionValue("presolve", "off")  # a warm start skips it anyway; cold it only costs time here
+        c, lo, hi = self._model_arrays(data, c, lo, hi)
+        n = A.shape[1]
+        load_lp(h, c, A, lo, hi, np.zeros(n), np.ones(n))
         self.fresh = basis is None or not basis.valid
         if not self.fresh:
             h.setBasis(basis)
-        self.h, self.shape = h, data.A.shape
+        self.h, self.shape = h, A.shape
         self.cols = np.arange(n, dtype=np.int32)
-        self.rows = np.arange(data.n_groups, data.A.shape[0], dtype=np.int32)
+        first = data.n_groups if self.cum is None else self.cum.n_mono
+        self.rows = np.arange(first, A.shape[0], dtype=np.int32)
+
+    def _model_arrays(self, data: _LPData, c, lo, hi):
+        """Objective and row bounds of the loaded model (in cumulative variables when it is in them)."""
+        if self.cum is None:
+            return c, lo, hi
+        return (self.cum.objective(c), *self.cum.row_bounds(lo, hi))
 
     def solve(self, data: _LPData, c, lo, hi, dirty, lenient: bool):
         if self.h is None or dirty["model"]:
             self._load(data, c, lo, hi)
-        else:
+        mc, mlo, mhi = self._model_arrays(data, c, lo, hi)
+        if not dirty["model"]:
             if dirty["cost"]:
-                self.h.changeColsCost(len(self.cols), self.cols, c)
+                self.h.changeColsCost(len(self.cols), self.cols, mc)
             if dirty["bounds"] and len(self.rows):
-                G = data.n_groups
-                self.h.changeRowsBounds(len(self.rows), self.rows, lo[G:], hi[G:])
+                first = int(self.rows[0])
+                self.h.changeRowsBounds(len(self.rows), self.rows, mlo[first:], mhi[first:])
         warm = not self.fresh and self.h.getBasis().valid
         self.fresh = False
         if not warm and self.settings.method == "auto":
-            self.h.setBasis(unconstrained_basis(c, data.n_groups, data.n_levels, data.A.shape[0]))
+            if self.cum is None:
+                self.h.setBasis(unconstrained_basis(c, data.n_groups, data.n_levels, data.A.shape[0]))
+            # in cumulative variables HiGHS's own start (slack basis, every boxed column at the
+            # bound its cost prefers) is dual feasible, and its long-step ratio test flips many
+            # boxed columns per pivot: a handful of pivots (cumulative.py)
             warm = True
         status, seconds = _highs_run(self.h, "simplex" if warm else self.settings.first_method(data.n_cols))
         iterations = _highs_iterations(self.h)
@@ -238,18 +270,26 @@ class _HighsDriver:
         sol = self.h.getSolution()
         x = np.asarray(sol.col_value)
         y = np.asarray(sol.row_dual)
-        cumulative = np.concatenate([[0.0], np.cumsum(np.abs(y))])
+        full_y = y if self.cum is None else self.cum.constraint_duals(y)
+        cumulative = np.concatenate([[0.0], np.cumsum(np.abs(full_y))])
         block_duals = cumulative[data.offsets[1:]] - cumulative[data.offsets[:-1]]
         lenient_pass = False
+        A, At = (data.A, data.At) if self.cum is None else (self.cum.A, self.cum.At)
         # HiGHS's reduced costs are c - A'y; computing them costs less than converting its list
-        reduced = c - data.At @ y if lenient else None
+        reduced = mc - At @ y if lenient else None
+        # the tie tolerance is relative to the costs in delta, whichever variables are loaded
         if lenient and dual_degenerate(c, reduced, y):
-            x2, extra_seconds, extra_iter = most_lenient(self.h, data.A, c, x, y, reduced, lo, hi,
-                                                         _harshness(data.group_share, data.n_levels), np.ones(data.n_cols))
+            harsh = _harshness(data.group_share, data.n_levels)
+            x2, extra_seconds, extra_iter = most_lenient(self.h, A, mc, x, y, reduced, mlo, mhi,
+                                                         harsh if self.cum is None else self.cum.objective(harsh),
+                                                         np.ones(A.shape[1]), scale=c,
+                                                         offset=0.0 if self.cum is None else float(c[::data.n_levels].sum()))
             seconds += extra_seconds
             iterations += extra_iter
             if x2 is not None:
                 x, lenient_pass = x2, True
+        if self.cum is not None:
+            x = self.cum.to_delta(x)
         self.best_basis = self.h.getBasis()
         return status, x, block_duals, iterations, seconds, lenient_pass
 
