@@ -55,6 +55,7 @@ def test_demo_writes_data_scenario_and_outputs(tmp_path, capsys):
     code, _, _ = run_cli(["demo", "--out", tmp_path / "twice", "--cases", "4000"], capsys)
     assert (tmp_path / "twice" / "cases.csv").read_bytes() == (tmp_path / "cases.csv").read_bytes()
     assert (tmp_path / "twice" / "rule.csv").read_bytes() == (tmp_path / "rule.csv").read_bytes()
+    assert (tmp_path / "twice" / "risk_level_draws.csv").read_bytes() == (tmp_path / "risk_level_draws.csv").read_bytes()
 
 
 def test_estimate_outputs_round_trip_as_a_risk_level_table(tmp_path, capsys, small_case_table):

@@ -315,3 +315,21 @@ def test_bad_rule_columns_are_refused_naming_the_column_and_value(round_trip):
     t.loc[:, "decision_share_bond"] = 0.2
     t.loc[7, "decision_share_bond"] = 1.5
     bad(t, r"column 'decision_share_bond' must hold a share in \[0, 1\]; got 1.5 \(row 8\)")
+
+
+def test_the_demo_writes_a_table_of_draws_that_compare_reads(tmp_path, capsys):
+    # The route from the README: the demo's own risk levels with 20 replicates as draws, read back
+    # as risk levels estimated elsewhere, give the demo's rule and every kind of compared rule.
+    code, _, err = run_cli(["demo", "--out", tmp_path / "d", "--cases", "4000"], capsys)
+    assert code == 0, err
+    scenario = load_scenario(tmp_path / "d" / "from_draws.toml")
+    assert scenario.data.kind == "risk_level_table" and "draws" in scenario.title
+    code, out, err = run_cli(["compare", tmp_path / "d" / "from_draws.toml", "--out", tmp_path / "c"], capsys)
+    assert code == 0, err
+    frame = pd.read_csv(tmp_path / "c" / "comparison.csv")
+    assert set(frame["kind"]) == {"optimal", "aid", "candidate", "observed"} and (frame["replicates"] == 20).all()
+    code, _, err = run_cli(["solve", tmp_path / "d" / "from_draws.toml", "--out", tmp_path / "s"], capsys)
+    assert code == 0, err
+    rule = pd.read_csv(tmp_path / "s" / "rule.csv")
+    demo_rule = pd.read_csv(tmp_path / "d" / "rule.csv")
+    assert list(rule["level"]) == list(demo_rule["level"])

@@ -68,9 +68,12 @@ def demo(out: Path = OutOption,
         simulated_cases(cases, "--cases")
     claim(out)
     analysis, files = demo_files(out, cases)
-    paths = write_outputs(out, files, overwrite=overwrite, keep=("cases.csv", "scenario.toml"), command="demo")
+    paths = write_outputs(out, files, overwrite=overwrite,
+                          keep=("cases.csv", "scenario.toml", "risk_level_draws.csv", "from_draws.toml"), command="demo")
     _print_analysis(analysis)
     console.print(f"Demo data and scenario: {out / 'cases.csv'}, {out / 'scenario.toml'}")
+    console.print(f"The same risk levels with draws, and a scenario that reads them: {out / 'risk_level_draws.csv'}, "
+                  f"{out / 'from_draws.toml'}")
     show_written(paths)
 
 

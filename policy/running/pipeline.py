@@ -229,4 +229,32 @@ def demo_files(folder: str | Path, cases: int | None = None) -> tuple["Analysis"
         text = scenario_path.read_text(encoding="utf-8")
         scenario = dataclasses.replace(load_scenario(scenario_path), path=(Path(folder) / "scenario.toml").resolve())
         analysis = analyze(scenario)
-    return analysis, {"cases.csv": frame, "scenario.toml": text, **analysis.output_files()}
+        draws, draws_text = demo_draws(scenario_path, text)
+    return analysis, {"cases.csv": frame, "scenario.toml": text, DEMO_DRAWS: draws, DEMO_DRAWS_SCENARIO: draws_text,
+                      **analysis.output_files()}
+
+
+#: the demo's risk-level table with draws and the scenario that reads it (the route for risk levels
+#: estimated elsewhere), and the number of draws in it
+DEMO_DRAWS, DEMO_DRAWS_SCENARIO, DEMO_DRAW_COUNT = "risk_level_draws.csv", "from_draws.toml", 20
+
+
+def demo_draws(scenario_path: Path, text: str) -> tuple[pd.DataFrame, str]:
+    """The demo's risk levels with the tool's own bootstrap replicates as draws (multinomial, cell
+    sizes held), what courts did and the screen's level per cell, and a scenario that reads them."""
+    from policy.assessment.draws_export import bootstrap_draws_table
+
+    table = bootstrap_draws_table(scenario_path, replicates=DEMO_DRAW_COUNT, resampling="multinomial", workers=1)
+    q = [c for c in table.columns if c.startswith("risk_level_")]
+    table[q[:-1]] = table[q[:-1]].round(9)
+    table[q[-1]] = (1.0 - table[q[:-1]].sum(axis=1)).clip(lower=0.0)
+    out, n = re.subn(r"(?m)^case_table\s*=.*$", f'risk_level_table = "{DEMO_DRAWS}"   # written by `policy demo`', text)
+    out, m = re.subn(r"(?m)^arm\s*=.*\n", "", out)  # a risk-level table has no arm column
+    out, k = re.subn(r'(?m)^title\s*=.*$', 'title = "Quarrow County from risk-level draws (invented demo)"', out)
+    if (n, m, k) != (1, 1, 1):
+        raise RuntimeError("the demo scenario's case_table, arm or title line was not found")
+    head = (f"# The demo's risk levels with {DEMO_DRAW_COUNT} of the tool's own bootstrap replicates as draws, read from\n"
+            f"# {DEMO_DRAWS} (written by `policy demo`): the route for risk levels estimated elsewhere (posterior\n"
+            "# draws of any model fit the same columns). Its point rows also say what courts did, by arm, and the\n"
+            "# screen's recommended level per cell. Try `policy compare from_draws.toml --out from-draws`.\n")
+    return table, head + out
