@@ -25,7 +25,7 @@ def three_cells():
     borrowed[0, 1, 1] = borrowed[0, 0, 1] = True   # cell 0 never saw level 1 (both outcomes)
     borrowed[2, 0, 0] = True                       # cell 2 never saw level 0 for outcome o0
     return RiskLevels(CellLayout(frame, ("group",), ("area",), None), ("ror", "bond"), ("release", "bond set"),
-                      ("o0", "o1"), ("missed court", "new offense"), np.array([10.0, 30.0, 60.0]), p, borrowed,
+                      ("o0", "o1"), ("missed court", "arrest"), np.array([10.0, 30.0, 60.0]), p, borrowed,
                       {"jail_cost": np.array([5.0, 6.0, 7.0])}, source="hand table")
 
 
@@ -57,13 +57,14 @@ def test_summary_text_and_html_by_hand():
     rl = three_cells()
     table = rl.summary()
     assert list(table.columns) == rl.risk_level_names and table.columns.name is None
-    assert list(table.index) == [("all", "all", "missed court"), ("all", "all", "new offense"),
-                                 ("group", "a", "missed court"), ("group", "a", "new offense"),
-                                 ("group", "b", "missed court"), ("group", "b", "new offense")]
+    # in the order of the groups and outcome kinds, not sorted by label
+    assert list(table.index) == [("all", "all", "missed court"), ("all", "all", "arrest"),
+                                 ("group", "a", "missed court"), ("group", "a", "arrest"),
+                                 ("group", "b", "missed court"), ("group", "b", "arrest")]
     np.testing.assert_allclose(table.loc[("group", "a", "missed court")], [59 / 70, 9 / 70, 2 / 70])
     overall = rl.summary(by_group=False)
-    assert list(overall.index) == ["missed court", "new offense"] and overall.index.name is None
-    np.testing.assert_allclose(overall.loc["new offense"], [0.89, 0.07, 0.04])
+    assert list(overall.index) == ["missed court", "arrest"] and overall.index.name is None
+    np.testing.assert_allclose(overall.loc["arrest"], [0.89, 0.07, 0.04])
     lines = str(rl).splitlines()
     assert lines[0] == "Risk levels from hand table (3 cells, 100 cases):"
     assert lines[1:4] == overall.to_string(float_format=lambda v: f"{v:6.1%}").splitlines()
@@ -220,3 +221,13 @@ def test_estimator_settings_come_from_the_scenario(demo_scenario):
     est = RiskLevelEstimator.from_scenario(sc)
     assert est.prior_strength == 12.0 and est.target_covariates == (column,)
     assert est.structural_zeros == {2: 1}
+
+
+def test_fit_of_an_outcome_impossible_at_every_level():
+    from policy.estimation.strata import RiskLevelEstimator
+
+    est = RiskLevelEstimator(structural_zeros={1: 0}).fit(four_cells())
+    # no target anywhere: its level ratios are 0 (not 0 / 0), its probabilities 0
+    np.testing.assert_array_equal(est.level_ratios_[1], [0.0, 0.0])
+    np.testing.assert_array_equal(est.risk_levels_.p[:, 1], 0.0)
+    assert est.level_ratios_[0, 0] == 1.0

@@ -73,3 +73,13 @@ def test_moment_prior_strength_without_information_pools_fully():
     assert moment_prior_strength(events, trials, np.full((4, 1), 0.5), cell_axis=0)[0] == pytest.approx(largest)
     assert moment_prior_strength(np.zeros((3, 1)), np.zeros((3, 1)), np.full((3, 1), 0.2), cell_axis=0)[0] == \
         pytest.approx(largest)
+
+
+def test_moment_prior_strength_around_a_certain_target():
+    # a target of exactly 1 (or 0) has no binomial variance, yet a unit away from it shows spread:
+    # the estimator keeps m (1 - m) above 0 (m within [1e-9, 1 - 1e-9]), so rho comes out at its
+    # upper bound and the pooling is the weakest (prior strength 1 / 0.5 - 1 = 1), not the strongest
+    weakest = 1.0 / RHO_BOUNDS[1] - 1.0
+    events, trials = np.array([[9.0], [10.0]]), np.array([[10.0], [10.0]])
+    assert moment_prior_strength(events, trials, np.ones((2, 1)), cell_axis=0)[0] == pytest.approx(weakest)
+    assert moment_prior_strength(10.0 - events, trials, np.zeros((2, 1)), cell_axis=0)[0] == pytest.approx(weakest)
