@@ -131,3 +131,13 @@ def test_cli_sweep_two_ratios_implied_writes_the_region_with_bands(small_case_ta
     assert (table["ratio1_low"] <= table["ratio1_high"]).all()
     assert (tmp_path / "o" / "implied_region_vertices.csv").exists()
     assert "acted as if" in out
+
+
+def test_four_directions_give_the_same_extents_as_sixteen(demo):
+    # the bootstrap solves only the axis directions; 0, 90, 180 and 270 degrees are among the 16
+    _, cells, rl, costs, axes, index, groups, base, slope, box = demo
+    for rule in observed_rules(cells):
+        full = implied_region(base, slope, rl.weights, index, len(groups), rule.cell_delta, box)
+        four = implied_region(base, slope, rl.weights, index, len(groups), rule.cell_delta, box, directions=4)
+        np.testing.assert_allclose(four.low, full.low, rtol=1e-9, atol=1e-9)
+        np.testing.assert_allclose(four.high, full.high, rtol=1e-9, atol=1e-9)
