@@ -104,6 +104,7 @@ def render_report(results: ReportResults | Analysis) -> Report:
         cautions=list(CAUTIONS),
         arm_check=getattr(results.analysis, "arm_check", None),
         arm_costs=getattr(results.comparison, "arm_costs", None),
+        under_doubt=any(s.key == "under-doubt" for s in sections),
         summary=summary,
         sections=[s for s in sections if s is not summary],
         figure_assumptions=figure_assumptions,
