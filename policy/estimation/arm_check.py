@@ -66,7 +66,7 @@ from typing import Any, Mapping
 
 import numpy as np
 import pandas as pd
-from scipy import stats
+from scipy import special
 
 from policy.errors import InputError
 from policy.estimation.bounds import odds_shift
@@ -139,6 +139,8 @@ def _z_at(events: np.ndarray, observed: np.ndarray, used: np.ndarray, odds_ratio
     var = np.zeros_like(a)
     if ok.any():
         psi = np.broadcast_to(np.asarray(odds_ratio, dtype=np.float64), a.shape)[ok]
+        from scipy import stats  # imported here: scipy.stats costs a second of start-up to commands that never get here
+
         mu, v = stats.nchypergeom_fisher.stats(N[ok].astype(np.int64), n1[ok].astype(np.int64),
                                                m[ok].astype(np.int64), psi, moments="mv")
         mean[ok], var[ok] = mu, v
@@ -333,7 +335,7 @@ def gamma_lower_bound(cells: CellTable, alpha: float = 0.05, tol: float = 1e-3, 
     per_outcome = {key: 1.0 for key in cells.outcomes}
     for j in tested:
         t1, df = at_one[j]
-        crit = stats.chi2.ppf(1 - alpha / len(tested), df)
+        crit = special.chdtri(df, alpha / len(tested))  # the chi-square quantile of upper tail alpha / tests
         if t1 <= crit:
             continue
         ev, obs = cells.events[:, :, j, :], cells.observed[:, :, j, :]
@@ -563,7 +565,7 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
         informative = np.isfinite(res["statistic"])
         q = float(np.nansum(res["statistic"]))
         df = int(informative.sum())
-        p = float(stats.chi2.sf(q, df)) if df else np.nan
+        p = float(special.chdtrc(df, q)) if df else np.nan  # chi-square upper tail
         rows.append({"outcome": key, "statistic": q, "df": df, "p_value": p, "strata": int(res["used"].sum()),
                      "levels": df})
         for d, level in enumerate(cells.levels):
