@@ -379,3 +379,20 @@ def test_every_sweep_figure_has_a_table_agreeing_with_a_direct_solve():
             _, ev, _ = solve({"missed_court": x[j] * ax[0].reference_cost, "new_offense": yi * ax[1].reference_cost})
             assert text == fmt_pct(ev.level_shares[0]), (i, j, text, ev.level_shares[0])
     assert row[0].startswith(fmt_num(y[0], 3))
+
+
+def test_the_unit_is_never_put_in_brackets_of_its_own():
+    """A unit with brackets of its own ('USD (2024)') reads 'cost, USD (2024)' or 'in USD (2024)'
+    on the page, never '(USD (2024))' or '(USD (2024);'."""
+    report = build_report(ROOT / "scenarios" / "demo.toml", replicates=3)
+    page = parse(report.html)
+    unit = report.results.analysis.costs.unit
+    assert "(" in unit  # the demo's unit has brackets, so the check can fail
+    text = " ".join(page.text)
+    assert f"({unit}" not in text, text[max(0, text.find(f"({unit}") - 80):text.find(f"({unit}") + 40]
+    # the comparison's stability lines name rule cells by the scenario's labels, not raw column names
+    start = report.html.index('id="comparison"')
+    comparison = report.html[start:report.html.index("</section>", start)]
+    assert "chosen again in" in comparison
+    for column in report.results.analysis.rule.rule_cells.columns:
+        assert f"{column} " not in comparison, column

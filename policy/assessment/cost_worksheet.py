@@ -185,7 +185,7 @@ class CostWorksheet:
         return lines
 
     def __str__(self) -> str:
-        return "\n".join([f"Cost worksheet ({self.unit})", *(f"  {s}" for s in self.sentences()), WARNING])
+        return "\n".join([f"Cost worksheet, {self.unit}", *(f"  {s}" for s in self.sentences()), WARNING])
 
 
 def _component_rows(key: str, build) -> list[dict[str, Any]]:

@@ -242,7 +242,7 @@ def regret_figure(sweep: OneRatioSweep) -> Figure:
         ax.axhline(0.0, color="#4d4d4d", linewidth=0.8)
         _ratio_axis(ax, sweep.axis, sweep.scale, sweep.lo, sweep.hi)
         _mark_scenario(ax, sweep.axis.scenario_ratio, sweep.lo, sweep.hi)
-        unit = f" ({sweep.axis.unit})" if sweep.axis.unit else ""
+        unit = f", {sweep.axis.unit}" if sweep.axis.unit else ""
         ax.set_ylabel(f"regret per 1,000 cases{unit}")
         ax.yaxis.set_major_formatter(mpl.ticker.FuncFormatter(lambda v, _: f"{v:,.0f}"))
         ax.set_title(f"Cost of keeping a fixed rule as the cost of one {sweep.axis.outcome_label} varies")
@@ -271,7 +271,7 @@ def price_figure(constrained) -> Figure:
                     "save, the others kept." + (f" Right panel at {c.varied} = {c.bounds[_declared_row(c)]:g}." if c.varied else ""))
     n_rows = max(len(c.bounds) if c.varied else 1, len(c.specs))
     fig, (left, right), legend = _frame(10.0, 3.8, lines, n_rows + 1, ncols=2)
-    unit = f" ({c.unit})" if c.unit else ""
+    unit = f", {c.unit}" if c.unit else ""
     with mpl.rc_context(STYLE):
         shades = mpl.colormaps["cividis"](np.linspace(0.1, 0.85, len(c.bounds))) if c.varied else [OKABE_ITO["black"]]
         for b, colour in enumerate(shades):

@@ -94,7 +94,7 @@ def _evaluation_table(evaluation, unit: str) -> Table:
     table = Table(title="Expected consequences of the rule")
     table.add_column("figure")
     table.add_column("value", justify="right")
-    table.add_row(f"expected cost per 1,000 cases ({unit})", f"{evaluation.cost_per_1000:,.0f}")
+    table.add_row(f"expected cost per 1,000 cases, {unit}", f"{evaluation.cost_per_1000:,.0f}")
     for lab, share in zip(evaluation.level_labels, evaluation.level_shares):
         table.add_row(f"share: {lab}", f"{share:.1%}")
     for lab, rate in zip(evaluation.outcome_labels, evaluation.outcome_rates):
@@ -183,7 +183,7 @@ def _comparison_table(comparison) -> Table:
     first = comparison.risk_levels.outcome_labels[0]
     table = Table(title=f"Rules compared ({comparison.result.interval_label} in brackets)")
     table.add_column("rule")
-    table.add_column(f"expected cost per 1,000 cases ({comparison.costs.unit})", justify="right")
+    table.add_column(f"expected cost per 1,000 cases, {comparison.costs.unit}", justify="right")
     table.add_column("allowing for the rule's choice on these data", justify="right")
     table.add_column("regret per 1,000 cases", justify="right")
     table.add_column("same level as the optimum", justify="right")
@@ -209,7 +209,7 @@ def _print_ranges(frame, unit: str) -> None:
     """Each rule's expected cost range at Gamma = 2 and under the monotone bounds (all in comparison_ranges.csv)."""
     import numpy as np
 
-    console.print(f"Expected cost per 1,000 cases ({unit}) if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
+    console.print(f"Expected cost per 1,000 cases in {unit}, if unconfoundedness fails (every Gamma in comparison_ranges.csv; "
                   "regret ranges in comparison_regret_ranges.csv):", style="bold")
     for name, rows in frame.groupby("rule", sort=False):
         parts = [f"{label} {r['cost_per_1000_cases_lower']:,.0f} to {r['cost_per_1000_cases_upper']:,.0f}"
@@ -223,7 +223,7 @@ def _difference_matrix(comparison) -> Table:
     """Paired cost differences, rules numbered: row rule minus column rule, its interval, and
     the share of replicates in which the row rule is cheaper."""
     matrix = comparison.summary()
-    table = Table(title=f"Paired differences in expected cost per 1,000 cases ({comparison.costs.unit}): row rule minus "
+    table = Table(title=f"Paired differences in expected cost per 1,000 cases in {comparison.costs.unit}: row rule minus "
                         f"column rule ({comparison.result.interval_label} of the difference from the same replicates; "
                         "%: replicates in which the row rule is cheaper)")
     table.add_column("rule")

@@ -60,7 +60,7 @@ class RatioAxis:
 
     @property
     def cost_title(self) -> str:
-        return f"cost of one {self.outcome_label} ({self.unit})" if self.unit else f"cost of one {self.outcome_label}"
+        return f"cost of one {self.outcome_label}, {self.unit}" if self.unit else f"cost of one {self.outcome_label}"
 
     def describe(self) -> dict[str, Any]:
         return {

@@ -236,7 +236,7 @@ class OneRatioSweep:
                 "at the scenario's ratio": table["share_lenient_at_scenario"].map(lambda v: f"{v:.1%}"),
                 f"for >= {share:.0%} of cases up to ratio": table["up_to_ratio"].map(
                     lambda v: f"{v:.4g}" if np.isfinite(v) else f"never (< {share:.0%} at {self.lo:g})"),
-                f"cost ({self.axis.unit})": table["up_to_cost"].map(lambda v: f"{v:,.0f}" if np.isfinite(v) else "-"),
+                f"cost in {self.axis.unit}": table["up_to_cost"].map(lambda v: f"{v:,.0f}" if np.isfinite(v) else "-"),
             })
             lines.append(f"Share of cases for which {self.level_labels[0]} is optimal, whatever the confounding each "
                          "assumption allows:")

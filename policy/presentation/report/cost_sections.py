@@ -35,7 +35,7 @@ def worksheet_section(results: ReportResults) -> Section | None:
                      row.provenance, f"{_end(row.low)} to {_end(row.high)}{factor}",
                      "; ".join(x for x in (row.changes_below and f"below: {row.changes_below}",
                                            row.changes_above and f"above: {row.changes_above}") if x)))
-    costs = TableView(f"Each cost ({sheet.unit}), how it was built, the weakest provenance flag of its parts, and the "
+    costs = TableView(f"Each cost in {sheet.unit}, how it was built, the weakest provenance flag of its parts, and the "
                       "range over which the cost-minimizing rule does not change (that one cost moving, every other at "
                       "the scenario's value)",
                       ("cost", "value", "how it was built", "provenance", "the rule holds from ... to", "what changes first"),
@@ -79,7 +79,7 @@ def implied_section(results: ReportResults) -> Section | None:
         differences.append(res.differences.assign(outcome=key))
         view = TableView.from_frame(
             table[["rule", "protected", "group", "cases", "cost_low", "cost_high", "regret_per_case"]],
-            f"Cost of one {res.axis.outcome_label} ({res.axis.unit}) under which the decisions come closest to the "
+            f"Cost of one {res.axis.outcome_label} in {res.axis.unit} under which the decisions come closest to the "
             f"cheapest rule; the scenario's is {fmt_num(res.axis.scenario_ratio * res.axis.reference_cost)}",
             {"cases": fmt_num, "cost_low": fmt_num, "cost_high": _end, "regret_per_case": lambda v: fmt_num(v, 2)},
             row_header=3, rename={"cost_low": "from", "cost_high": "to", "regret_per_case": "regret per case there"})

@@ -36,7 +36,7 @@ def standing_view(found, level_labels, unit: str) -> TableView:
                      fmt_num(row["cost_worst_case"]))
                     + ((fmt_num(row["regret_worst_case"]),) if regret else ())
                     + tuple(fmt_pct(row[c]) for c in levels))
-    caption = (f"The rules under {frame['set'].iloc[0]}: expected cost per 1,000 cases ({unit}) under the point "
+    caption = (f"The rules under {frame['set'].iloc[0]}: expected cost per 1,000 cases in {unit} under the point "
                "estimate and at the worst distribution the set allows, and each rule's decision shares")
     return TableView(caption, columns, tuple(rows), (False, False, True, True) + ((True,) if regret else ())
                      + (True,) * len(levels))
@@ -60,7 +60,7 @@ def ladder_view(ladder, level_labels, unit: str) -> TableView:
                         fmt_num(row["safe_guaranteed_saving"]) if row["safe_certified"] else "not certified")
                        if regret else ()))
     caption = (f"Where each conclusion stops holding: each set from slight confounding to the monotone bounds, per "
-               f"1,000 cases ({unit}; doubt_ladder.csv)")
+               f"1,000 cases in {unit} (doubt_ladder.csv)")
     return TableView(caption, columns, tuple(rows), (False, False) + (True,) * (len(columns) - 2))
 
 

@@ -29,6 +29,6 @@ def ranges_view(comparison) -> TableView | None:
             lo, hi = by.loc[k, "cost_per_1000_cases_lower"], by.loc[k, "cost_per_1000_cases_upper"]
             cells.append(fmt_num(lo) if np.isclose(lo, hi) else f"{fmt_num(lo)} to {fmt_num(hi)}")
         rows.append((name,) + tuple(cells))
-    return TableView(f"Expected cost per 1,000 cases ({comparison.costs.unit}) if unconfoundedness fails: the range "
+    return TableView(f"Expected cost per 1,000 cases in {comparison.costs.unit}, if unconfoundedness fails: the range "
                      "over every distribution each assumption allows (outer ranges; regret ranges in "
                      "comparison_regret_ranges.csv)", ("rule",) + header, tuple(rows), (False,) + (True,) * len(keys))

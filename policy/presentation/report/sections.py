@@ -253,7 +253,7 @@ def constrained_section(results: ReportResults) -> Section | None:
                      "\u2013" if not np.isfinite(r["value"]) else fmt_factor(r["value"], 4),
                      fmt_num(r["saving_per_point_per_1000"]), fmt_num(r["saving_if_removed_per_1000"])))
     constraints = TableView(
-        f"The constraints and what each costs (per 1,000 cases, {unit})",
+        f"The constraints and what each costs per 1,000 cases, in {unit}",
         ("constraint", "kind", "applies to", "bound", "at the optimum", "value reached",
          "saving if loosened a step", "saving if removed alone"),
         tuple(rows), (False, False, False, False, False, True, True, True),
@@ -325,7 +325,7 @@ def comparison_section(results: ReportResults) -> Section:
                           + tuple(iv(row, f"rate_{k}", pct2) for k in rl.outcome_keys))
     label = cmp.result.interval_label
     unit = cmp.costs.unit
-    costs_view = TableView(f"Expected cost, regret and agreement per 1,000 cases ({unit}; {label} in brackets)",
+    costs_view = TableView(f"Expected cost, regret and agreement per 1,000 cases in {unit} ({label} in brackets)",
                            ("rule", "kind", "expected cost", "expected cost allowing for the rule's choice on these data",
                             "regret against the cost-minimizing rule", "same decision as the cost-minimizing rule"),
                            tuple(main_rows), (False, False, True, True, True, True))
@@ -347,16 +347,18 @@ def comparison_section(results: ReportResults) -> Section:
     if r.n_replicates:
         matrix = cmp.summary()
         extra["differences"] = TableView(
-            f"Paired differences in expected cost per 1,000 cases ({unit}): row rule minus column rule, with the {label} "
+            f"Paired differences in expected cost per 1,000 cases in {unit}: row rule minus column rule, with the {label} "
             "of the difference from the same replicates and the share of replicates in which the row rule is cheaper",
             ("rule",) + tuple(str(c) for c in matrix.columns),
             tuple((name,) + tuple(v if v != "0" else "" for v in row) for name, row in matrix.iterrows()),
             (False,) + (True,) * len(matrix.columns))
-        extra["stability"] = unstable_lines(cmp.stability_frame())
+        stab = cmp.stability_frame()
+        named = [c for c in cmp.rules[0].rule_cells.columns if c in stab.columns]
+        extra["stability"] = unstable_lines(stab.rename(columns={c: cmp.scenario.column_label(c) for c in named}))
     if cmp.crossfit is not None:
         cf = cmp.crossfit.to_frame()
         extra["crossfit"] = TableView(
-            f"In-sample and cross-fitted expected cost per 1,000 cases ({unit}; {cmp.crossfit.folds} folds: chosen on all "
+            f"In-sample and cross-fitted expected cost per 1,000 cases in {unit} ({cmp.crossfit.folds} folds: chosen on all "
             "folds but one, scored on the held-out one)",
             ("rule", "cost in sample", "cost cross-fitted", "cross-fitted minus in sample", "regret in sample",
              "regret cross-fitted"),
