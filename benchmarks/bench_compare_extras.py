@@ -11,6 +11,10 @@ demo county (20,000 cases), in this process (one worker):
   time per replicate, scaled to the replicates of the run);
 - ``differences_frame``, ``summary`` and ``stability_frame`` after the run;
 
+- the liberal bootstrap world (:mod:`policy.estimation.world`), fitted once per run, and the
+  statistic with the world's cost of each re-solved rule (the interval allowing for the chosen
+  rule's choice, :mod:`policy.assessment.selection`);
+
 and prints the extras as a share of ``compare``'s time (target: at most 10%); and, apart, the
 cross-fitting that ``compare`` now also runs (5 folds), as a share of the same time.
 
@@ -38,6 +42,7 @@ from policy.decision.solve import optimal_rule  # noqa: E402
 from policy.demo.quarrow import demo_scenario_path  # noqa: E402
 from policy.estimation.from_scenario import estimate  # noqa: E402
 from policy.estimation.strata import RiskLevelEstimator  # noqa: E402
+from policy.estimation.world import world_probabilities  # noqa: E402
 
 
 def best_of(fn, repeat):
@@ -69,6 +74,9 @@ def main() -> None:
     batches = [resampler.draw(seeds[i:i + CHUNK]) for i in range(0, len(seeds), CHUNK)]
     plain = ComparisonStatistic(est, design, costs, cells.layout, fixed, True, 2)
     held = ComparisonStatistic(est, design, costs, cells.layout, fixed, True, 2, chosen=[optimum])
+    t_world, world = best_of(lambda: world_probabilities(est, cells), args.repeat)
+    in_world = ComparisonStatistic(est, design, costs, cells.layout, fixed, True, 2, base=rl, chosen=[optimum],
+                                   world=world)
 
     def run(stat):
         with one_blas_thread():
@@ -77,9 +85,12 @@ def main() -> None:
 
     t_plain, _ = best_of(lambda: run(plain), args.repeat)
     t_held, _ = best_of(lambda: run(held), args.repeat)
+    t_in_world, _ = best_of(lambda: run(in_world), args.repeat)
     per_rep = (t_held - t_plain) / len(seeds)
+    per_rep_world = (t_in_world - t_held) / len(seeds)
     t_post, _ = best_of(lambda: (c.differences_frame(), c.summary(), c.stability_frame()), args.repeat)
     extra = max(per_rep, 0.0) * args.replicates + t_post
+    extra_world = t_world + max(per_rep_world, 0.0) * args.replicates
     rules = c.rules
     with one_blas_thread():
         t_cf, _ = best_of(lambda: cross_fit(cells, rl, costs, est, rules, folds=5, seed=1), args.repeat)
@@ -88,6 +99,8 @@ def main() -> None:
           f"{1e3 * t_held / len(seeds):.2f} ms with the chosen rule held fixed (extra {1e3 * per_rep:+.3f} ms)")
     print(f"paired differences, matrix and stability tables after the run: {1e3 * t_post:.1f} ms")
     print(f"extras / compare: {extra / t_compare:.3f} (target <= 0.10)")
+    print(f"liberal bootstrap world, once per run: {1e3 * t_world:.0f} ms; world cost of the re-solved rule per "
+          f"replicate: {1e3 * per_rep_world:+.3f} ms; together / compare: {extra_world / t_compare:.3f}")
     print(f"cross-fitting, 5 folds (part of compare's time since --folds 5 is the default): {1e3 * t_cf:.0f} ms, "
           f"{t_cf / t_compare:.3f} of compare")
 
