@@ -333,3 +333,32 @@ def test_the_demo_writes_a_table_of_draws_that_compare_reads(tmp_path, capsys):
     rule = pd.read_csv(tmp_path / "s" / "rule.csv")
     demo_rule = pd.read_csv(tmp_path / "d" / "rule.csv")
     assert list(rule["level"]) == list(demo_rule["level"])
+
+
+def test_a_parquet_table_of_draws_is_read_in_batches_like_the_csv(round_trip, tmp_path):
+    from policy.estimation.draws import read_draws
+    from policy.estimation.from_scenario import load_risk_level_draws, risk_levels_from_frame
+
+    _, table_path, table = round_trip
+    table.to_parquet(tmp_path / "draws.parquet", index=False, row_group_size=1000)
+    scenario = load_scenario(table_path)
+    whole = risk_level_draws_from_frame(table, scenario)
+    batches = read_draws(tmp_path / "draws.parquet", scenario, risk_levels_from_frame, chunk_rows=997)
+    assert batches.draw_ids == whole.draw_ids and batches.point_source == "marked"
+    np.testing.assert_allclose(batches.p, whole.p, atol=1e-12)
+    path = tmp_path / "parquet.toml"
+    path.write_text(table_path.read_text().replace('"draws.csv"', '"draws.parquet"'))
+    loaded = load_risk_level_draws(load_scenario(path))
+    np.testing.assert_allclose(loaded.p, whole.p, atol=1e-12)
+    from policy.decision.table_rules import table_rules
+
+    from_parquet, from_csv = table_rules(load_scenario(path), loaded.point), table_rules(scenario, whole.point)
+    assert [r.name for r in from_parquet.rules] == [r.name for r in from_csv.rules] and len(from_csv.rules) == 3
+    for a, b in zip(from_parquet.rules, from_csv.rules):
+        np.testing.assert_allclose(a.cell_delta, b.cell_delta, atol=1e-12)
+    bad = table.copy()
+    row = int(np.flatnonzero(bad["draw"] == "12")[5])
+    bad.loc[row, "risk_level_0"] = 2.5
+    bad.to_parquet(tmp_path / "bad.parquet", index=False)
+    with pytest.raises(InputError, match=rf"bad.parquet: draw '12', cell .*got 2.5 \(row {row + 1}\)"):
+        read_draws(tmp_path / "bad.parquet", scenario, risk_levels_from_frame, chunk_rows=997)

@@ -204,7 +204,7 @@ def _read_first_draw(scenario: Scenario, columns: list[str], header: list[str]) 
     if path.suffix.lower() == ".parquet":
         import pyarrow.parquet as pq
 
-        blocks = iter([pq.read_table(path, columns=use).to_pandas()])
+        blocks = (b.to_pandas() for b in pq.ParquetFile(path).iter_batches(batch_size=CHUNK_ROWS, columns=use))
     else:
         blocks = pd.read_csv(path, usecols=use, chunksize=CHUNK_ROWS, encoding="utf-8",
                              dtype={"draw": str, "aid_recommends": str})

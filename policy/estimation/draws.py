@@ -208,18 +208,28 @@ def parse_draws(frame: pd.DataFrame, scenario: Scenario, parse, file: str | None
 
 
 def read_draws(path, scenario: Scenario, parse, chunk_rows: int = 500_000) -> RiskLevelDraws:
-    """Read a CSV risk-level table with draws in blocks of ``chunk_rows`` rows, so that the table is
-    never held whole: one pass for the draw labels, one for the first draw's rows, one to fill the
-    draws (their outcome probabilities are the one array kept, n_draws x cells x J x L)."""
+    """Read a CSV or Parquet risk-level table with draws in blocks of ``chunk_rows`` rows, so that
+    the table is never held whole: one pass for the draw labels, one for the first draw's rows, one
+    to fill the draws (their outcome probabilities are the one array kept, n_draws x cells x J x L).
+    A Parquet file is read in record batches of the same size (pyarrow's ``iter_batches``)."""
     from pathlib import Path
 
     path = Path(path)
     file = path.name
+    parquet = path.suffix.lower() == ".parquet"
 
-    def blocks(**kw):
+    def blocks(usecols=None, **kw):
         offset = 0
+        if parquet:
+            import pyarrow.parquet as pq
+
+            for batch in pq.ParquetFile(path).iter_batches(batch_size=chunk_rows, columns=usecols):
+                block = batch.to_pandas()
+                yield block, offset
+                offset += len(block)
+            return
         kw.setdefault("dtype", {"draw": str, "aid_recommends": str})
-        for block in pd.read_csv(path, chunksize=chunk_rows, encoding="utf-8", **kw):
+        for block in pd.read_csv(path, chunksize=chunk_rows, encoding="utf-8", usecols=usecols, **kw):
             yield block, offset
             offset += len(block)
 

@@ -215,6 +215,10 @@ def _load_risk_level_draws(scenario: Scenario):
             header = list(pd.read_csv(path, nrows=0, encoding="utf-8").columns)
         except (UnicodeDecodeError, pd.errors.ParserError, pd.errors.EmptyDataError):
             header = None  # read_table below says what is wrong with the file
+    elif path.suffix.lower() == ".parquet" and path.is_file():
+        from policy.inputs.tables import parquet_schema
+
+        header = list(parquet_schema(path, risk_level_table_columns(scenario), what).names)
     if header is not None:
         require_columns(header, risk_level_table_columns(scenario), path.name, f"a risk-level table for {scenario.file}")
         return read_draws(path, scenario, risk_levels_from_frame) if "draw" in header else None
