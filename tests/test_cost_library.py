@@ -118,3 +118,31 @@ def test_bad_builds_are_refused_with_the_key_named(tmp_path, old, new, message):
     load = _scenario_with(tmp_path, old, new)
     with pytest.raises(InputError, match=re.escape(message)):
         load()
+
+
+def test_a_scenarios_own_library_and_price_index(tmp_path):
+    # a user's library and index of the package's shape, named relative to the scenario file;
+    # the arithmetic is checked by hand: 200 x 1.1 = 220, and 3 x 50 = 150 (no price year)
+    header = "key,kind,component,value,unit,year,source,provenance,note\n"
+    (tmp_path / "lib.csv").write_text(header + "warrant_local,outcome,warrant,200,USD,2020,county budget 2020 (invented),seen,\n"
+                                      "visits,days,check-ins,3,visits,,no source at hand,assumption,\n"
+                                      "visit_cost,decision,one check-in,50,USD per visit,,no source at hand,assumption,\n")
+    (tmp_path / "index.csv").write_text("from_year,to_year,factor,index,source,provenance\n"
+                                        "2020,2024,1.1,an invented index,for the test only,assumption\n")
+    load = _scenario_with(tmp_path, 'price_year = 2024\nunadjusted = ["jail_day", "liberty_day"]',
+                          'price_year = 2024\nfile = "lib.csv"\nprice_index = "index.csv"')
+    text = (tmp_path / "s.toml").read_text()
+    text = text.replace('cost = 1000.0\ncost_from = "warrant_missed_court"', 'cost_from = "warrant_local"')
+    text = text.replace('cost = 750.0\ncost_from = "days_supervised * supervision_day"', 'cost_from = "visits * visit_cost"')
+    for key in ("offense_larceny_theft", "offense_aggravated_assault"):
+        text = text.replace(f'cost_from = "{key}"\n', "")
+    cut = text.index("cost_by = ")
+    text = text[:cut] + text[text.index("\n", text.index("cost_from = {", cut)) + 1:]
+    (tmp_path / "s.toml").write_text(text)
+    sc = load()
+    assert sc.outcomes[0].cost == pytest.approx(220.0) and sc.levels[1].cost == 150.0
+    assert sc.outcomes[0].cost_build.describe() == "200 x 1.1 = 220"
+    assert sc.cost_library.path == (tmp_path / "lib.csv").resolve()
+    (tmp_path / "s.toml").write_text(text.replace('file = "lib.csv"', 'file = "nowhere.csv"'))
+    with pytest.raises(InputError, match=r"\[cost_library\] file 'nowhere.csv' does not exist"):
+        load()
