@@ -126,6 +126,7 @@ def test_the_report_shows_the_worksheet_and_the_implied_costs(demo_scenario):
     assert "screen tier 4, charge misdemeanor: supervised release -&gt; secured bond" in text.lower()
     assert "if the courts were minimizing expected cost, they acted as if one new offense cost" in text
     assert " ".join(MEANING.split()).replace("'", "&#39;") in text
+    assert "a disparity diagnostic in cost terms" in text
     implied = report.files["implied_costs.csv"]
     assert set(implied["outcome"]) == set(demo_scenario.outcome_keys)
     assert {"cost_worksheet.csv", "cost_worksheet_components.csv"} <= set(report.files)

@@ -20,6 +20,12 @@ def _end(value: float) -> str:
     return "no limit" if value is None or not math.isfinite(float(value)) else fmt_num(value)
 
 
+def _signed(value: float) -> str:
+    if value is None or not math.isfinite(float(value)):
+        return "no limit" if value and value > 0 else "no limit below"
+    return fmt_num(value)
+
+
 def worksheet_section(results: ReportResults) -> Section | None:
     """Each cost of the scenario, how it was built and from what, and where the rule holds."""
     from policy.assessment.cost_worksheet import cost_worksheet
@@ -77,13 +83,26 @@ def implied_section(results: ReportResults) -> Section | None:
         table = res.table.assign(outcome=key)
         tables.append(table)
         differences.append(res.differences.assign(outcome=key))
+        shown = {p: sc.column_label(p) for p in sc.protected}
+        table = table.assign(protected=table["protected"].map(lambda v: shown.get(v, v)))
         view = TableView.from_frame(
             table[["rule", "protected", "group", "cases", "cost_low", "cost_high", "regret_per_case"]],
             f"Cost of one {res.axis.outcome_label} in {res.axis.unit} under which the decisions come closest to the "
             f"cheapest rule; the scenario's is {fmt_num(res.axis.scenario_ratio * res.axis.reference_cost)}",
             {"cases": fmt_num, "cost_low": fmt_num, "cost_high": _end, "regret_per_case": lambda v: fmt_num(v, 2)},
             row_header=3, rename={"cost_low": "from", "cost_high": "to", "regret_per_case": "regret per case there"})
-        blocks.append({"title": f"The cost of one {res.axis.outcome_label}", "sentences": res.sentences(), "table": view})
+        diff = None
+        if len(res.differences):
+            named = res.differences.assign(protected=res.differences["protected"].map(lambda v: shown.get(v, v)))
+            diff = TableView.from_frame(
+                named[["rule", "protected", "group", "versus", "cost_difference_low", "cost_difference_high"]],
+                f"Between groups: how much higher the implied cost of one {res.axis.outcome_label} is for the decisions "
+                "one group received than for those the first group received (a disparity diagnostic in cost terms, "
+                "not a finding about intent; intervals with bootstrap bands: sweep --implied)",
+                {"cost_difference_low": _signed, "cost_difference_high": _signed}, row_header=4,
+                rename={"versus": "against", "cost_difference_low": "from", "cost_difference_high": "to"})
+        blocks.append({"title": f"The cost of one {res.axis.outcome_label}", "sentences": res.sentences(), "table": view,
+                       "differences": diff})
     files = {"implied_costs.csv": pd.concat(tables, ignore_index=True),
              "implied_differences.csv": pd.concat(differences, ignore_index=True)}
     return Section(key="implied-costs", title="What the courts' decisions imply about the costs",
