@@ -133,8 +133,8 @@ def chosen_doubt(check: Any = None, gamma: float | None = None, bounds: bool = F
     elif rejects and low == low:
         gamma = math.ceil(low * 100 - 1e-9) / 100
         reason = (f"The randomized arm contradicts unconfoundedness; the rules guard against confounding up to "
-                  f"Gamma = {_gamma_text(gamma)}, since {shown} (a lower confidence bound: the confounding present may "
-                  "be larger; the monotone bounds hold at any Gamma).")
+                  f"Gamma = {_gamma_text(gamma)}, since {shown} (rounded up here; a lower confidence bound: the "
+                  "confounding present may be larger; the monotone bounds hold at any Gamma).")
     else:
         gamma = default_gamma
         found = ("the randomized arm found no contradiction of unconfoundedness" if check is not None and check.tested
