@@ -231,3 +231,34 @@ def test_fit_of_an_outcome_impossible_at_every_level():
     np.testing.assert_array_equal(est.level_ratios_[1], [0.0, 0.0])
     np.testing.assert_array_equal(est.risk_levels_.p[:, 1], 0.0)
     assert est.level_ratios_[0, 0] == 1.0
+
+
+def test_fit_counts_only_free_levels_in_the_criterion_for_level_terms():
+    # three levels, the outcome impossible at the harshest: a level term by area has one free
+    # level (level 1), so Akaike's criterion charges it 2 x 1 parameters. Its statistic here is
+    # about 3.7 (select_level_terms on the same counts), above 2 but below the 4 that two free
+    # levels would cost, so the term is kept only when the impossible level is left out.
+    from policy.estimation.strata import RiskLevelEstimator
+    from policy.estimation.target import select_level_terms
+    from policy.inputs.cells import CellTable
+
+    frame = pd.DataFrame({
+        "area": pd.Categorical(["north", "north", "south", "south"], categories=["north", "south"], ordered=True),
+        "band": pd.Categorical(["low", "high", "low", "high"], categories=["low", "high"], ordered=True),
+    })
+    cases = np.array([[400, 300, 200], [300, 400, 200], [350, 350, 200], [250, 450, 200]])[:, None, :]
+    base = np.array([0.3, 0.35, 0.3, 0.35])
+    ratio = np.array([0.58, 0.58, 0.9, 0.9])
+    p = np.stack([base, base * ratio, 0 * base], -1)[:, None, None, :]
+    observed = cases[:, :, None, :].copy()
+    events = np.random.default_rng(0).binomial(observed, p)
+    cells = CellTable(CellLayout(frame, (), ("area", "band"), None), ("ror", "conditions", "bond"), ("fta",), (None,),
+                      cases, observed, events, source="three levels.csv")
+    est = RiskLevelEstimator(structural_zeros={0: 2})
+    zero = np.array([[False, False, True]])
+    e, n = np.where(zero, 0, events.sum(axis=1)), np.where(zero, 0, observed.sum(axis=1))
+    design = est.design(cells.layout)
+    kept, statistic = select_level_terms(e, n, design, zero)
+    assert 2.0 < statistic[0, 0] < 4.0 and kept[:, 0].tolist() == [True, False]
+    assert not select_level_terms(e, n, design, None)[0].any()
+    assert est.fit(cells).level_terms_ == {"fta": ["area"]}
