@@ -151,3 +151,30 @@ def test_above_the_threshold_the_lp_is_cumulative_and_matches_linprog():
     assert rel_close(lp.cost_per_case, cold.cost_per_case, 1e-12)
     assert np.allclose(lp.saving, cold.saving, rtol=1e-7, atol=1e-12)
     assert lp.iterations < cold.iterations
+
+
+@pytest.mark.parametrize("threshold", [0, 10**9])
+def test_sweep_blocks_give_the_bits_of_blocks_solved_on_fresh_problems(threshold, monkeypatch):
+    # each block of a constrained sweep restarts the loaded model (its solver state cleared)
+    # instead of reloading it; the points must be the same bits as each block solved on a newly
+    # built problem, as in another process
+    from policy.assessment.sweep.constrained import SWEEP_BLOCK, _SweepShared, constrained_sweep, ratio_grid, solve_sweep_block
+    from policy.assessment.sweep.axes import ratio_axis
+
+    monkeypatch.setattr(cumulative, "CUMULATIVE_FROM_RULE_CELLS", threshold)
+    rl, costs, columns = random_instance(7, n_scores=4, n_buckets=5, n_groups=2)
+    specs = [{"kind": "principal_fairness", "outcome": "o0", "tolerance": 0.02},
+             {"kind": "capacity", "at_least": "L2", "max_share": 0.15}]
+    axis = ratio_axis(rl, costs, "o1")
+    ratios = ratio_grid(0.05, 20.0, 2 * SWEEP_BLOCK + 3, "log")
+    swept = constrained_sweep(rl, costs, axis, ratios, specs, columns=columns, removal=True)
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    points = [(0, i) for i in range(len(ratios))]
+    for k in range(0, len(points), SWEEP_BLOCK):
+        shared = _SweepShared(rl, costs, problem.specs, problem.columns, problem.settings, axis.outcome_index,
+                              axis.reference_cost, ratios, np.array([np.nan]), None, True, None)
+        for (_, i), point in zip(points[k:k + SWEEP_BLOCK], solve_sweep_block(shared, tuple(points[k:k + SWEEP_BLOCK]))):
+            assert point[0] == swept.cost[0, i]
+            assert np.array_equal(point[1], swept.shares[0, i])
+            assert np.array_equal(point[3], swept.dual[0, i], equal_nan=True)
+            assert np.array_equal(point[4], swept.removed[0, i], equal_nan=True)

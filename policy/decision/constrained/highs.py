@@ -211,12 +211,15 @@ class _HighsDriver:
         self.shape = None
         self.fresh = True
         self.cum = None
+        self.reuse_cum = False
 
-    def _load(self, data: _LPData, c, lo, hi) -> None:
+    def _load(self, data: _LPData, c, lo, hi, keep_rows: bool = False) -> None:
         from policy.decision.constrained import cumulative
 
-        if self.settings.method == "auto" and data.n_levels >= 2 and data.n_groups >= cumulative.CUMULATIVE_FROM_RULE_CELLS:
-            # the rows depend on the risk levels: rebuilt on every load (vectorized)
+        if keep_rows and self.cum is not None:
+            pass  # a restart of the same data (restart()): the rows stand
+        elif self.settings.method == "auto" and data.n_levels >= 2 and data.n_groups >= cumulative.CUMULATIVE_FROM_RULE_CELLS:
+            # the rows depend on the risk levels: rebuilt on every new load (vectorized)
             self.cum = cumulative.cumulative_lp(data)
         else:
             self.cum = None
@@ -233,7 +236,7 @@ class _HighsDriver:
         self.fresh = basis is None or not basis.valid
         if not self.fresh:
             h.setBasis(basis)
-        self.h, self.shape = h, A.shape
+        self.h, self.shape, self.reuse_cum = h, A.shape, False
         self.cols = np.arange(n, dtype=np.int32)
         first = data.n_groups if self.cum is None else self.cum.n_mono
         self.rows = np.arange(first, A.shape[0], dtype=np.int32)
@@ -245,10 +248,11 @@ class _HighsDriver:
         return (self.cum.objective(c), *self.cum.row_bounds(lo, hi))
 
     def solve(self, data: _LPData, c, lo, hi, dirty, lenient: bool):
-        if self.h is None or dirty["model"]:
-            self._load(data, c, lo, hi)
+        reload = self.h is None or dirty["model"]
+        if reload:
+            self._load(data, c, lo, hi, keep_rows=self.reuse_cum and not dirty["model"])
         mc, mlo, mhi = self._model_arrays(data, c, lo, hi)
-        if not dirty["model"]:
+        if not reload:
             if dirty["cost"]:
                 self.h.changeColsCost(len(self.cols), self.cols, mc)
             if dirty["bounds"] and len(self.rows):
@@ -292,6 +296,21 @@ class _HighsDriver:
             x = self.cum.to_delta(x)
         self.best_basis = self.h.getBasis()
         return status, x, block_duals, iterations, seconds, lenient_pass
+
+    def restart(self) -> None:
+        """Make the next solve start as on a newly loaded model, keeping the model loaded.
+
+        In decision probabilities HiGHS's solver state (basis, factorization, solution) is
+        cleared and the first solve sets the unconstrained optimum's basis again. In cumulative
+        variables, where the first solve starts from HiGHS's own start, a cleared model gave
+        other last bits than a new one, so the model is loaded anew, from the rows already built.
+        """
+        if self.cum is not None:
+            self.h, self.reuse_cum = None, True
+        elif self.h is not None:
+            self.h.clearSolver()
+        self.fresh = True
+        self.best_basis = None
 
     def restore_best(self) -> None:
         if self.h is not None and self.best_basis is not None and self.best_basis.valid:

@@ -216,9 +216,14 @@ class ConstrainedProblem:
         process (bootstrap chunks, blocks of sweep points) call this first, so their results
         depend only on their own inputs.
         """
-        self._highs = None
+        if self._highs is not None and self._highs.h is not None and not self._dirty["model"]:
+            # the loaded model stays; only the solver's state goes (reloading costs more than a
+            # first solve at this size). Same bits as a reload: tests/test_constrained_cumulative.py
+            self._highs.restart()
+        else:
+            self._highs = None
+            self._dirty = {"cost": True, "bounds": True, "model": True}
         self._model = None
-        self._dirty = {"cost": True, "bounds": True, "model": True}
         return self
 
     def current_costs(self) -> Costs:
