@@ -31,10 +31,12 @@ Outcomes of a replicate (``outcome_model``)
 -------------------------------------------
 By default (no model) each resampled case keeps its own outcomes. Given estimated outcome
 probabilities, the cases and which of their outcomes were observed are resampled as above and
-the events among the observed are drawn from the estimates (a parametric bootstrap, Laird and
-Louis 1987). ``compare`` does this by default: for the shrinking cell estimator the
-nonparametric bootstrap world (raw cell rates as the truth) is too rough, and its percentile
-intervals of risk-level shares are off-centre (measured in docs/method.md).
+the events among the observed are drawn from them (a parametric bootstrap, Laird and Louis
+1987). ``compare`` does this by default: for the shrinking cell estimator the nonparametric
+bootstrap world (raw cell rates as the truth) is too rough, and its percentile intervals of
+risk-level shares are off-centre (measured in docs/method.md). The probabilities it draws from
+are those of the liberal world of :mod:`policy.estimation.world` (the estimator with every
+covariate-by-level term), so that replicates can keep or miss a term as the estimate did.
 
 Replicates, seeds and workers
 -----------------------------
@@ -619,7 +621,8 @@ def bootstrap_risk_levels(cells: CellTable, fn: Callable[[np.ndarray, ResampledC
     replicates, seed, method, level :
         As for :func:`bootstrap`.
     outcomes : {'model', 'cases'}
-        Draw replicate events from the estimated risk levels (default) or keep each case's own.
+        Draw replicate events from the liberal bootstrap world (default; the estimator with every
+        covariate-by-level term, :mod:`policy.estimation.world`) or keep each case's own.
     **kwargs :
         ``runner``, ``workers``, ``progress``, ``description`` (see :func:`bootstrap`).
     """
@@ -627,7 +630,9 @@ def bootstrap_risk_levels(cells: CellTable, fn: Callable[[np.ndarray, ResampledC
     design = estimator.design(cells.layout, len(cells.levels))
     model = None
     if settings.outcomes == "model":
+        from policy.estimation.world import world_probabilities
+
         with one_blas_thread():
-            model = estimator.estimate_p(cells.events.sum(axis=1), cells.observed.sum(axis=1), design)[0]
+            model = world_probabilities(estimator, cells)
     return bootstrap(cells, OnRiskLevels(fn, estimator, design), replicates, seed, method, level,
                      outcome_model=model, **kwargs)

@@ -398,7 +398,8 @@ def compare(
         console.print(f"{r.interval_label.capitalize()}: figures from the risk-level table, no cases behind it.")
     else:
         console.print(f"{r.n_replicates} bootstrap replicates ({r.method} resampling of cases, outcomes from the "
-                      f"{'estimated risk levels' if r.outcomes == 'model' else 'cases themselves'}), seed {r.seed}.")
+                      f"{'risk levels re-estimated with every covariate-by-level term' if r.outcomes == 'model' else 'cases themselves'}), "
+                      f"seed {r.seed}.")
     if comparison.arm_costs is not None:
         for line in comparison.arm_costs.lines():
             console.print(line)
