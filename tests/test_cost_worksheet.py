@@ -130,3 +130,15 @@ def test_the_report_shows_the_worksheet_and_the_implied_costs(demo_scenario):
     implied = report.files["implied_costs.csv"]
     assert set(implied["outcome"]) == set(demo_scenario.outcome_keys)
     assert {"cost_worksheet.csv", "cost_worksheet_components.csv"} <= set(report.files)
+
+
+@pytest.mark.parametrize("name", ["counts_table.toml", "risk_level_table.toml", "demo_constrained.toml"])
+def test_every_kind_of_data_gets_a_worksheet_whose_ranges_hold_the_scenarios_costs(name):
+    from policy.assessment.cost_worksheet import worksheet_scenario
+
+    from .conftest import SCENARIOS
+
+    sheet = worksheet_scenario(SCENARIOS / name)
+    t = sheet.costs
+    assert set(t["provenance"]) <= set(FLAGS) | {"stated, no flag"}
+    assert ((t["low"] <= t["value"] * (1 + 1e-9)) & (t["value"] <= t["high"] * (1 + 1e-9))).all()
