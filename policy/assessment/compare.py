@@ -526,7 +526,8 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     notes.append("the rules chosen on the full data (the optimum and any solved rule) are held fixed and scored in every "
                  "replicate; regret intervals are paired differences against the optimum so held; how often each rule "
                  "cell's level is chosen again when re-solved is in rule_stability.csv; the optimum's estimated cost is "
-                 "optimistic (chosen on the same data)")
+                 "optimistic (chosen on the same data); cost_per_1000_cases_chosen_lower and _upper give an interval for "
+                 "its true cost that allows for that choice")
     if under_doubt is not None:
         notes.append("the robust and safe rules are solved once on the estimates and held fixed across replicates")
     if cells.has_arm and (cells.cases.sum(axis=(0, 2)) == 0).any():
