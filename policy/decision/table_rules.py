@@ -241,6 +241,14 @@ def table_rules(scenario: Scenario, risk_levels: RiskLevels) -> TableRules:
            scenario.cell_columns, scenario.aid.name, risk_levels.n_cells)
     if key in _LAST:
         return _LAST[key]
+    from policy.estimation.draws_netcdf import NETCDF_SUFFIXES, netcdf_cell_frame
+
+    if path.suffix.lower() in NETCDF_SUFFIXES:  # the rule columns are coordinates along 'cell'
+        frame = netcdf_cell_frame(path, scenario, table_rule_columns)
+        out = rules_from_table_frame(frame, scenario, risk_levels, path.name)
+        _LAST.clear()
+        _LAST[key] = out
+        return out
     if path.suffix.lower() == ".parquet":
         import pyarrow.parquet as pq
 

@@ -209,6 +209,12 @@ def load_risk_level_draws(scenario: Scenario):
 def _load_risk_level_draws(scenario: Scenario):
     what = f"risk-level table ({scenario.file} [data] risk_level_table)"
     path = scenario.data.path
+    from policy.estimation.draws_netcdf import NETCDF_SUFFIXES, read_netcdf_draws
+
+    if path.suffix.lower() in NETCDF_SUFFIXES:
+        if not path.is_file():
+            raise InputError(f"The {what} {str(path)!r} does not exist.")
+        return read_netcdf_draws(path, scenario, risk_levels_from_frame)
     header = None
     if path.suffix.lower() == ".csv" and path.is_file():
         try:

@@ -506,8 +506,11 @@ def _data_source(data: dict, path: Path | None, file: str) -> DataSource:
         return DataSource(kind, simulate=data["simulate"])
     base = path.parent if path is not None else Path.cwd()
     target = (base / data[kind]).resolve()
+    if kind == "risk_level_table" and target.suffix.lower() in (".nc", ".nc4", ".netcdf"):
+        return DataSource(kind, path=target)  # draws in netCDF (policy.estimation.draws_netcdf)
     if target.suffix.lower() not in (".csv", ".parquet"):
-        raise InputError(f"{file}: [data] {kind} {data[kind]!r} must end in .csv or .parquet.")
+        extra = " (a risk-level table with draws may also be netCDF: .nc)" if kind == "risk_level_table" else ""
+        raise InputError(f"{file}: [data] {kind} {data[kind]!r} must end in .csv or .parquet{extra}.")
     return DataSource(kind, path=target)
 
 

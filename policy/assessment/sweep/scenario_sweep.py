@@ -189,6 +189,8 @@ def _has_draws(scenario) -> bool:
 
     path = scenario.data.path
     try:
+        if path.suffix.lower() in (".nc", ".nc4", ".netcdf"):
+            return True  # netCDF holds draws only
         if path.suffix.lower() == ".parquet":
             import pyarrow.parquet as pq
 
