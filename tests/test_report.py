@@ -396,3 +396,30 @@ def test_the_unit_is_never_put_in_brackets_of_its_own():
     assert "chosen again in" in comparison
     for column in report.results.analysis.rule.rule_cells.columns:
         assert f"{column} " not in comparison, column
+
+
+def test_a_report_runs_the_arm_check_once_and_every_stage_shows_that_one(monkeypatch):
+    """The randomized arm's check depends on the cases alone: the report runs it once (for the
+    analysis) and hands it to the comparison and every sweep, instead of once per stage."""
+    import policy.assessment.sweep.scenario_sweep as sweep_module
+    import policy.estimation.arm_check as arm_module
+    import policy.running.pipeline as pipeline
+
+    calls = []
+    real = arm_module.arm_check
+
+    def counted(*args, **kwargs):
+        calls.append(1)
+        return real(*args, **kwargs)
+
+    for module in (arm_module, pipeline, sweep_module):
+        monkeypatch.setattr(module, "arm_check", counted)
+    report = build_report(ROOT / "scenarios" / "demo.toml", replicates=2)
+    results = report.results
+    assert results.analysis.arm_check is not None and len(calls) == 1
+    assert results.comparison.arm_check is results.analysis.arm_check
+    assert all(res.arm_check is results.analysis.arm_check for res in (*results.sweeps, results.lenient_map))
+    # and a stage run alone still runs its own
+    from policy.assessment.compare import compare
+
+    assert compare(ROOT / "scenarios" / "demo.toml", replicates=0).arm_check is not None and len(calls) == 2

@@ -417,7 +417,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
             decision_costs: Mapping[str, float] | None = None, doubt: Any = None, stability: float = 0.8,
-            folds: int = 5, fold_repeats: int = 1) -> Comparison:
+            folds: int = 5, fold_repeats: int = 1, arm_checked: Any = None) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -452,6 +452,10 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         0: no cross-fitting; default 5), seeded from the bootstrap's seed.
     fold_repeats : int
         Independent splits into folds, averaged (default 1; more reduce the split's noise).
+    arm_checked : ArmCheck, optional
+        The randomized arm's check already run on the same scenario's data (it depends on the
+        cases alone, not on costs or replicates), so that a caller running several stages on one
+        data set runs it once; default: run here.
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -551,7 +555,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         arm_costs = realized_arm_costs(cells, costs, settings.replicates, scenario.seed if seed is None else seed,
                                        settings.resampling, settings.interval, runner=runner, workers=workers,
                                        arm_labels=tuple(r.name for r in observed))
-        check = arm_check(cells, outcome_labels=scenario.outcome_label_map)
+        check = arm_checked if arm_checked is not None else arm_check(cells, outcome_labels=scenario.outcome_label_map)
         gammas = with_gamma_low(gammas, check)
     ladder = None
     if under_doubt is not None:

@@ -211,7 +211,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
                    interval: float | None = None, outcomes: str | None = None, workers: int | None = None,
                    runner: Any = None, progress: bool = False,
                    on_step: Callable[[str], None] | None = None,
-                   on_point: Callable[[int, int], None] | None = None) -> SweepResult:
+                   on_point: Callable[[int, int], None] | None = None, arm_checked: ArmCheck | None = None) -> SweepResult:
     """Sweep one cost ratio (exact curves) or two (exact lenient map) for a scenario.
 
     Parameters
@@ -270,6 +270,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
         Called with a description after each stage (drives a progress bar).
     on_point : callable, optional
         Called with (points done, points in all) during the constrained re-solves.
+    arm_checked : ArmCheck, optional
+        The randomized arm's check already run on the same scenario's data (it depends on the
+        cases alone), so that several sweeps of one data set run it once; default: run here.
     """
     from policy.decision.constraints import scenario_specs
     from policy.assessment.sweep.constrained import constrained_sweep, ratio_grid
@@ -311,7 +314,8 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     if len(ranges) != len(axes):
         raise InputError(f"give one range per ratio: {len(axes)} ratios, {len(ranges)} ranges.")
     box = [tuple(map(float, r)) if r is not None else default_range(a, scale) for a, r in zip(axes, ranges)]
-    check = arm_check(cells, outcome_labels=scenario.outcome_label_map) if cells is not None and cells.has_arm else None
+    check = (arm_checked if arm_checked is not None else arm_check(cells, outcome_labels=scenario.outcome_label_map)
+             ) if cells is not None and cells.has_arm else None
     if gammas is None:
         gammas = with_gamma_low(DEFAULT_GAMMAS if cells is not None else (), check)
     if bounds is None:

@@ -187,7 +187,7 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
     else:  # a risk-level table is compared too: intervals over its draws, or point figures without them
         comparison = compare(scenario, replicates=replicates, outcome_costs=outcome_costs,
                              decision_costs=decision_costs, progress=progress,
-                             doubt=choice.settings if choice is not None else None)
+                             doubt=choice.settings if choice is not None else None, arm_checked=analysis.arm_check)
     compared = compared_rules(comparison)
     if analysis.constrained is not None:
         compared.append(held_constrained_rule(analysis))
@@ -195,7 +195,7 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
         sweeps, lenient_map = cached["sweeps"], cached["lenient_map"]
     else:
         sweeps, lenient_map = cost_sweeps(scenario, [c.rule for c in compared], outcome_costs, decision_costs,
-                                          replicates, progress)
+                                          replicates, progress, analysis.arm_check)
     points = tuple(res.constrained for res in sweeps if res.constrained is not None)
     report = render_report(ReportResults(analysis, tuple(compared), points, comparison, why, tuple(sweeps), lenient_map,
                                          dict(decision_costs or {}), choice))
@@ -207,18 +207,21 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
 
 def cost_sweeps(scenario: Scenario, rules: Sequence[Rule], outcome_costs: Mapping[str, float] | None = None,
                 decision_costs: Mapping[str, float] | None = None, replicates: int | None = None,
-                progress: bool = False) -> tuple[list, Any]:
+                progress: bool = False, arm_checked: Any = None) -> tuple[list, Any]:
     """One exact sweep per outcome kind's cost ratio, with the compared rules' regret, bootstrap
     bands where the data hold counts and, with constraints, the constrained optimum re-solved
-    along it; and the lenient map of the first two outcome kinds (:func:`policy.assessment.sweep.sweep_scenario`)."""
+    along it; and the lenient map of the first two outcome kinds (:func:`policy.assessment.sweep.sweep_scenario`).
+    ``arm_checked``: the randomized arm's check of the same data, run once for every sweep."""
     from policy.assessment.sweep import sweep_scenario
 
     keys = list(scenario.outcome_keys)
     # a risk-level table's bands come from its draws, if it has any (replicates 0: no bands)
     bands = replicates if scenario.data.kind != "risk_level_table" else (0 if replicates == 0 else None)
     sweeps = [sweep_scenario(scenario, [k], rules=list(rules), outcome_costs=outcome_costs,
-                             decision_costs=decision_costs, replicates=bands, progress=progress) for k in keys]
-    lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs)
+                             decision_costs=decision_costs, replicates=bands, progress=progress,
+                             arm_checked=arm_checked) for k in keys]
+    lenient_map = (sweep_scenario(scenario, keys[:2], outcome_costs=outcome_costs, decision_costs=decision_costs,
+                                  arm_checked=arm_checked)
                    if len(keys) >= 2 else None)
     return sweeps, lenient_map
 
