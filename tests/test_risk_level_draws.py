@@ -150,6 +150,15 @@ def test_the_example_table_of_draws_runs_through_compare_and_solve(tmp_path, cap
     # solve reads the same table's point rows
     code, _, _ = run_cli(["solve", path, "--out", tmp_path / "s"], capsys)
     assert code == 0
+    # check says what the table holds: its draws and the rules its optional columns give
+    from policy.running.pipeline import check
+
+    findings = check(path).findings
+    assert findings["draws"] == "50 (point estimate: marked)"
+    assert findings["rules given by the table"].split("; ") == [
+        "Quarrow Release Screen recommendation", "courts, Quarrow Release Screen not shown",
+        "courts, Quarrow Release Screen shown"]
+    assert check(SCENARIOS / "risk_level_table.toml").findings["rules given by the table"] == "none"
 
 
 def test_a_duplicated_row_in_one_draw_is_refused(round_trip):

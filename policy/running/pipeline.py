@@ -76,12 +76,20 @@ def check(scenario: Scenario | str | Path) -> CheckReport:
     """
     scenario = as_scenario(scenario)
     if scenario.data.kind == "risk_level_table":
-        rl = estimate_risk_levels(scenario)
+        from policy.decision.table_rules import table_rules
+        from policy.estimation.from_scenario import load_risk_level_draws
+
+        draws = load_risk_level_draws(scenario)
+        rl = draws.point if draws is not None else estimate_risk_levels(scenario)
+        from_table = table_rules(scenario, rl)
         findings = {
             "data": rl.source,
             "cells": rl.n_cells,
             "cases (weight)": float(rl.weights.sum()),
             "sparse cells": int((rl.weights < scenario.estimator.sparse_below).sum()),
+            "draws": (f"{draws.n_draws} (point estimate: {draws.point_source})" if draws is not None
+                      else "none: point figures only, no intervals"),
+            "rules given by the table": "; ".join(r.name for r in from_table.rules) or "none",
         }
         return CheckReport(scenario, None, rl, findings)
     cells = load_cell_table(scenario)

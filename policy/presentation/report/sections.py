@@ -391,10 +391,12 @@ def aid_effect_section(results: ReportResults) -> Section | None:
     if cmp is None:
         return None
     if not cmp.has_arm:
+        why = ("The data have no arm column (whether the aid was shown), so the aid's effect on decisions cannot be "
+               "estimated." if cmp.cells is not None else
+               "The risk levels come from a table estimated elsewhere: the aid's effect on decisions within each risk "
+               "level needs the cases (decisions and outcomes by arm), which the table does not hold.")
         return Section(key="aid-effect", title="The effect of showing the aid, by risk level",
-                       template="sections/unavailable.html.j2",
-                       context={"why": "The data have no arm column (whether the aid was shown), so the aid's effect "
-                                       "on decisions cannot be estimated."})
+                       template="sections/unavailable.html.j2", context={"why": why})
     rl = cmp.risk_levels
     label = dict(zip(rl.outcome_keys, rl.outcome_labels))
     eff = cmp.effect_frame()
