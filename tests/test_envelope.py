@@ -67,3 +67,57 @@ def test_one_ratio_sweep_of_an_outcome_no_decision_prevents():
         optimum = np.sum(rl.weights * expected.min(axis=1)) / rl.weights.sum()
         assert s.optimal_cost_at(r) == pytest.approx(optimum, rel=1e-12)
     assert s.segments()["from_ratio"].min() == pytest.approx(0.0)
+
+
+def test_envelope_of_a_single_level():
+    # one decision level: one line per row, no breakpoint columns (L - 1 = 0), everything at level 0
+    A, B = np.array([[3.0], [1.0]]), np.array([[2.0], [-1.0]])
+    w = np.array([4.0, 6.0])
+    env = lower_envelope(A, B)
+    assert env.breaks.shape == (2, 0) and env.at_break.shape == (2, 0)
+    assert env.count.tolist() == [0, 0] and env.levels.tolist() == [[0], [0]]
+    np.testing.assert_array_equal(env.level_at(np.array([-5.0, 0.0, 5.0])), np.zeros((3, 2)))
+    shares, total = envelope_functions(env, w, A, B)
+    np.testing.assert_array_equal(shares(1.5), [10.0])
+    np.testing.assert_array_equal(total(1.5), [4.0, 1.0])   # intercepts 3 + 1, slopes 2 - 1
+
+
+def test_envelope_pads_unused_positions_and_reports_where_leniency_ends():
+    # row 0: lines 0, 1, 2 with slopes 2, 1, 0: level 2 (the smallest slope... at r -> -inf the
+    # largest slope is lowest) -- reference: numpy's argmin at points far out on either side
+    A = np.array([[0.0, 1.0, 3.0], [0.0, 0.0, 0.0], [5.0, 1.0, 0.0]])
+    B = np.array([[1.0, 0.0, -1.0], [0.0, 0.0, 0.0], [-1.0, 0.0, 1.0]])
+    env = lower_envelope(A, B)
+    far = np.array([-1e6, 1e6])
+    grid = np.argmin(A[None] + far[:, None, None] * B[None], axis=-1)
+    np.testing.assert_array_equal(env.level_at(far), grid)
+    # row 0 starts lenient and leaves it at r = 1 (0 + r = 1); row 1 is lenient everywhere (ties
+    # to the lenient level, no breakpoint); row 2 starts at the harshest level: leniency never
+    # holds on a first segment, -inf
+    np.testing.assert_array_equal(env.count, [2, 0, 2])
+    np.testing.assert_allclose(env.lenient_until(), [1.0, np.inf, -np.inf])
+    # positions beyond a row's breakpoints hold +inf (breaks) and -1 (levels, at_break)
+    np.testing.assert_array_equal(env.breaks[1], [np.inf, np.inf])
+    np.testing.assert_array_equal(env.levels[1], [0, -1, -1])
+    np.testing.assert_array_equal(env.at_break[1], [-1, -1])
+
+
+def test_step_function_without_events_and_pieces_from_a_knot():
+    from policy.assessment.sweep import StepFunction
+
+    flat = StepFunction.from_events(np.array([2.0, 5.0]), np.zeros(0), np.zeros((0, 2)), np.zeros((0, 2)))
+    assert flat.knots.shape == (0,) and flat.at.shape == (0, 2)
+    np.testing.assert_array_equal(flat(np.array([-1.0, 0.0, 3.0])), [[2.0, 5.0]] * 3)
+    edges, values = flat.pieces(0.0, 1.0)
+    np.testing.assert_array_equal(edges, [0.0, 1.0])
+    np.testing.assert_array_equal(values, [[2.0, 5.0]])
+    # the worked example of test_sweep.py: 1 before 1, 3 on (1, 2), 2.5 after 2; a range that
+    # starts or ends on a knot has no empty piece
+    f = StepFunction.from_events(np.array([1.0]), np.array([2.0, 1.0, 2.0]),
+                                 np.array([[-1.0], [2.0], [0.5]]), np.array([[0.0], [2.0], [0.5]]))
+    edges, values = f.pieces(1.0, 2.5)
+    np.testing.assert_array_equal(edges, [1.0, 2.0, 2.5])
+    np.testing.assert_array_equal(values[:, 0], [3.0, 2.5])
+    edges, values = f.pieces(0.5, 2.0)
+    np.testing.assert_array_equal(edges, [0.5, 1.0, 2.0])
+    np.testing.assert_array_equal(values[:, 0], [1.0, 3.0])

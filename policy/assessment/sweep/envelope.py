@@ -46,6 +46,8 @@ class Envelope:
         seg = np.sum(self.breaks < rr, axis=-1)
         rows = np.arange(self.n)
         level = self.levels[rows, seg]
+        if self.breaks.shape[-1] == 0:  # one decision level: no breakpoints
+            return level
         on = self.breaks == rr
         hit = on.any(axis=-1)
         at = self.at_break[rows, np.argmax(on, axis=-1)]
