@@ -10,8 +10,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Mapping, Sequence
 
-import math
-
 import numpy as np
 import pandas as pd
 
@@ -22,6 +20,7 @@ from policy.decision.rules import Rule
 from policy.decision.safe import SafeRule, safe_rule
 from policy.decision.solve import optimal_rule
 from policy.errors import InputError
+from policy.estimation.arm_check import gamma_low_rounded
 from policy.estimation.strata import RiskLevels
 from policy.inputs.cells import CellTable
 from policy.inputs.scenario import Scenario
@@ -131,7 +130,7 @@ def chosen_doubt(check: Any = None, gamma: float | None = None, bounds: bool = F
         reason = ("The randomized arm contradicts unconfoundedness and no finite Gamma reconciles its two arms, so the "
                   "rules guard against the monotone-response bounds (monotonicity only).")
     elif rejects and low == low:
-        gamma = math.ceil(low * 100 - 1e-9) / 100
+        gamma = gamma_low_rounded(low)
         reason = (f"The randomized arm contradicts unconfoundedness; the rules guard against confounding up to "
                   f"Gamma = {_gamma_text(gamma)}, since {shown} (rounded up here; a lower confidence bound: the "
                   "confounding present may be larger; the monotone bounds hold at any Gamma).")

@@ -25,6 +25,7 @@ from policy.decision.robust import robust_rule, rule_cost, uncertainty_set, wors
 from policy.decision.rules import Rule
 from policy.decision.safe import CERTIFY_TOLERANCE, safe_rule, worst_case_regret
 from policy.decision.solve import optimal_rule
+from policy.estimation.arm_check import gamma_low_rounded
 from policy.estimation.strata import RiskLevels
 from policy.inputs.cells import CellTable
 
@@ -185,7 +186,7 @@ def ladder_for(found: Any, doubt: Any, check: Any, risk_levels: RiskLevels, cell
     if doubt.gamma is not None:
         values.append(float(doubt.gamma))
     if 1 < low < math.inf:
-        values.append(math.ceil(low * 100 - 1e-9) / 100)
+        values.append(gamma_low_rounded(low))
     baseline = found.safe.baseline if found.safe is not None else None
     return doubt_ladder(risk_levels, cells, costs, values, baseline, constraints, lp_settings, found.robust.reference,
                         low, True, doubt.missing, doubt.monotone)

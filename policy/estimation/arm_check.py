@@ -72,8 +72,8 @@ from policy.errors import InputError
 from policy.estimation.bounds import odds_shift
 from policy.inputs.cells import CellTable
 
-__all__ = ["ArmCheck", "arm_check", "cmh_by_level", "discrepancy_at", "gamma_lower_bound", "overlap_gamma",
-           "overlap_odds_ratios"]
+__all__ = ["ArmCheck", "arm_check", "cmh_by_level", "discrepancy_at", "gamma_lower_bound", "gamma_low_rounded",
+           "overlap_gamma", "overlap_odds_ratios"]
 
 #: the largest Gamma searched; a stratum needing more is reported as infinite
 GAMMA_CEILING = 1e6
@@ -604,10 +604,15 @@ def arm_check(cells: CellTable, alpha: float = 0.05, top: int = 5, gamma: bool =
                     gam["per_outcome"], top, dict(outcome_labels or {}))
 
 
+def gamma_low_rounded(gamma_lower: float) -> float:
+    """Gamma_low rounded up to 2 decimals, so that the value shown is never one the data contradict."""
+    return float(np.ceil(gamma_lower * 100 - 1e-9) / 100)
+
+
 def with_gamma_low(gammas, check: "ArmCheck | None") -> tuple:
-    """``gammas`` with the least confounding the arms show (Gamma_low, to 2 decimals) added, when
-    the arm check found any (1 < Gamma_low < inf)."""
+    """``gammas`` with the least confounding the arms show (Gamma_low, rounded up to 2 decimals)
+    added, when the arm check found any (1 < Gamma_low < inf)."""
     gammas = tuple(gammas)
     if check is not None and 1 < check.gamma_lower < np.inf:
-        gammas += (round(check.gamma_lower, 2),)
+        gammas += (gamma_low_rounded(check.gamma_lower),)
     return gammas

@@ -8,7 +8,7 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
-from policy.estimation.arm_check import ArmCheck, arm_check, with_gamma_low
+from policy.estimation.arm_check import ArmCheck, arm_check, gamma_low_rounded, with_gamma_low
 from policy.estimation.bounds import MISSING_TREATMENTS, RiskBounds, robust_assumptions
 from policy.cautions import CAUTIONS, assumptions_for
 from policy.decision.costs import Costs, costs_from_scenario
@@ -325,7 +325,7 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     settings = {"scale": scale, "ranges": [list(b) for b in box], "gammas": [b.gamma for b in assumptions if b.figure == "sensitivity"],
                 "bounds": bool(bounds), "missing_records": missing, "grid_points": grid_points, "share": float(share),
                 "gamma_lower_from_arm_check": (None if check is None or not np.isfinite(check.gamma_lower)
-                                               else round(check.gamma_lower, 2))}
+                                               else gamma_low_rounded(check.gamma_lower))}
     if len(axes) == 1:
         if rules is None:
             base_rule = optimal_rule(rl, costs, name="rule optimal at the scenario's costs")
