@@ -178,3 +178,12 @@ def test_sweep_blocks_give_the_bits_of_blocks_solved_on_fresh_problems(threshold
             assert np.array_equal(point[1], swept.shares[0, i])
             assert np.array_equal(point[3], swept.dual[0, i], equal_nan=True)
             assert np.array_equal(point[4], swept.removed[0, i], equal_nan=True)
+
+
+def test_the_solver_label_says_which_variables(monkeypatch):
+    rl, costs, columns = random_instance(1, n_scores=3, n_buckets=3, n_groups=2)
+    specs = [{"kind": "capacity", "at_least": "L2", "max_share": 0.2}]
+    monkeypatch.setattr(cumulative, "CUMULATIVE_FROM_RULE_CELLS", 10**9)
+    assert "unconstrained optimum's basis" in ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp().solver
+    monkeypatch.setattr(cumulative, "CUMULATIVE_FROM_RULE_CELLS", 0)
+    assert "cumulative variables" in ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp().solver

@@ -268,7 +268,7 @@ def constrained_sweep(risk_levels: RiskLevels, costs: Costs, axis: RatioAxis, ra
             cost[b, i], shares[b, i], split[b, i], dual[b, i], removed[b, i] = point
     return ConstrainedSweep(axis, ratios, scale, specs, varied, bounds, risk_levels.level_values,
                             risk_levels.level_labels, feasible, cost, opt, shares, split, dual, removed, costs.unit,
-                            problem.settings.label)
+                            problem.solver_label)
 
 
 @dataclass

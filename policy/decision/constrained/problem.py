@@ -83,6 +83,19 @@ class ConstrainedProblem:
         return self._data.A.shape[0]
 
     @property
+    def in_cumulative_variables(self) -> bool:
+        """HiGHS is given this LP in cumulative variables (:mod:`policy.decision.constrained.cumulative`)."""
+        from policy.decision.constrained import cumulative
+
+        return (self.settings.uses_direct and self.settings.method == "auto" and self._data.n_levels >= 2
+                and self._data.n_groups >= cumulative.CUMULATIVE_FROM_RULE_CELLS)
+
+    @property
+    def solver_label(self) -> str:
+        """How this problem's LP is solved, for outputs."""
+        return self.settings.label_for(self.in_cumulative_variables)
+
+    @property
     def cvxpy_problem(self):
         """The cvxpy problem (DPP) with the current parameter values."""
         model = self._cvxpy()
@@ -301,7 +314,7 @@ class ConstrainedProblem:
         row_values = tuple(values[data.offsets[k] - G:data.offsets[k + 1] - G] for k in range(len(data.blocks)))
         scales = np.array([b.scale for b in data.blocks])
         saving = np.asarray(block_duals, dtype=np.float64) / np.where(scales > 0, scales, 1.0) if len(scales) else np.zeros(0)
-        return LPSolution(delta, float((c * flat).sum()), saving, row_values, "optimal", self.settings.label, iterations, seconds, lenient_pass)
+        return LPSolution(delta, float((c * flat).sum()), saving, row_values, "optimal", self.solver_label, iterations, seconds, lenient_pass)
 
     def solve(self, name: str = "constrained optimal rule", sensitivity: bool = True) -> "ConstrainedRule":
         """Solve and present: the rule, its price against the unconstrained optimum, each constraint's dual

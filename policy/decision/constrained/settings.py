@@ -66,8 +66,13 @@ class LPSettings:
 
     @property
     def label(self) -> str:
+        return self.label_for(cumulative=False)
+
+    def label_for(self, cumulative: bool) -> str:
+        """The solver's description; ``cumulative``: the LP was loaded in cumulative variables."""
         if self.uses_direct:
-            return f"HiGHS {highs_version()} via highspy (first solve: {self._first_label}; re-solves: warm dual simplex)"
+            first = "dual simplex in cumulative variables P(D >= t), from HiGHS's own start" if cumulative else self._first_label
+            return f"HiGHS {highs_version()} via highspy (first solve: {first}; re-solves: warm dual simplex)"
         return f"{self.solver} via cvxpy"
 
 
