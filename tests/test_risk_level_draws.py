@@ -371,3 +371,19 @@ def test_a_parquet_table_of_draws_is_read_in_batches_like_the_csv(round_trip, tm
     bad.to_parquet(tmp_path / "bad.parquet", index=False)
     with pytest.raises(InputError, match=rf"bad.parquet: draw '12', cell .*got 2.5 \(row {row + 1}\)"):
         read_draws(tmp_path / "bad.parquet", scenario, risk_levels_from_frame, chunk_rows=997)
+
+
+def test_compare_takes_the_table_as_a_dataframe(round_trip):
+    # From Python: the same table as a DataFrame gives what the file gives.
+    from policy.assessment.compare import compare
+
+    cases_path, table_path, table = round_trip
+    from_file = compare(table_path).comparison_frame()
+    from_frame = compare(table_path, table=table).comparison_frame()
+    pd.testing.assert_frame_equal(from_frame, from_file)
+    point = table[table["draw"] == "point"].drop(columns="draw")
+    no_draws = compare(table_path, table=point).comparison_frame()
+    assert (no_draws["replicates"] == 0).all() and len(no_draws) == len(from_file)
+    np.testing.assert_allclose(no_draws["cost_per_1000_cases"], from_file["cost_per_1000_cases"], rtol=1e-12)
+    with pytest.raises(InputError, match="replaces a risk-level table; this scenario's data are a case table"):
+        compare(cases_path, table=table)

@@ -417,7 +417,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
             constraints: bool = True,
             outcome_costs: Mapping[str, float] | None = None,
             decision_costs: Mapping[str, float] | None = None, doubt: Any = None, stability: float = 0.8,
-            folds: int = 5, fold_repeats: int = 1, arm_checked: Any = None) -> Comparison:
+            folds: int = 5, fold_repeats: int = 1, arm_checked: Any = None, table: Any = None) -> Comparison:
     """Compare the optimum, the aid's recommendation, candidates and observed rules, with intervals.
 
     Parameters
@@ -456,6 +456,9 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         The randomized arm's check already run on the same scenario's data (it depends on the
         cases alone, not on costs or replicates), so that a caller running several stages on one
         data set runs it once; default: run here.
+    table : DataFrame, optional
+        For a scenario whose data are a risk-level table: the table (with or without draws) as a
+        pandas DataFrame, in place of the file the scenario names.
     """
     from policy.estimation.from_scenario import estimate
     from policy.inputs.scenario import as_scenario
@@ -465,9 +468,12 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
         from policy.assessment.draws_compare import compare_on_table
 
         rl, costs, rules, evaluations, result, notes = compare_on_table(scenario, interval, seed, constraints, outcome_costs,
-                                                                        decision_costs, rules)
+                                                                        decision_costs, rules, table)
         return Comparison(scenario, None, rl, costs, rules, evaluations, result, notes,
                           stability=check_stability(stability, "compare: stability"))
+    if table is not None:
+        raise InputError(f"{scenario.file}: a table given from Python replaces a risk-level table; this scenario's data "
+                         f"are a {scenario.data.kind.replace('_', ' ')}.")
     base: UncertaintySettings = scenario.sections.get("uncertainty") or UncertaintySettings()
     settings = validate_settings(
         base.replicates if replicates is None else replicates,

@@ -98,9 +98,27 @@ def score_draws(rules, point, p_draws: np.ndarray | None, costs: Costs, level: f
     return DrawsResult(pt, reps, B, seed, "draws", level, False, "draws")
 
 
+def _from_frame(table, scenario):
+    """The draws (or None), the point risk levels and the table's rules of a DataFrame."""
+    from policy.decision.table_rules import rules_from_table_frame
+    from policy.estimation.from_scenario import risk_level_draws_from_frame, risk_levels_from_frame
+
+    file = table.attrs.get("file", "risk-level table (DataFrame)")
+    if "draw" in table.columns:
+        draws = risk_level_draws_from_frame(table, scenario, file)
+        rl = draws.point
+        labels = table["draw"].astype(str).str.strip().to_numpy()
+        first = np.flatnonzero(labels == labels[0])
+        rows = table.iloc[first].reset_index(drop=True)
+    else:
+        draws, rows, first = None, table.reset_index(drop=True), np.arange(len(table))
+        rl = risk_levels_from_frame(rows, scenario, file)
+    return draws, rl, rules_from_table_frame(rows, scenario, rl, file, first + 1)
+
+
 def compare_on_table(scenario, interval: float | None = None, seed: int | None = None, constraints: bool = True,
                      outcome_costs: Mapping[str, float] | None = None, decision_costs: Mapping[str, float] | None = None,
-                     rules=()) -> tuple:
+                     rules=(), table=None) -> tuple:
     """Compare rules on a scenario whose data are a risk-level table (with or without draws).
 
     Scores the optimum, the constrained optimum (with ``[[constraints]]``), the candidate rules
@@ -108,6 +126,9 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
     draw. Returns what :class:`policy.assessment.compare.Comparison` is built from (called by
     :func:`policy.assessment.compare.compare`): the risk levels, costs, rules, evaluations,
     the :class:`DrawsResult` and the notes.
+
+    ``table`` (a pandas DataFrame in the layout of the scenario's risk-level table, with or without
+    a ``draw`` column and the optional rule columns) replaces the file the scenario names.
     """
     from policy.decision.candidates import candidate_rules
     from policy.decision.table_rules import table_rules
@@ -120,8 +141,12 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
     base = scenario.sections.get("uncertainty")
     level = (base.interval if base is not None else 0.95) if interval is None else interval
     validate_settings(1, level, "poisson", "compare:")
-    draws = load_risk_level_draws(scenario)
-    rl = draws.point if draws is not None else load_risk_level_table(scenario)
+    if table is None:
+        draws = load_risk_level_draws(scenario)
+        rl = draws.point if draws is not None else load_risk_level_table(scenario)
+        from_table = None
+    else:
+        draws, rl, from_table = _from_frame(table, scenario)
     costs = costs_from_scenario(scenario, rl, outcome_costs, decision_costs)
     optimum = optimal_rule(rl, costs)
     solved = []
@@ -132,7 +157,7 @@ def compare_on_table(scenario, interval: float | None = None, seed: int | None =
         specs = scenario_specs(scenario)
         if specs:
             solved.append(ConstrainedProblem(rl, costs, specs, settings=scenario.sections.get("linear_program")).solve().rule)
-    from_table = table_rules(scenario, rl)
+    from_table = table_rules(scenario, rl) if from_table is None else from_table
     all_rules = ([optimum] + solved + ([from_table.aid] if from_table.aid is not None else [])
                  + candidate_rules(scenario, rl.layout, rl.weights) + list(rules) + from_table.observed)
     names = [r.name for r in all_rules]
