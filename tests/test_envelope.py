@@ -121,3 +121,28 @@ def test_step_function_without_events_and_pieces_from_a_knot():
     edges, values = f.pieces(0.5, 2.0)
     np.testing.assert_array_equal(edges, [0.5, 1.0, 2.0])
     np.testing.assert_array_equal(values[:, 0], [1.0, 3.0])
+
+
+def _three_lines(t, gap):
+    # slopes 1, 0, -1 (levels 0, 1, 2): level 0 meets level 1 at t and level 2 at t + gap, so
+    # level 1 is optimal only on (t, t + 2 gap)
+    return np.array([[0.0, t, 2.0 * (t + gap)]]), np.array([[1.0, 0.0, -1.0]])
+
+
+@pytest.mark.parametrize("t, gap, one_point", [
+    (1e6, 1e-4, True),        # 1e-10 of the crossing: within the relative tolerance (1e-9 of |r|)
+    (1e6, 1e-2, False),       # 1e-8 of it: two breakpoints
+    (1.0, 0.5e-9, True),      # near 0 the tolerance is absolute: 1e-9
+    (1.0, 1.5e-9, False),
+])
+def test_crossings_closer_than_the_tolerance_count_as_one_point(t, gap, one_point):
+    # CONCURRENT_TOLERANCE (policy/assessment/sweep/axes.py): crossings within 1e-9 * max(1, |r|) are one
+    # breakpoint, where the rule takes the most lenient tied level
+    A, B = _three_lines(t, gap)
+    env = lower_envelope(A, B)
+    if one_point:
+        assert env.count[0] == 1 and env.levels[0].tolist() == [0, 2, -1]
+        assert env.breaks[0, 0] == pytest.approx(t, rel=1e-9) and env.at_break[0, 0] == 0
+    else:
+        assert env.count[0] == 2 and env.levels[0].tolist() == [0, 1, 2]
+        np.testing.assert_allclose(env.breaks[0], [t, t + 2 * gap], rtol=1e-15)
