@@ -64,3 +64,11 @@ def test_sweep_writes_the_map_over_draws_and_not_without_them(tmp_path, capsys):
                             "--out", tmp_path / "b"], capsys)
     assert code == 0, err
     assert (tmp_path / "b" / "map_grid.csv").is_file() and not (tmp_path / "b" / "map_draws_grid.csv").exists()
+
+
+def test_a_sweep_on_the_table_carries_the_rules_its_columns_give():
+    result = sweep_scenario(PATH, ["new_offense"], grid_points=20)
+    names = set(result.sweep.regret_table()["rule"])
+    assert {"Quarrow Release Screen recommendation", "courts, Quarrow Release Screen not shown",
+            "courts, Quarrow Release Screen shown"} <= names
+    assert result.bands is not None and result.bands.meta["replicates"] == 50
