@@ -312,6 +312,23 @@ def test_summary_gives_paired_intervals_shares_cheaper_and_stability_from_the_re
         # named before "with the whole ... above zero" exactly when the interval lies above zero
         settled = sentence.split("with the whole")[0] if "with the whole" in sentence else ""
         assert (paired[name][1] > 0) == (f"\u201c{name}\u201d" in settled), (name, sentence)
+    # each rule in exactly one of the three readings, by where its interval lies against zero
+    from policy.presentation.report import summary as summary_module
+
+    cases = {"a": (1.0, 0.5, 2.0, 0.9), "b": (0.1, -1.0, 1.0, 0.5), "c": (-2.0, -3.0, -1.0, 0.0)}
+    from types import SimpleNamespace
+
+    fake = SimpleNamespace(comparison=cmp, compared=[SimpleNamespace(rule=SimpleNamespace(kind="candidate", name=k))
+                                                      for k in cases])
+    original = summary_module.paired_with_recommended
+    summary_module.paired_with_recommended = lambda results: cases
+    try:
+        text = certainty_sentence(fake)
+    finally:
+        summary_module.paired_with_recommended = original
+    assert "costs less than \u201ca\u201d (90%), with the whole" in text
+    assert "against \u201cb\u201d (50%), the interval includes zero" in text
+    assert "\u201cc\u201d (0%) costs less than the recommended rule, with the whole interval below zero" in text
     # stability: the share of replicates whose re-solved rule picks each cell's level again
     again = (np.asarray(cmp.result.replicates["optimal_level"]) == analysis.rule.level[None, :]).mean(axis=0)
     view = stability(results)

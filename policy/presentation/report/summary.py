@@ -212,19 +212,20 @@ def constrained_note(results: ReportResults) -> str:
 
 def certainty_sentence(results: ReportResults) -> str:
     """How sure the comparison is, in one sentence: the rules the recommended one beats in the
-    paired interval, and those it does not (the data do not settle which is cheaper)."""
+    paired interval, those it does not (the data do not settle which is cheaper), and those that
+    beat it (a rule using finer information than the rule cells can cost less)."""
     paired = paired_with_recommended(results)
     if not paired:
         return ""
     cmp = results.comparison
     label, n = cmp.result.interval_label, cmp.result.n_replicates
-    clear, open_ = [], []
+    clear, open_, beaten = [], [], []
     for c in results.compared:
         if c.rule.kind == "optimal" or c.rule.name not in paired:
             continue
         d, lo, hi, share = paired[c.rule.name]
         text = f"\u201c{c.rule.name}\u201d ({fmt_pct(share, 0)})"
-        (clear if lo > 0 else open_).append(text)
+        (clear if lo > 0 else beaten if hi < 0 else open_).append(text)
     parts = []
     if clear:
         parts.append("the recommended rule costs less than " + _join(clear) + ", with the whole " + label
@@ -233,6 +234,9 @@ def certainty_sentence(results: ReportResults) -> str:
         parts.append(("against " if parts else "the recommended rule's difference from ") + _join(open_)
                      + (", the interval" if parts else " has an interval that") + " includes zero: the data do not settle "
                      "which is cheaper")
+    if beaten:
+        parts.append(_join(beaten) + " cost" + ("s" if len(beaten) == 1 else "") + " less than the recommended rule, "
+                     "with the whole interval below zero (a rule using finer information than the rule cells can)")
     return (f"How sure: at the scenario's costs, {'; '.join(parts)}. In brackets, the share of the {n} bootstrap "
             "replicates in which the recommended rule is cheaper; every rule is scored in the same replicates.")
 
