@@ -123,9 +123,9 @@ def test_report_shows_the_rules_that_hold_under_doubt(small_case_table):
     keys = [s.key for s in report.sections]
     assert keys.index("under-doubt") == keys.index("comparison") + 1
     assert report.results.analysis.arm_check.headline() in html
-    # the arm check's box after the cautions points to the section
-    box = html[html.index('id="arm-check"'):html.index("</section>", html.index('id="arm-check"'))]
-    assert 'href="#under-doubt"' in box
+    # the arm check in full points to the section
+    full = html[html.index('id="arm-check-full"'):html.index("</section>", html.index('id="arm-check-full"'))]
+    assert 'href="#under-doubt"' in full
     # and the ladder of sets, as written to doubt_ladder.csv
     ladder = report.files["doubt_ladder.csv"]
     assert "Where each conclusion stops holding" in html and list(ladder["set"])[-1] == "monotone bounds"
