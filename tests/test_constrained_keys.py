@@ -71,3 +71,24 @@ def test_principal_fairness_at_chosen_risk_levels(seed, levels):
     assert constraint_violation(rl, columns, at_one, cell_delta) <= 1e-7
     # ... and not at every risk level (otherwise the key made no difference)
     assert constraint_violation(rl, columns, base, cell_delta) > 1e-4
+
+
+@pytest.mark.parametrize("seed", [1, 4])
+def test_outcome_cap_holds_the_expected_rate_where_it_binds(seed):
+    rl, costs, columns = random_instance(seed, n_scores=3, n_buckets=3, n_groups=2)
+    index, _ = rl.layout.rule_index(columns)
+    W = rl.weights.sum()
+
+    def rate(delta_rule_cells):
+        """Expected rate of outcome o0, case-weighted, from rule-cell decision probabilities."""
+        return float((rl.weights[:, None] * delta_rule_cells[index] * rl.p[:, 0, :]).sum() / W)
+
+    free = rate(optimal_rule(rl, costs, columns).delta)
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
+    assert free > harshest + 1e-3
+    cap = round(0.5 * (free + harshest), 6)  # reachable, and below the free optimum's rate
+    spec = {"kind": "outcome_cap", "outcome": "o0", "max_rate": cap}
+    lp = ConstrainedProblem(rl, costs, [spec], columns=columns).solve_lp()
+    expected, ref_delta = reference_solve(rl, costs, columns, [spec])
+    assert expected is not None and rel_close(lp.cost_per_case, expected)
+    assert rate(lp.delta) == pytest.approx(cap, rel=1e-6) and rate(ref_delta) == pytest.approx(cap, rel=1e-6)
