@@ -92,3 +92,25 @@ def test_outcome_cap_holds_the_expected_rate_where_it_binds(seed):
     expected, ref_delta = reference_solve(rl, costs, columns, [spec])
     assert expected is not None and rel_close(lp.cost_per_case, expected)
     assert rate(lp.delta) == pytest.approx(cap, rel=1e-6) and rate(ref_delta) == pytest.approx(cap, rel=1e-6)
+
+
+@pytest.mark.parametrize("seed", [0, 3])
+def test_principal_fairness_skips_a_risk_level_one_group_lacks(seed):
+    # in group g1 level L1 prevents nothing (p at L0 = p at L1), so risk level 1 holds no case of
+    # that group: its comparisons cannot be made and are skipped with a note; the rule is the one
+    # found when risk level 1 is not asked for at all
+    rl, costs, columns = random_instance(seed, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    p = rl.p.copy()
+    g1 = rl.layout.codes("group") == 1
+    p[g1, 0, 1] = p[g1, 0, 0]
+    rl = rl.with_p(p)
+    assert (rl.q[g1, 0, 1] == 0).all() and (rl.q[~g1, 0, 1] > 0).all()
+    base = {"kind": "principal_fairness", "outcome": "o0", "tolerance": 0.02, "name": "pf"}
+    every = ConstrainedProblem(rl, costs, [base], columns=columns).solve_lp()
+    without = ConstrainedProblem(rl, costs, [dict(base, risk_levels=[0, 2, 3])], columns=columns).solve_lp()
+    assert rel_close(every.cost_per_case, without.cost_per_case, 1e-9)
+    # two thresholds (L1, L2) of one pair of groups at one risk level
+    notes = ConstrainedProblem(rl, costs, [base], columns=columns).solve(sensitivity=False).notes
+    assert "pf: 2 comparisons skipped: a group has no cases in the risk level." in notes
+    expected, _ = reference_solve(rl, costs, columns, [dict(base, risk_levels=[0, 2, 3])])
+    assert rel_close(every.cost_per_case, expected)
