@@ -114,3 +114,17 @@ def test_principal_fairness_skips_a_risk_level_one_group_lacks(seed):
     assert "pf: 2 comparisons skipped: a group has no cases in the risk level." in notes
     expected, _ = reference_solve(rl, costs, columns, [dict(base, risk_levels=[0, 2, 3])])
     assert rel_close(every.cost_per_case, expected)
+
+
+def test_group_blind_on_rule_columns_without_the_attribute_changes_nothing():
+    # the rule columns (score, bucket) hold no protected attribute: the rule is blind already, the
+    # constraint adds no row, says so, and the optimum is the unconstrained one
+    rl, costs, columns = random_instance(2, n_scores=3, n_buckets=2, n_groups=2, aware=False)
+    spec = {"kind": "group_blind", "name": "blind"}
+    problem = ConstrainedProblem(rl, costs, [spec], columns=columns)
+    free = ConstrainedProblem(rl, costs, [], columns=columns)
+    A, lower, upper = problem.rows()
+    assert A.shape == free.rows()[0].shape
+    assert rel_close(problem.solve_lp().cost_per_case, free.solve_lp().cost_per_case, 1e-12)
+    notes = problem.solve(sensitivity=False).notes
+    assert "blind: already blind: the rule columns hold no protected attribute it names." in notes
