@@ -538,6 +538,6 @@ def test_demo_constrained_scenario_meets_the_committee_demands(tmp_path, capsys)
 
 def test_demo_constrained_shares_data_columns_and_costs_with_demo():
     demo, constrained = load_scenario(SCENARIOS / "demo.toml"), load_scenario(DEMO_CONSTRAINED)
-    for section in ("data", "columns", "decisions", "outcomes", "costs", "aid", "estimator"):
+    for section in ("data", "columns", "decisions", "outcomes", "cost_library", "costs", "aid", "estimator"):
         assert demo.raw[section] == constrained.raw[section], section
     assert demo.covariates == constrained.covariates and demo.protected == constrained.protected

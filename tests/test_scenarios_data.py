@@ -14,5 +14,5 @@ def test_committed_data_match_the_generating_script(tmp_path):
     module = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(module)
     for fresh in module.build(tmp_path):
-        committed = pd.read_csv(SCENARIOS / "data" / fresh.name)
-        pd.testing.assert_frame_equal(pd.read_csv(fresh), committed, check_exact=False, rtol=1e-7, atol=1e-8)
+        committed = pd.read_csv(SCENARIOS / "data" / fresh.name, low_memory=False)
+        pd.testing.assert_frame_equal(pd.read_csv(fresh, low_memory=False), committed, check_exact=False, rtol=1e-7, atol=1e-8)
