@@ -91,7 +91,8 @@ def test_every_number_has_a_source_or_says_assumption(demo_sheet):
     assert (unsourced["source"].str.len() > 10).all()
     bond = sheet.costs.set_index("key").loc["bond"]
     assert bond["range_of"] == "factor" and bond["low_factor"] < 1 < bond["high_factor"]
-    assert "agree with the build" in bond["note"]
+    assert bond["note"] == "the data's per-case costs agree with the build for every charge"  # [cells] labels
+    assert bond["arithmetic"].startswith("charge misdemeanor: 6 x (85 + 11) + 2,500 = 3,076; charge felony:")
     offense = sheet.costs.set_index("key").loc["new_offense"]
     assert offense["provenance"] == "secondary" and "3,532 x 1.457" in offense["arithmetic"]
     assert "states 5,146; its build comes to 5,146.12" in offense["note"]

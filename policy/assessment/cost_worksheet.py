@@ -228,9 +228,10 @@ def cost_worksheet(scenario: Any, risk_levels: RiskLevels, costs: Costs, columns
             provenance = max(flags, key=lambda f: _STRENGTH.get(f, len(FLAGS))) if flags else "assumption"
             sources = "; ".join(f"{c.key}: {c.source} ({c.provenance})" for c in build.components)
             years = "; ".join(f"{c.key}: {c.price_note}" for c in build.components if c.year is not None)
-            built_from, arithmetic = build_text(build)
+            by_label = None if build.by is None else scenario.column_label(build.by)
+            built_from, arithmetic = build_text(build, by_label)
             if build.by is not None:
-                note = _by_check(build, risk_levels, costs.decision[:, i])
+                note = _by_check(build, risk_levels, costs.decision[:, i], by_label)
             elif abs(build.value - value) > 1e-9 * max(1.0, value):
                 note = f"the scenario states {fmt_amount(value)}; its build comes to {fmt_amount(build.value)}"
         else:
@@ -256,14 +257,15 @@ def cost_worksheet(scenario: Any, risk_levels: RiskLevels, costs: Costs, columns
                          None if library is None else library.price_year)
 
 
-def build_text(build) -> tuple[str, str]:
-    """A build's expression(s) and its arithmetic, for a table."""
+def build_text(build, by_label: str | None = None) -> tuple[str, str]:
+    """A build's expression(s) and its arithmetic, for a table (classes named by ``by_label``)."""
     if build.by is None:
         return build.parts[0][1].expression, build.parts[0][1].arithmetic
-    return ("; ".join(f"{build.by} {name}: {b.expression}" for name, b in build.parts), build.describe())
+    label = by_label or build.by
+    return ("; ".join(f"{label} {name}: {b.expression}" for name, b in build.parts), build.describe(label))
 
 
-def _by_check(build, risk_levels: RiskLevels, cell_cost: np.ndarray) -> str:
+def _by_check(build, risk_levels: RiskLevels, cell_cost: np.ndarray, by_label: str | None = None) -> str:
     """Whether the data's per-cell costs agree with a build by class (case-weighted means)."""
     frame = risk_levels.layout.frame
     if build.by not in frame.columns:
@@ -280,7 +282,7 @@ def _by_check(build, risk_levels: RiskLevels, cell_cost: np.ndarray) -> str:
             off.append(f"{name}: data {fmt_amount(mean)}, build {fmt_amount(built.value)}")
     if off:
         return "the data's per-case costs differ from the build (" + "; ".join(off) + ")"
-    return f"the data's per-case costs agree with the build for every {build.by}"
+    return f"the data's per-case costs agree with the build for every {by_label or build.by}"
 
 
 def worksheet_scenario(scenario: Any, outcome_costs: Mapping[str, float] | None = None,

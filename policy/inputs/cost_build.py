@@ -94,11 +94,12 @@ class CostBuild:
                 seen.setdefault(c.key, c)
         return tuple(seen.values())
 
-    def describe(self) -> str:
-        """The arithmetic in one line (``by`` builds: one clause per class)."""
+    def describe(self, by_label: str | None = None) -> str:
+        """The arithmetic in one line (``by`` builds: one clause per class, each named by
+        ``by_label``, the cell column's display name, or else the column itself)."""
         if self.by is None:
             return self.parts[0][1].arithmetic
-        return "; ".join(f"{self.by} {name}: {built.arithmetic}" for name, built in self.parts)
+        return "; ".join(f"{by_label or self.by} {name}: {built.arithmetic}" for name, built in self.parts)
 
 
 @dataclass(frozen=True)
