@@ -55,6 +55,8 @@ MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "one_ratio": ("policy/assessment/sweep/one_ratio.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
     "two_ratio": ("policy/assessment/sweep/two_ratio.py", ("tests/test_sweep.py",)),
     "regions": ("policy/assessment/sweep/regions.py", ("tests/test_sweep.py",)),
+    "bands": ("policy/assessment/sweep/bands.py", ("tests/test_bands.py", "tests/test_sweep.py")),
+    "sweep_constrained": ("policy/assessment/sweep/constrained.py", ("tests/test_sweep_constrained.py",)),
     "rules": ("policy/decision/rules.py", ("tests/test_solve.py", "tests/test_evaluate.py")),
     "problem": ("policy/decision/constrained/problem.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
 }
