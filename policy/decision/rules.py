@@ -7,6 +7,7 @@ is a :class:`Rule`, so one evaluation serves them all.
 
 from __future__ import annotations
 
+import html
 from dataclasses import dataclass
 
 import numpy as np
@@ -125,4 +126,4 @@ class Rule:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        return f"<p><b>{self.name}</b></p>" + self.to_frame().to_html(index=False)
+        return f"<p><b>{html.escape(self.name)}</b></p>" + self.to_frame().to_html(index=False)
