@@ -51,7 +51,7 @@ from policy.assessment.crossfit import check_folds, cross_fit
 from policy.assessment.paired import cost_matrix, paired_differences, paired_figures
 from policy.assessment.stability import STABILITY, check_stability, level_shares, stability_frame, unstable_lines
 from policy.assessment.scoring import ComparisonStatistic, ConstrainedSolver, RuleSolver, _tail, score_rules  # noqa: F401
-from policy.assessment.uncertainty import BootstrapResult, TaskRunner, UncertaintySettings, bootstrap, validate_settings
+from policy.assessment.uncertainty import BootstrapResult, TaskRunner, bootstrap, scenario_settings
 
 __all__ = [
     "CandidateSpec",
@@ -474,14 +474,7 @@ def compare(scenario, replicates: int | None = None, seed: int | None = None, re
     if table is not None:
         raise InputError(f"{scenario.file}: a table given from Python replaces a risk-level table; this scenario's data "
                          f"are a {scenario.data.kind.replace('_', ' ')}.")
-    base: UncertaintySettings = scenario.sections.get("uncertainty") or UncertaintySettings()
-    settings = validate_settings(
-        base.replicates if replicates is None else replicates,
-        base.interval if interval is None else interval,
-        base.resampling if resampling is None else resampling,
-        "compare:",
-        base.outcomes if outcomes is None else outcomes,
-    )
+    settings = scenario_settings(scenario, "compare:", replicates, interval, resampling, outcomes)
     stability = check_stability(stability, "compare: stability")
     folds = check_folds(folds, "compare: folds")
     if isinstance(fold_repeats, bool) or not isinstance(fold_repeats, (int, np.integer)) or fold_repeats < 1:

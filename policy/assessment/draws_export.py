@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from policy.assessment.uncertainty import OnRiskLevels, UncertaintySettings, bootstrap, validate_settings
+from policy.assessment.uncertainty import OnRiskLevels, bootstrap, scenario_settings
 from policy.estimation.draws import risk_level_draws_frame
 from policy.estimation.strata import RiskLevelEstimator
 from policy.estimation.world import outcome_world
@@ -74,11 +74,7 @@ def bootstrap_draws_table(scenario, replicates: int | None = None, seed: int | N
     scenario = as_scenario(scenario)
     if scenario.data.kind == "risk_level_table":
         raise InputError(f"{scenario.file}: its data are already a risk-level table; bootstrap replicates need the cases.")
-    base: UncertaintySettings = scenario.sections.get("uncertainty") or UncertaintySettings()
-    settings = validate_settings(
-        base.replicates if replicates is None else replicates, base.interval,
-        base.resampling if resampling is None else resampling, "draws table:",
-        base.outcomes if outcomes is None else outcomes)
+    settings = scenario_settings(scenario, "draws table:", replicates, None, resampling, outcomes)
     if settings.replicates < 1:
         raise InputError(f"draws table: replicates must be at least 1; got {settings.replicates!r}.")
     cells, rl = estimate(scenario)

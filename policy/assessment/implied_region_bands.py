@@ -115,7 +115,7 @@ def implied_region_scenario(scenario: Any, ratios: Sequence[str], ranges: Sequen
     from policy.estimation.strata import RiskLevelEstimator
     from policy.inputs.scenario import as_scenario
     from policy.assessment.sweep.axes import default_range, ratio_axis
-    from policy.assessment.uncertainty import UncertaintySettings, validate_settings
+    from policy.assessment.uncertainty import scenario_settings
 
     scenario = as_scenario(scenario)
     if len(ratios) != 2:
@@ -130,11 +130,7 @@ def implied_region_scenario(scenario: Any, ratios: Sequence[str], ranges: Sequen
     box = [tuple(r) if r is not None else default_range(a, "linear") for r, a in zip(ranges, axes)]
     rules = observed_rules(cells, scenario.aid.name, scenario.level_labels)
     out = implied_region_costs(rl, costs, axes, rules, box)
-    base = scenario.sections.get("uncertainty") or UncertaintySettings()
-    u = validate_settings(base.replicates if replicates is None else replicates,
-                          base.interval if interval is None else interval,
-                          base.resampling if resampling is None else resampling, "implied region:",
-                          base.outcomes if outcomes is None else outcomes)
+    u = scenario_settings(scenario, "implied region:", replicates, interval, resampling, outcomes)
     if u.replicates > 0:
         out = implied_region_bands(cells, rl, costs, out, RiskLevelEstimator.from_scenario(scenario), u.replicates,
                                    scenario.seed if seed is None else seed, u.resampling, u.interval, u.outcomes,

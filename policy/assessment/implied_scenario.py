@@ -42,13 +42,9 @@ def implied_scenario(scenario: Any, ratio: str, per: str | None = None, lo: floa
     axis = ratio_axis(rl, costs, ratio, per)
     rules = observed_rules(cells, scenario.aid.name, scenario.level_labels)
     out = implied_costs(rl, costs, axis, rules, lo=lo, hi=hi)
-    from policy.assessment.uncertainty import UncertaintySettings, validate_settings
+    from policy.assessment.uncertainty import scenario_settings
 
-    base = scenario.sections.get("uncertainty") or UncertaintySettings()
-    u = validate_settings(base.replicates if replicates is None else replicates,
-                          base.interval if interval is None else interval,
-                          base.resampling if resampling is None else resampling, "implied costs:",
-                          base.outcomes if outcomes is None else outcomes)
+    u = scenario_settings(scenario, "implied costs:", replicates, interval, resampling, outcomes)
     if u.replicates > 0:
         from policy.assessment.implied_bands import implied_bands
         from policy.estimation.strata import RiskLevelEstimator

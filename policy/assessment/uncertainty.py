@@ -166,6 +166,17 @@ def validate_settings(replicates: int, interval: float, resampling: str, where: 
 register_section("[uncertainty]", UNCERTAINTY_KEYS, _parse_uncertainty)
 
 
+def scenario_settings(scenario: Any, where: str, replicates: int | None = None, interval: float | None = None,
+                      resampling: str | None = None, outcomes: str | None = None) -> UncertaintySettings:
+    """The scenario's ``[uncertainty]`` settings with every argument that is not None put in
+    their place, checked (messages name ``where``)."""
+    base = scenario.sections.get("uncertainty") or UncertaintySettings()
+    return validate_settings(base.replicates if replicates is None else replicates,
+                             base.interval if interval is None else interval,
+                             base.resampling if resampling is None else resampling, where,
+                             base.outcomes if outcomes is None else outcomes)
+
+
 # ----------------------------------------------------------------------------------------------
 # Resampled counts
 # ----------------------------------------------------------------------------------------------

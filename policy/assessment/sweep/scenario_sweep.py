@@ -298,13 +298,9 @@ def sweep_scenario(scenario, ratios: Sequence[str], ranges: Sequence[Sequence[fl
     step("estimated risk levels")
     u = None  # bootstrap settings, checked before any long computation
     if cells is not None and len(ratios) == 1:
-        from policy.assessment.uncertainty import UncertaintySettings, validate_settings
+        from policy.assessment.uncertainty import scenario_settings
 
-        base = scenario.sections.get("uncertainty") or UncertaintySettings()
-        u = validate_settings(base.replicates if replicates is None else replicates,
-                              base.interval if interval is None else interval,
-                              base.resampling if resampling is None else resampling, "sweep:",
-                              base.outcomes if outcomes is None else outcomes)
+        u = scenario_settings(scenario, "sweep:", replicates, interval, resampling, outcomes)
     elif cells is None and replicates and not _has_draws(scenario):
         raise InputError(f"{scenario.file}: bootstrap bands need the cases behind the estimates (a case or counts "
                          "table, or the simulator) or draws in the risk-level table (a 'draw' column); this risk-level "
