@@ -64,6 +64,21 @@ class ImpliedReplicates:
         return {"r_lo": r_lo, "r_hi": r_hi}
 
 
+def replicate_subsets(cells, risk_levels: RiskLevels, table, what: str):
+    """What implied-cost replicates score: the rule cell of each cell of the risk levels and the
+    number of rule cells, the same over the cell table's cells (to fill the observed rules), and
+    the subsets of cases (all, then each protected group), checked against ``table``'s rows
+    (one per arm and subset)."""
+    index, groups = risk_levels.layout.rule_index()
+    fill_index, fill_groups = cells.layout.rule_index()
+    masks = [np.ones(len(risk_levels.weights), dtype=bool)] + [m for _, _, m in protected_groups(risk_levels)]
+    n_arms = len(cells.arms)
+    if len(table) != n_arms * len(masks):
+        raise InputError(f"the {what} table has {len(table)} rows; the bootstrap expects one per arm ({n_arms}) and "
+                         f"subset of cases ({len(masks)}): compute it from the observed rules with the groups.")
+    return index, len(groups), fill_index, len(fill_groups), masks
+
+
 def implied_bands(cells, risk_levels: RiskLevels, costs: Costs, implied: ImpliedCosts, estimator, replicates: int,
                   seed: int | None, method: str = "poisson", level: float = 0.95, outcomes: str = "model",
                   workers: int | None = None, runner=None, progress: bool = False) -> ImpliedCosts:
@@ -77,15 +92,10 @@ def implied_bands(cells, risk_levels: RiskLevels, costs: Costs, implied: Implied
     """
     from policy.assessment.uncertainty import OnRiskLevels, bootstrap
 
-    index, groups = risk_levels.layout.rule_index()
-    fill_index, fill_groups = cells.layout.rule_index()
-    masks = [np.ones(len(risk_levels.weights), dtype=bool)] + [m for _, _, m in protected_groups(risk_levels)]
-    n_arms = len(cells.arms)
     table = implied.table.copy()
-    if len(table) != n_arms * len(masks):
-        raise InputError(f"the implied table has {len(table)} rows; the bootstrap expects one per arm ({n_arms}) and "
-                         f"subset of cases ({len(masks)}): compute it from the observed rules with the groups.")
-    statistic = OnRiskLevels(ImpliedReplicates(costs, implied.axis, index, len(groups), fill_index, len(fill_groups),
+    index, n_groups, fill_index, n_fill, masks = replicate_subsets(cells, risk_levels, table, "implied")
+    n_arms = len(cells.arms)
+    statistic = OnRiskLevels(ImpliedReplicates(costs, implied.axis, index, n_groups, fill_index, n_fill,
                                                masks, implied.lo, implied.hi),
                              estimator, estimator.design(cells.layout, len(cells.levels)))
     result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,

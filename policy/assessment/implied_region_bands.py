@@ -22,7 +22,8 @@ import numpy as np
 from policy.decision.candidates import observed_delta
 from policy.decision.costs import Costs
 from policy.errors import InputError
-from policy.assessment.implied import protected_groups
+from policy.estimation.world import outcome_world
+from policy.assessment.implied_bands import replicate_subsets
 from policy.assessment.implied_region import ImpliedRegionCosts, implied_region, implied_region_costs
 from policy.assessment.sweep.axes import RatioAxis
 from policy.assessment.sweep.bands import centred_interval
@@ -69,20 +70,15 @@ def implied_region_bands(cells, risk_levels, costs: Costs, implied: ImpliedRegio
     ``ratio{i}_low_lower``, ``ratio{i}_high_upper`` and the same in cost, for i = 1, 2."""
     from policy.assessment.uncertainty import OnRiskLevels, bootstrap
 
-    index, groups = risk_levels.layout.rule_index()
-    fill_index, fill_groups = cells.layout.rule_index()
-    masks = [np.ones(len(risk_levels.weights), dtype=bool)] + [m for _, _, m in protected_groups(risk_levels)]
-    n_arms = len(cells.arms)
     table = implied.table.copy()
-    if len(table) != n_arms * len(masks):
-        raise InputError(f"the implied-region table has {len(table)} rows; the bootstrap expects one per arm "
-                         f"({n_arms}) and subset of cases ({len(masks)}).")
-    statistic = OnRiskLevels(ImpliedRegionReplicates(costs, implied.axes, index, len(groups), fill_index,
-                                                     len(fill_groups), masks, implied.box),
+    index, n_groups, fill_index, n_fill, masks = replicate_subsets(cells, risk_levels, table, "implied-region")
+    n_arms = len(cells.arms)
+    statistic = OnRiskLevels(ImpliedRegionReplicates(costs, implied.axes, index, n_groups, fill_index,
+                                                     n_fill, masks, implied.box),
                              estimator, estimator.design(cells.layout, len(cells.levels)))
     result = bootstrap(cells, statistic, replicates, seed, method, level, runner=runner, workers=workers,
                        progress=progress, description="implied region: bootstrap replicates",
-                       outcome_model=risk_levels.p if outcomes == "model" else None)
+                       outcome_model=outcome_world(estimator, cells, outcomes))
     shape = (n_arms, len(masks))
     for i, axis in enumerate(implied.axes):
         lo_point = table[f"ratio{i + 1}_low"].to_numpy(dtype=np.float64).reshape(shape)
