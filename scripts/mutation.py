@@ -43,14 +43,23 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 
-#: module key -> (file to mutate, the fast test files that check it)
+#: the fast tests of the constrained LP (test_constrained.py's property tests run 1,000 examples each)
+_CONSTRAINED_FAST = (
+    "tests/test_constrained_keys.py",
+    "tests/test_constrained.py::test_random_optimum_matches_independent_linprog",
+    "tests/test_constrained.py::test_statistical_parity_gives_a_threshold_per_group",
+    "tests/test_constrained.py::test_unconstrained_optimum_is_one_threshold_on_risk_for_everyone",
+)
+
+#: module key -> (file to mutate, the fast test files or test ids that check it)
 MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "solve": ("policy/decision/solve.py", ("tests/test_solve.py",)),
     "costs": ("policy/decision/costs.py", ("tests/test_solve.py",)),
     "bounds": ("policy/estimation/bounds.py", ("tests/test_bounds.py",)),
     "evaluate": ("policy/decision/evaluate.py", ("tests/test_evaluate.py",)),
     "strata": ("policy/estimation/strata.py", ("tests/test_strata.py", "tests/test_strata_edges.py", "tests/test_risk_level_tables.py")),
-    "constraints": ("policy/decision/constraints.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
+    "constraints": ("policy/decision/constraints.py", ("tests/test_constraint_rows.py", "tests/test_constraint_specs.py",
+                                                       *_CONSTRAINED_FAST)),
     "envelope": ("policy/assessment/sweep/envelope.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
     "one_ratio": ("policy/assessment/sweep/one_ratio.py", ("tests/test_sweep.py", "tests/test_envelope.py")),
     "two_ratio": ("policy/assessment/sweep/two_ratio.py", ("tests/test_sweep.py",)),
@@ -58,7 +67,10 @@ MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "bands": ("policy/assessment/sweep/bands.py", ("tests/test_bands.py", "tests/test_sweep.py")),
     "sweep_constrained": ("policy/assessment/sweep/constrained.py", ("tests/test_sweep_constrained.py",)),
     "rules": ("policy/decision/rules.py", ("tests/test_solve.py", "tests/test_evaluate.py")),
-    "problem": ("policy/decision/constrained/problem.py", ("tests/test_constrained.py", "tests/test_constrained_keys.py")),
+    "problem": ("policy/decision/constrained/problem.py", ("tests/test_constrained_problem.py", *_CONSTRAINED_FAST)),
+    "cumulative": ("policy/decision/constrained/cumulative.py", ("tests/test_constrained_cumulative.py",)),
+    "program": ("policy/decision/constrained/program.py", ("tests/test_constrained_problem.py", *_CONSTRAINED_FAST)),
+    "elastic": ("policy/decision/constrained/elastic.py", ("tests/test_constrained_problem.py",)),
 }
 DEFAULT = ("solve", "costs", "bounds")
 

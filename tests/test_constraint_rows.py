@@ -75,6 +75,13 @@ def parity_cells():
     return _risk_levels(PARITY_CELLS, PARITY_COLUMNS, ["group"], ["score", "kind"])
 
 
+def test_the_names_risk_levels_offer(parity_cells):
+    vocab = Vocabulary.of_risk_levels(parity_cells)
+    assert vocab == Vocabulary(VALUES, LABELS, OUTCOMES, ("group",), ("score", "kind", "group"), ("score", "kind"), "score")
+    assert Vocabulary.of_risk_levels(parity_cells, ["kind"]).rule_columns == ("kind",)
+    assert Vocabulary.of_risk_levels(parity_cells, []).rule_columns == ()
+
+
 def test_statistical_parity_rows_labels_and_skipped_pairs(parity_cells):
     rl, columns = parity_cells, ("score", "kind")
     table = {"kind": "statistical_parity", "tolerance": 0.1}

@@ -88,6 +88,10 @@ BAD = [
      f"c.toml: key 'max_rate' in {W} must be in 0..1 (a probability); got 1.25."),
     ({"kind": "outcome_cap", "outcome": "new", "max_rate": -0.5},
      f"c.toml: key 'max_rate' in {W} must be in 0..1 (a probability); got -0.5."),
+    ({"kind": "capacity", "cap": 3}, (f"c.toml: unknown key 'cap' in {W}; expected one of: at_least, attribute, kind, "
+                                     "max_cases, max_rate, max_share, name, outcome, risk_levels, score, thresholds, tolerance, within.")),
+    ({"kind": "capacity", "max_share": "abc"}, f"c.toml: key 'max_share' in {W} must be a number; got 'abc'."),
+    ("capacity", f"c.toml: {W} must be a table; got str 'capacity'."),
     ({"kind": "monotone", "score": "sex"},
      f"c.toml: {W} (kind 'monotone'): the score 'sex' is not a rule column; expected one of: score, charge, group."),
 ]
@@ -184,6 +188,8 @@ def test_constraint_text_of_the_command_line():
     assert parse_constraint_text("tolerance=abc,risk_levels=x|2,at_least=2,max_cases=40") == \
         {"tolerance": "abc", "risk_levels": ["x", 2], "at_least": "2", "max_cases": 40.0}
     assert parse_constraint_text("risk_levels=1.5") == {"risk_levels": ["1.5"]}
+    # list items are numbers only where the key lists integers; a value may hold "="
+    assert parse_constraint_text("thresholds=2|3,name=cap=8%") == {"thresholds": ["2", "3"], "name": "cap=8%"}
     for text, part in (("kind", "kind"), ("kind=capacity,=3", "=3")):
         with pytest.raises(InputError) as info:
             parse_constraint_text(text)
@@ -209,6 +215,8 @@ def test_short_options_of_the_command_line():
         {"kind": "capacity", "at_least": "cond", "max_share": 0.5},
         {"kind": "outcome_cap", "outcome": "fta", "max_rate": 0.3}]
     for kw, text in (({"max_share": ["bond"]}, "--max-share 'bond' must look like NAME=NUMBER, e.g. --max-share bond=0.15."),
+                     ({"max_share": ["bond=x=0.1"]},
+                      "--max-share 'bond=x=0.1' must look like NAME=NUMBER, e.g. --max-share bond=0.15."),
                      ({"max_share": ["bond=x"]}, "--max-share 'bond=x' must look like NAME=NUMBER, e.g. --max-share bond=0.15."),
                      ({"max_rate": [" =0.2"]}, "--max-rate ' =0.2' must look like NAME=NUMBER, e.g. --max-rate new_offense=0.02."),
                      ({"principal_fairness": ["new"]},
@@ -243,6 +251,15 @@ def test_scenario_constraints_then_added_ones(constrained_scenario):
     assert str(info.value) == "demo_constrained.toml: two constraints are named 'at most 15% held'; give each its own 'name'."
 
 
+def test_the_names_a_scenario_offers(constrained_scenario):
+    s = constrained_scenario
+    vocab = Vocabulary.of_scenario(s)
+    assert vocab == Vocabulary(s.level_values, s.level_labels, s.outcome_keys, s.protected, s.cell_columns,
+                               s.rule_covariates, "aid_tier", "demo_constrained.toml")
+    assert vocab.cell_columns == ("age_band", "charge_class", "prior_record", "pending_case", "aid_tier", "sex", "race_group")
+    assert vocab.rule_columns == ("aid_tier", "charge_class", "sex", "race_group")
+
+
 def test_scenario_file_constraints_checked_where_they_are_read(tmp_path):
     text = (SCENARIOS / "demo_constrained.toml").read_text(encoding="utf-8")
     twice = tmp_path / "twice.toml"
@@ -251,6 +268,14 @@ def test_scenario_file_constraints_checked_where_they_are_read(tmp_path):
         load_scenario(twice)
     assert str(info.value) == "twice.toml: two constraints are named 'at most 15% held'; give each its own 'name'."
     not_array = tmp_path / "flat.toml"
+    # a constraint without a name is named by its position in the file
+    unnamed = tmp_path / "unnamed.toml"
+    unnamed.write_text(text + '\n[[constraints]]\nkind = "outcome_cap"\noutcome = "new_offense"\nmax_rate = 0.3\n', encoding="utf-8")
+    assert load_scenario(unnamed).sections["constraints"][3].name == "#4 outcome_cap"
+    unnamed.write_text(text + '\n[[constraints]]\nkind = "outcome_cap"\noutcome = "new_offense"\n', encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        load_scenario(unnamed)
+    assert str(info.value).startswith("unnamed.toml: missing key 'max_rate' in [[constraints]] #4 (kind 'outcome_cap')")
     plain = (SCENARIOS / "demo.toml").read_text(encoding="utf-8")
     not_array.write_text("constraints = 3\n" + plain, encoding="utf-8")
     with pytest.raises(InputError) as info:
