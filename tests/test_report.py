@@ -343,6 +343,16 @@ def test_summary_gives_paired_intervals_shares_cheaper_and_stability_from_the_re
     none = ReportResults(analysis, tuple(compared_rules(compare(analysis.scenario, replicates=0))),
                          comparison=compare(analysis.scenario, replicates=0))
     assert paired_with_recommended(none) == {} and stability(none) is None and certainty_sentence(none) == ""
+    # the recommended rule's interval allowing for its choice: comparison.csv's columns, in words
+    from policy.presentation.report.formatting import DIGITS, fmt_num
+    from policy.presentation.report.summary import chosen_interval_text
+
+    row = cmp.comparison_frame().iloc[0]
+    lo, hi = row["cost_per_1000_cases_chosen_lower"], row["cost_per_1000_cases_chosen_upper"]
+    assert lo < hi
+    assert (f"cases lies in {fmt_num(lo, DIGITS['cost'])} to {fmt_num(hi, DIGITS['cost'])} ({cmp.result.interval_label})"
+            in chosen_interval_text(results))
+    assert chosen_interval_text(none) == ""
 
 
 def test_every_sweep_figure_has_a_table_agreeing_with_a_direct_solve():

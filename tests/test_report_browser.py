@@ -494,7 +494,9 @@ def test_a_cost_slider_and_the_figures_it_moves_are_in_view_together(demo_page, 
     # the shares of replicates and the stability notes hold at the scenario's costs only: gone here
     texts = lambda kind: [t.strip() for t in page.locator(f'[data-live="{kind}"]').all_inner_texts()]
     assert texts("sum-cheaper") and not any(texts("sum-cheaper")) and not any(texts("grid-stability"))
+    assert texts("sum-chosen") == [""]  # the interval allowing for the rule's choice: at the scenario's costs only
     page.locator("#reset-costs").click()
+    assert texts("sum-chosen")[0].startswith("Allowing for its having been chosen on these data")
     assert all(t.startswith("recommended cheaper in ") for t in texts("sum-cheaper"))
     assert all(t.startswith("\u00b7 picked again in ") for t in texts("grid-stability")) and texts("grid-stability")
 

@@ -140,6 +140,22 @@ def paired_with_recommended(results: ReportResults) -> dict[str, tuple[float, fl
             for r in frame.itertuples(index=False)}
 
 
+def chosen_interval_text(results: ReportResults) -> str:
+    """The recommended rule's cost interval that allows for its having been chosen on the same
+    data (:mod:`policy.assessment.selection`), in one sentence; empty without replicates."""
+    cmp = results.comparison
+    if cmp is None or not cmp.result.n_replicates:
+        return ""
+    row = cmp.comparison_frame().iloc[0]  # the optimum comes first
+    lo, hi = row.get("cost_per_1000_cases_chosen_lower", np.nan), row.get("cost_per_1000_cases_chosen_upper", np.nan)
+    if not (np.isfinite(lo) and np.isfinite(hi)):
+        return ""
+    return (f"Allowing for its having been chosen on these data, the recommended rule's expected cost per 1,000 "
+            f"cases lies in {fmt_num(lo, DIGITS['cost'])} to {fmt_num(hi, DIGITS['cost'])} ({cmp.result.interval_label});"
+            f" the {fmt_num(row['cost_per_1000_cases'], DIGITS['cost'])} above is scored on the same data it was chosen"
+            " on, which flatters it.")
+
+
 def cheaper_text(share: float) -> str:
     """'recommended cheaper in 90%' (of the replicates; empty when the share is not defined)."""
     return f"recommended cheaper in {fmt_pct(share, 0)}" if np.isfinite(share) else ""
@@ -302,6 +318,7 @@ def summary_section(results: ReportResults) -> Section:
             "share_values": [float(s) for s in ev.level_shares],
             "rates": [(lab, fmt_pct(r, DIGITS["rate"])) for lab, r in zip(ev.outcome_labels, ev.outcome_rates)],
             "cost_per_1000": fmt_num(ev.cost_per_1000, DIGITS["cost"]),
+            "chosen_interval": chosen_interval_text(results),
             "rule_name": a.rule.name,
             "rows": compared_rows(results),
             "interval_label": results.comparison.result.interval_label if results.comparison is not None else "",

@@ -168,7 +168,7 @@
 
   // the summary's texts as the tool wrote them at the scenario's costs (with intervals and the sweeps' breakpoints)
   var exactSummary = {};
-  ["sum-diff", "sum-cheaper", "grid-stability", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
+  ["sum-diff", "sum-cheaper", "sum-chosen", "grid-stability", "bp-below", "bp-below-text", "bp-above", "bp-above-text", "bp-below-lead", "bp-above-lead"].forEach(function (kind) {
     exactSummary[kind] = [];
     var nodes = document.querySelectorAll('[data-live="' + kind + '"]');
     for (var i = 0; i < nodes.length; i++) { exactSummary[kind].push(nodes[i].textContent); }
@@ -317,8 +317,8 @@
       for (var j = 0; j < J; j++) { mine("sum-rate-" + j, function () { return fmtPct(r.rates[j], digits.rate); }); }
     });
     // intervals, shares of replicates and stability hold at the scenario's costs only
-    if (exact) { restore("sum-diff"); restore("sum-cheaper"); restore("grid-stability"); }
-    else { each("grid-stability", function (el) { el.textContent = ""; }); }
+    if (exact) { restore("sum-diff"); restore("sum-cheaper"); restore("sum-chosen"); restore("grid-stability"); }
+    else { each("grid-stability", function (el) { el.textContent = ""; }); each("sum-chosen", function (el) { el.textContent = ""; }); }
     showGrid(levels);
     showBreakpoints(per, levels, exact);
     showExport(levels);
