@@ -249,9 +249,12 @@ def loglinear_rates(events: np.ndarray, exposure: np.ndarray, factors: Sequence[
     factors : sequence of (sparse matrix of shape (n_categories, n_cells), codes of shape (n_cells,))
         The cell columns of the model (:func:`factor_matrices`).
     smoothing : float
-        Expected events added to both sides of every category's margin at the overall rate; it
-        keeps categories without events finite and pulls thin categories toward no effect.
-        With 0 the fit is the Poisson maximum-likelihood fit.
+        Expected events (at the overall rate) added to both sides of every category's margin
+        ratio. A converged fit still matches every margin, so where every category has an event
+        the result is the Poisson maximum-likelihood fit whatever the smoothing (it only slows the
+        first sweeps). It matters for a category without events: with 0 its own margin is
+        left unmatched (its ratio is held at 1); with more, its rate falls with every sweep
+        toward the maximum-likelihood 0 and stays positive (the sweeps stop at ``max_sweeps``).
 
     Returns
     -------

@@ -1,0 +1,257 @@
+"""The estimator's baseline model and shrinkage on small hand examples, fast enough to run under
+mutation testing: the membership matrices of the cell columns, the log-linear baseline by
+iterative proportional fitting (against statsmodels' Poisson GLM, and against the fitting steps
+written out with plain loops), the shrunk baselines and rates and the monotone probabilities
+built from their documented formulas (docs/method.md, the docstrings of
+policy/estimation/strata.py). The building blocks these formulas call (Mantel-Haenszel level
+ratios, the moment estimator, the isotonic projection) have their own checks against statsmodels
+and scipy in tests/test_strata.py and tests/test_strata_edges.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from policy.errors import InputError
+from policy.estimation.strata import (
+    RiskLevelEstimator,
+    factor_matrices,
+    isotonic_nonincreasing,
+    level_risk_ratios,
+    loglinear_rates,
+    moment_prior_strength,
+    shrunk_baselines,
+    shrunk_rates,
+)
+from policy.inputs.cells import CellLayout
+
+
+def _layout():
+    # 6 cells: u in {u0, u1, u2} x v in {v0, v1}, and a category "u3" of u without cells
+    u = ["u0", "u0", "u1", "u1", "u2", "u2"]
+    v = ["v0", "v1", "v0", "v1", "v0", "v1"]
+    frame = pd.DataFrame({"u": pd.Categorical(u, categories=["u0", "u1", "u2", "u3"], ordered=True),
+                          "v": pd.Categorical(v, categories=["v0", "v1"], ordered=True)})
+    return CellLayout(frame)
+
+
+def test_membership_matrices_by_hand():
+    layout = _layout()
+    (mu, cu), (mv, cv) = factor_matrices(layout, ["u", "v"])
+    assert mu.shape == (4, 6) and mv.shape == (2, 6)
+    assert np.array_equal(mu.toarray(), [[1, 1, 0, 0, 0, 0], [0, 0, 1, 1, 0, 0], [0, 0, 0, 0, 1, 1], [0, 0, 0, 0, 0, 0]])
+    assert np.array_equal(mv.toarray(), [[1, 0, 1, 0, 1, 0], [0, 1, 0, 1, 0, 1]])
+    assert list(cu) == [0, 0, 1, 1, 2, 2] and list(cv) == [0, 1, 0, 1, 0, 1]
+    # cells in another order: rows still by category, columns by cell
+    frame = layout.frame.iloc[[5, 0, 3]].reset_index(drop=True)
+    (m, c), = factor_matrices(CellLayout(frame), ["v"])
+    assert np.array_equal(m.toarray(), [[0, 1, 0], [1, 0, 1]]) and list(c) == [1, 0, 1]
+    assert factor_matrices(layout, []) == []
+
+
+def _ipf_by_loops(events, exposure, codes_list, n_categories, smoothing, max_sweeps, tol=1e-9):
+    """Iterative proportional fitting of one fit (events, exposure of shape (n_cells, J)), written
+    with plain loops from the docstring of loglinear_rates (Deming and Stephan 1940)."""
+    n, J = events.shape
+    overall = (events.sum(axis=0) + 0.5) / (exposure.sum(axis=0) + 1.0)
+    rate = np.tile(overall, (n, 1))
+    for _ in range(max_sweeps):
+        change = 0.0
+        for codes, K in zip(codes_list, n_categories):
+            for k in range(K):
+                members = codes == k
+                for j in range(J):
+                    num = events[members, j].sum() + smoothing * overall[j]
+                    den = (exposure[members, j] * rate[members, j]).sum() + smoothing * overall[j]
+                    ratio = num / den if num > 0 and den > 0 else 1.0
+                    rate[members, j] *= ratio
+                    change = max(change, abs(np.log(ratio)))
+        if change < tol:
+            break
+    return rate
+
+
+def _counts(seed=0, fits=()):
+    rng = np.random.default_rng(seed)
+    exposure = rng.uniform(20, 80, fits + (6, 2))
+    events = rng.poisson(exposure * np.array([0.1, 0.3])).astype(float)
+    return events, exposure
+
+
+def test_loglinear_rates_match_statsmodels_poisson_per_fit_and_outcome():
+    # reference: statsmodels' Poisson GLM (main effects, log exposure as offset); a leading axis
+    # of two fits and two outcome kinds, each its own fit
+    import statsmodels.api as sm
+
+    layout = _layout()
+    events, exposure = _counts(1, fits=(2,))
+    got = loglinear_rates(events, exposure, factor_matrices(layout, ["u", "v"]), smoothing=0.0)
+    X = pd.get_dummies(layout.frame, drop_first=True).astype(float)
+    X = X.loc[:, X.any()]  # the category without cells has no column
+    X.insert(0, "const", 1.0)
+    for f in range(2):
+        for j in range(2):
+            ref = sm.GLM(events[f, :, j], X, family=sm.families.Poisson(), offset=np.log(exposure[f, :, j])).fit()
+            np.testing.assert_allclose(got[f, :, j], ref.fittedvalues / exposure[f, :, j], rtol=1e-7)
+
+
+@pytest.mark.parametrize("smoothing, max_sweeps", [(1.0, 200), (1.0, 1), (2.5, 3), (0.0, 200)])
+def test_loglinear_rates_follow_the_fitting_steps(smoothing, max_sweeps):
+    # a category without events (u2 for outcome 0) and one without cells (u3): the smoothing keeps
+    # the fit finite, and the sweeps stop only at max_sweeps or when no ratio moves more than tol
+    layout = _layout()
+    events, exposure = _counts(2)
+    events[4:, 0] = 0.0
+    factors = factor_matrices(layout, ["u", "v"])
+    got = loglinear_rates(events, exposure, factors, smoothing=smoothing, max_sweeps=max_sweeps)
+    expected = _ipf_by_loops(events, exposure, [c for _, c in factors], [4, 2], smoothing, max_sweeps)
+    np.testing.assert_allclose(got, expected, rtol=1e-12)
+    # in a batch, each fit gives what it gives alone (each stops on its own)
+    other = events.copy()
+    other[:, 1] = np.arange(6.0)
+    batch = loglinear_rates(np.stack([events, other]), np.stack([exposure, exposure]), factors, smoothing=smoothing,
+                            max_sweeps=max_sweeps)
+    np.testing.assert_allclose(batch[0], got, rtol=1e-12)
+    np.testing.assert_allclose(batch[1], _ipf_by_loops(other, exposure, [c for _, c in factors], [4, 2], smoothing,
+                                                       max_sweeps), rtol=1e-12)
+
+
+def test_loglinear_rates_stop_at_the_tolerance():
+    layout = _layout()
+    events, exposure = _counts(3)
+    factors = factor_matrices(layout, ["u", "v"])
+    codes = [c for _, c in factors]
+    for tol in (1e-2, 1e-5):
+        got = loglinear_rates(events, exposure, factors, tol=tol)
+        np.testing.assert_allclose(got, _ipf_by_loops(events, exposure, codes, [4, 2], 1.0, 200, tol), rtol=1e-12)
+    assert not np.allclose(loglinear_rates(events, exposure, factors, tol=1e-1),
+                           loglinear_rates(events, exposure, factors, tol=1e-12), rtol=1e-9, atol=0)
+
+
+def _level_counts(seed=4):
+    rng = np.random.default_rng(seed)
+    observed = rng.integers(0, 40, size=(6, 2, 3)).astype(float)
+    observed[0, :, 2] = 0.0  # a level never observed in cell 0
+    rate = np.array([0.3, 0.2])[None, :, None] * np.array([1.0, 0.7, 0.4]) * rng.uniform(0.6, 1.4, size=(6, 1, 1))
+    events = rng.binomial(observed.astype(int), np.clip(rate, 0, 1)).astype(float)
+    return events, observed
+
+
+def test_shrunk_baselines_by_their_formula():
+    # N_x = sum_d n_xd theta_d, e_x = sum_d e_xd, m_x the log-linear rate of e_x with exposure N_x,
+    # k by moments around m_x, baseline (e_x + k m_x) / (N_x + k)
+    layout = _layout()
+    events, observed = _level_counts()
+    theta = level_risk_ratios(events, observed)
+    factors = factor_matrices(layout, ["u", "v"])
+    e = events.sum(axis=-1)
+    N = (observed * theta[None]).sum(axis=-1)
+    m = np.clip(loglinear_rates(e, N, factors), 0, 1)
+    k = moment_prior_strength(e, N, m, cell_axis=-2)
+    np.testing.assert_allclose(shrunk_baselines(events, observed, theta, factors), (e + k * m) / (N + k), rtol=1e-12)
+    # ratios per cell (shape of the counts) enter the same way
+    per_cell = np.broadcast_to(theta, observed.shape).copy()
+    per_cell[3] *= 0.9
+    N = (observed * per_cell).sum(axis=-1)
+    m = np.clip(loglinear_rates(e, N, factors), 0, 1)
+    k = moment_prior_strength(e, N, m, cell_axis=-2)
+    np.testing.assert_allclose(shrunk_baselines(events, observed, per_cell, factors), (e + k * m) / (N + k), rtol=1e-12)
+    # without a model: one overall rate per outcome kind
+    N = (observed * theta[None]).sum(axis=-1)
+    m = np.broadcast_to(e.sum(axis=0) / N.sum(axis=0), e.shape)
+    k = moment_prior_strength(e, N, m, cell_axis=-2)
+    np.testing.assert_allclose(shrunk_baselines(events, observed, theta, None), (e + k * m) / (N + k), rtol=1e-12)
+    np.testing.assert_allclose(shrunk_baselines(events, observed, theta, []), (e + k * m) / (N + k), rtol=1e-12)
+
+
+@pytest.mark.parametrize("prior", ["auto", 7.5])
+def test_shrunk_rates_by_their_formula(prior):
+    # target b_x theta_d, rate (e + k target) / (n + k), the target where nothing was seen, the
+    # weight n + k (1e-6 where it is 0); structural zeros make theta 0 there
+    layout = _layout()
+    events, observed = _level_counts(5)
+    zero = np.array([[False, False, False], [False, False, True]])
+    events[:, 1, 2] = 0.0
+    factors = factor_matrices(layout, ["u"])
+    theta = np.where(zero, 0.0, level_risk_ratios(events, observed))
+    base = shrunk_baselines(events, observed, np.broadcast_to(theta, events.shape), factors)
+    target = np.clip(base[..., None] * theta, 0, 1)
+    kappa = moment_prior_strength(events, observed, target) if prior == "auto" else np.full((2, 3), prior)
+    weight = observed + kappa
+    rate = np.where(weight > 0, (events + kappa * target) / np.where(weight > 0, weight, 1), target)
+    got_rate, got_weight, got_kappa, got_target = shrunk_rates(events, observed, factors, prior, zero, level_terms=False)
+    np.testing.assert_allclose(got_target, target, rtol=1e-12)
+    np.testing.assert_allclose(got_kappa, kappa, rtol=1e-12)
+    np.testing.assert_allclose(got_rate, rate, rtol=1e-12)
+    np.testing.assert_allclose(got_weight, np.where(weight > 0, weight, 1e-6), rtol=1e-12)
+    assert (got_target[:, 1, 2] == 0).all()
+    if prior != "auto":
+        # no prior: a level never observed has weight 1e-6 and takes the target
+        r0, w0, k0, t0 = shrunk_rates(events, observed, factors, 0.0, zero, level_terms=False)
+        assert w0[0, 0, 2] == 1e-6 and r0[0, 0, 2] == t0[0, 0, 2] and (k0 == 0).all()
+        seen = observed > 0
+        np.testing.assert_allclose(r0[seen], (events / np.where(seen, observed, 1))[seen], rtol=1e-12)
+
+
+def test_shrunk_rates_within_the_translation_limit():
+    # Efron and Morris 1971: each rate seen in a cell stays within D standard errors (the larger
+    # binomial one, at the shrunk or the own rate) of the cell's own rate
+    events, observed = _level_counts(6)
+    events, observed = 25 * events, 25 * observed  # the same own rates, a fifth of the standard errors
+    free, _, _, _ = shrunk_rates(events, observed, None, 300.0, None, level_terms=False, translation_limit=None)
+    for D in (0.5, 2.0):
+        got, _, _, _ = shrunk_rates(events, observed, None, 300.0, None, level_terms=False, translation_limit=D)
+        seen = observed > 0
+        own = events / np.where(seen, observed, 1)
+        reach = D * np.sqrt(np.maximum(free * (1 - free), own * (1 - own)) / np.where(seen, observed, 1))
+        expected = np.where(seen, np.clip(free, own - reach, own + reach), free)
+        np.testing.assert_allclose(got, expected, rtol=1e-12)
+        assert (got != free).any()
+
+
+def test_level_terms_enter_through_per_cell_ratios():
+    from policy.estimation.target import cell_level_ratios
+
+    layout = _layout()
+    events, observed = _level_counts(7)
+    factors = factor_matrices(layout, ["u", "v"])
+    theta0 = level_risk_ratios(events, observed)
+    for every in (False, True):
+        theta, _ = cell_level_ratios(events, observed, factors, theta0, None, every=every)
+        base = shrunk_baselines(events, observed, theta, factors)
+        target = np.clip(base[..., None] * theta, 0, 1)
+        _, _, _, got = shrunk_rates(events, observed, factors, 5.0, None, level_terms="all" if every else True)
+        np.testing.assert_allclose(got, target, rtol=1e-12)
+
+
+def test_estimator_settings_zero_mask_and_probabilities():
+    assert RiskLevelEstimator(structural_zeros={1: 2}).zero_mask(2, 4).tolist() == [[False] * 4, [False, False, True, True]]
+    assert not RiskLevelEstimator().zero_mask(2, 3).any()
+    est = RiskLevelEstimator(prior_strength=3.0, target_covariates=["u"], structural_zeros={1: 2}, level_terms="all",
+                             translation_limit=1.5)
+    assert (est.prior_strength, est.target_covariates, est.structural_zeros, est.level_terms, est.translation_limit) == \
+        (3.0, ("u",), {1: 2}, "all", 1.5)
+    defaults = RiskLevelEstimator(level_terms=0)
+    assert (defaults.prior_strength, defaults.target_covariates, defaults.structural_zeros, defaults.level_terms,
+            defaults.translation_limit) == ("auto", None, {}, False, None)
+    assert RiskLevelEstimator(level_terms=1).level_terms is True
+    for bad in (0.0, -1.0):
+        with pytest.raises(InputError) as info:
+            RiskLevelEstimator(translation_limit=bad)
+        assert str(info.value) == f"translation_limit must be a number > 0 or None; got {bad!r}."
+    # p: the shrunk rates with structural zeros set to 0, projected onto non-increasing rows with
+    # weights observed + prior strength, and clipped to [0, 1]
+    layout = _layout()
+    events, observed = _level_counts(8)
+    events[:, 1, 2] = 3.0  # events at an impossible level are not counted
+    zero = est.zero_mask(2, 3)
+    design = est.design(layout)
+    p, kappa, target = est.estimate_p(events, observed, design)
+    e0, n0 = np.where(zero, 0, events), np.where(zero, 0, observed)
+    rate, weight, k, t = shrunk_rates(e0, n0, design, 3.0, zero, "all", 1.5)
+    expected = np.clip(np.where(zero, 0.0, isotonic_nonincreasing(np.where(zero, 0.0, rate), weight)), 0, 1)
+    np.testing.assert_allclose(p, expected, rtol=1e-12)
+    np.testing.assert_allclose(kappa, k) and np.testing.assert_allclose(target, t)
+    assert (p[:, 1, 2] == 0).all() and (np.diff(p, axis=-1) <= 1e-15).all()

@@ -1,0 +1,382 @@
+"""The constrained problem's interface on small random instances: changing costs, bounds, active
+constraints and probabilities and re-solving, the rows and bounds it hands the solver, the
+constraint table of a solve (value, slack, binding rows, duals, savings), the presented rule and
+the messages of bad calls.
+
+Every optimum is checked against tests/constrained_reference.py: the LP written cell by cell from
+docs/method.md section 5 and solved by scipy.optimize.linprog(method="highs") (common practice:
+check an LP against a separately built formulation of it). Table entries are checked against
+their definitions (slack = bound - value, saving = cost difference of two reference solves).
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+from policy.decision.constrained import ConstrainedProblem, LPSettings
+from policy.decision.solve import optimal_rule
+from policy.errors import InfeasibleError, InputError
+
+from .constrained_reference import random_instance, reference_solve
+
+
+def close(a: float, b: float, rel: float = 1e-7) -> bool:
+    return abs(a - b) <= rel * max(1.0, abs(a), abs(b))
+
+
+@pytest.fixture(scope="module")
+def instance():
+    return random_instance(3, n_scores=3, n_buckets=2, n_groups=2)
+
+
+def _free_share(rl, costs, columns, t=1):
+    index, _ = rl.layout.rule_index(columns)
+    free = optimal_rule(rl, costs, columns).delta[index]
+    return float((rl.weights * free[:, t:].sum(axis=1)).sum() / rl.weights.sum())
+
+
+def test_cost_changes_resolve_to_the_reference_optimum(instance):
+    rl, costs, columns = instance
+    cap = round(0.6 * _free_share(rl, costs, columns), 4)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": cap, "name": "cap"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    assert problem.n_rule_cells == 6 and problem.n_rows == 6 + 1
+    problem.solve_lp()
+    outcome = np.array([700.0, 1500.0])
+    scale = np.array([1.0, 0.5, 2.0])
+    got = problem.set_costs(outcome_costs=outcome, decision_scale=scale).solve_lp().cost_per_case
+    expected, _ = reference_solve(rl, replace(costs, decision=costs.decision * scale, outcome=outcome), columns, specs)
+    assert close(got, expected)
+    current = problem.current_costs()
+    assert np.array_equal(current.decision, costs.decision * scale) and np.array_equal(current.outcome, outcome)
+    # other per-cell decision costs: the objective is rebuilt, the scale goes back to 1
+    other = replace(costs, decision=costs.decision * 1.5)
+    got = problem.set_costs(other).solve_lp().cost_per_case
+    assert np.array_equal(problem.decision_scale, np.ones(3)) and np.array_equal(problem.outcome_costs, costs.outcome)
+    expected, _ = reference_solve(rl, other, columns, specs)
+    assert close(got, expected)
+    # the same decision costs again: nothing to rebuild, the same optimum
+    assert close(problem.set_costs(replace(other, decision=other.decision.copy())).solve_lp().cost_per_case, expected)
+
+
+def test_bad_cost_changes_are_refused_with_the_expected_shape(instance):
+    rl, costs, columns = instance
+    problem = ConstrainedProblem(rl, costs, [], columns=columns)
+    for kw, text in (({"outcome_costs": [1.0]}, "outcome_costs must be 2 numbers >= 0; got [np.float64(1.0)]."),
+                     ({"outcome_costs": [1.0, -2.0]}, "outcome_costs must be 2 numbers >= 0; got [np.float64(1.0), np.float64(-2.0)]."),
+                     ({"outcome_costs": [1.0, np.inf]}, "outcome_costs must be 2 numbers >= 0; got [np.float64(1.0), np.float64(inf)]."),
+                     ({"decision_scale": [1.0, 1.0]}, "decision_scale must be 3 numbers >= 0; got [np.float64(1.0), np.float64(1.0)]."),
+                     ({"decision_scale": [1.0, -1.0, 1.0]},
+                      "decision_scale must be 3 numbers >= 0; got [np.float64(1.0), np.float64(-1.0), np.float64(1.0)]."),
+                     ({"decision_scale": [1.0, np.nan, 1.0]},
+                      "decision_scale must be 3 numbers >= 0; got [np.float64(1.0), np.float64(nan), np.float64(1.0)].")):
+        with pytest.raises(InputError) as info:
+            problem.set_costs(**kw)
+        assert str(info.value) == text
+    fewer = replace(costs, decision=costs.decision[:5])
+    with pytest.raises(InputError) as info:
+        problem.set_costs(fewer)
+    assert str(info.value) == "costs for 5 cells given; the problem has 12."
+    # zero costs are allowed at the edge
+    problem.set_costs(outcome_costs=[0.0, 0.0], decision_scale=[0.0, 0.0, 0.0])
+    assert problem.solve_lp().cost_per_case == 0.0
+
+
+def test_bounds_by_name_or_position_in_declared_units(instance):
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    share = _free_share(rl, costs, columns)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_cases": round(0.5 * share * W, 2), "name": "cases"},
+             {"kind": "statistical_parity", "tolerance": 0.2, "name": "parity"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    A, lo, hi = problem.rows()
+    G = problem.n_rule_cells
+    assert A.shape[0] == G + 1 + 2 and (lo[:G] == 1).all() and (hi[:G] == 1).all()
+    # the cap in cases enters as a share (declared / total weight), one-sided; parity two-sided
+    assert lo[G] == -np.inf and hi[G] == pytest.approx(round(0.5 * share * W, 2) / W, rel=1e-15)
+    assert list(lo[G + 1:]) == [-0.2, -0.2] and list(hi[G + 1:]) == [0.2, 0.2]
+    problem.solve_lp()
+    new_cases = round(0.7 * share * W, 2)
+    problem.set_bounds({1: new_cases, "parity": 0.05})
+    _, lo, hi = problem.rows()
+    assert hi[G] == pytest.approx(new_cases / W, rel=1e-15) and list(hi[G + 1:]) == [0.05, 0.05]
+    expected, _ = reference_solve(rl, costs, columns, [dict(specs[0], max_cases=new_cases), dict(specs[1], tolerance=0.05)])
+    assert close(problem.solve_lp().cost_per_case, expected)
+    # a constraint switched off: its rows are free, the optimum is the one without it
+    problem.set_active("parity", False)
+    _, lo, hi = problem.rows()
+    assert (lo[G + 1:] == -np.inf).all() and (hi[G + 1:] == np.inf).all()
+    expected, _ = reference_solve(rl, costs, columns, [dict(specs[0], max_cases=new_cases)])
+    assert close(problem.solve_lp().cost_per_case, expected)
+    problem.set_active(2, True)
+    assert list(problem.rows()[2][G + 1:]) == [0.05, 0.05]
+    # the ends of each unit are allowed; a cap in cases has no upper end
+    problem.set_bounds({"parity": 1.0, "cases": 10 * W})
+    problem.set_bounds({"parity": 0.0, "cases": 0.0})
+
+
+def test_bad_bounds_and_keys_name_the_constraint(instance):
+    rl, costs, columns = instance
+    specs = [{"kind": "capacity", "max_share": 0.3, "name": "held"}, {"kind": "group_blind", "name": "blind"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    for bounds, text in (({"held": 1.5}, "bound max_share of 'held' must be in 0..1; got 1.5."),
+                         ({1: -0.1}, "bound max_share of 'held' must be in 0..1; got -0.1."),
+                         ({"blind": 0.1}, "'blind' (group_blind) has no tolerance; it can only be removed from the constraints."),
+                         ({3: 0.1}, "constraint position 3 is out of range 1..2."),
+                         ({0: 0.1}, "constraint position 0 is out of range 1..2."),
+                         ({np.int64(0): 0.1}, "constraint position 0 is out of range 1..2."),
+                         ({True: 0.1}, "no constraint is named True; the constraints are: held, blind."),
+                         ({"cap": 0.1}, "no constraint is named 'cap'; the constraints are: held, blind.")):
+        with pytest.raises(InputError) as info:
+            problem.set_bounds(bounds)
+        assert str(info.value) == text
+    assert problem.spec_position(np.int64(2)) == 1 and problem.spec_position("blind") == 1
+    problem.set_bounds({"blind": 0.0})  # 0 is its only bound
+    with pytest.raises(InputError) as info:
+        ConstrainedProblem(rl, costs, [], columns=columns).set_active("x", False)
+    assert str(info.value) == "no constraint is named 'x'; the constraints are: (none)."
+    with pytest.raises(InputError) as info:
+        ConstrainedProblem(rl, costs, [], columns=("score", "court"))
+    assert str(info.value) == "rule column 'court' is not a cell column; expected some of: score, bucket, group."
+
+
+def test_other_probabilities_for_the_rows_or_only_for_the_objective(instance):
+    rl, costs, columns = instance
+    specs = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.3}, {"kind": "capacity", "max_share": 0.4}]
+    p2 = np.clip(rl.p * np.random.default_rng(0).uniform(0.7, 1.2, size=rl.p.shape), 0.0, 1.0)
+    p2 = np.minimum.accumulate(p2, axis=-1)  # still non-increasing in the level
+    other = rl.with_p(p2)
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    problem.solve_lp()
+    expected, _ = reference_solve(other, costs, columns, specs)
+    assert close(problem.set_risk_levels(other).solve_lp().cost_per_case, expected)
+    # only the objective priced at p2: rows stay at the loaded p (capacity rows do not depend on p)
+    problem = ConstrainedProblem(rl, costs, specs[1:], columns=columns)
+    problem.set_objective_probabilities(p2)
+    expected, _ = reference_solve(other, costs, columns, specs[1:])
+    assert close(problem.solve_lp().cost_per_case, expected)
+    # the outcome cap's row keeps the loaded p, the objective prices at p2 (both by their definitions)
+    lp = ConstrainedProblem(rl, costs, specs, columns=columns).set_objective_probabilities(p2).solve_lp()
+    index, _ = rl.layout.rule_index(columns)
+    delta, w = lp.delta[index], rl.weights
+    assert lp.row_values[0][0] == pytest.approx(float((w[:, None] * delta * rl.p[:, 0, :]).sum() / w.sum()), rel=1e-9)
+    assert lp.cost_per_case == pytest.approx(float((w[:, None] * delta * costs.expected(p2)).sum() / w.sum()), rel=1e-9)
+    with pytest.raises(InputError) as info:
+        problem.set_objective_probabilities(p2[:, :1])
+    assert str(info.value) == "outcome probabilities of shape (12, 1, 3) given; the problem's cells need (12, 2, 3)."
+    fewer = random_instance(3, n_scores=2, n_buckets=2, n_groups=2)[0]
+    with pytest.raises(InputError) as info:
+        problem.set_risk_levels(fewer)
+    assert str(info.value) == ("risk levels of 8 cells and 3 levels given; the problem was built for other cells "
+                               "(12 cells, 3 levels). Build a new ConstrainedProblem for them.")
+
+
+def test_constraint_table_of_a_solve(instance):
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    share = _free_share(rl, costs, columns)
+    cap_cases = round(0.5 * share * W, 2)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_cases": cap_cases, "name": "cases"},
+             {"kind": "statistical_parity", "tolerance": 0.9, "name": "loose"},
+             {"kind": "outcome_cap", "outcome": "o1", "max_rate": 1.0, "name": "never"}]
+    result = ConstrainedProblem(rl, costs, specs, columns=columns).solve()
+    table = result.to_frame().set_index("constraint")
+    cost, _ = reference_solve(rl, costs, columns, specs)
+    assert close(result.lp.cost_per_case, cost)
+    # the binding cap: reached exactly (in cases), no slack, its one row named
+    row = table.loc["cases"]
+    assert (row["kind"], row["arguments"], row["bound_key"], row["unit"], row["rows"]) == ("capacity", "at_least=L1", "max_cases", "cases", 1)
+    assert row["bound"] == cap_cases and row["value"] == pytest.approx(cap_cases, rel=1e-7)
+    assert abs(row["slack"]) < 1e-6 and row["binding"] and row["binding_rows"] == "share of cases at L1 or harsher"
+    # what loosening it by 1% of the cases, or removing it, saves: two more reference solves
+    step = 0.01 * W
+    looser, _ = reference_solve(rl, costs, columns, [dict(specs[0], max_cases=cap_cases + step)] + specs[1:])
+    removed, _ = reference_solve(rl, costs, columns, specs[1:])
+    assert row["saving_per_point_per_1000"] == pytest.approx(1000 * (cost - looser), rel=1e-6, abs=1e-6)
+    assert row["saving_if_removed_per_1000"] == pytest.approx(1000 * (cost - removed), rel=1e-6, abs=1e-6)
+    assert row["saving_if_removed_per_1000"] > 0
+    # the dual per case in the declared unit (per case capped): at most the saving of a whole point per case
+    assert row["dual"] > 0 and row["dual_per_1000"] == pytest.approx(1000 * row["dual"])
+    assert row["dual"] * step >= (cost - looser) - 1e-9
+    # a loose two-sided parity: its value the largest gap, its slack bound - value, not binding
+    row = table.loc["loose"]
+    assert row["rows"] == 2 and not row["binding"] and row["binding_rows"] == "" and row["note"] == ""
+    assert row["slack"] == pytest.approx(0.9 - row["value"], abs=1e-12) and 0 <= row["value"] < 0.9
+    assert row["saving_if_removed_per_1000"] == pytest.approx(0.0, abs=1e-6) and row["dual"] == pytest.approx(0.0, abs=1e-9)
+    assert row["saving_per_point_per_1000"] == pytest.approx(0.0, abs=1e-6)
+    row = table.loc["never"]
+    assert np.isnan(row["saving_per_point_per_1000"])  # at 1 already: it cannot loosen
+    assert row["unit"] == "outcome rate" and row["bound_key"] == "max_rate" and row["value"] <= 1.0
+    assert row["slack"] == pytest.approx(1.0 - row["value"], abs=1e-12)
+    # the headline: the price is the cost above the unconstrained optimum
+    free = optimal_rule(rl, costs, columns)
+    index, _ = rl.layout.rule_index(columns)
+    free_cost = float((rl.weights[:, None] * free.delta[index] * costs.expected(rl.p)).sum() / W)
+    assert result.price_per_case == pytest.approx(cost - free_cost, rel=1e-6, abs=1e-9)
+    assert result.notes == ()
+
+
+def test_table_of_group_blind_inactive_and_rowless_constraints():
+    rl, costs, _columns = random_instance(5, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    specs = [{"kind": "group_blind", "name": "blind"}, {"kind": "capacity", "max_share": 0.2, "name": "off"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=("score", "group"))
+    problem.set_active("off", False)
+    result = problem.solve()
+    table = result.to_frame().set_index("constraint")
+    blind = table.loc["blind"]
+    assert blind["bound_key"] == "" and blind["rows"] == 6 and np.isnan(blind["dual"])
+    off = table.loc["off"]
+    assert np.isnan(off["dual"]) and np.isnan(off["saving_if_removed_per_1000"]) and np.isnan(off["saving_per_point_per_1000"])
+    # the rule is presented without the group (every rule cell of a score alike), its cost by reference
+    assert list(result.rule.rule_cells.columns) == ["score"]
+    expected, _ = reference_solve(rl, costs, ("score", "group"), specs[:1])
+    assert close(result.lp.cost_per_case, expected)
+    assert np.allclose(result.rule.delta, result.lp.delta.reshape(3, 2, 3)[:, 0, :], atol=1e-9)
+    # blind already (no protected rule column): no row, nothing reached, nothing saved, a note
+    result = ConstrainedProblem(rl, costs, specs[:1], columns=("score", "bucket")).solve()
+    row = result.to_frame().iloc[0]
+    assert row["rows"] == 0 and np.isnan(row["value"]) and np.isnan(row["slack"]) and not row["binding"]
+    assert row["binding_rows"] == "" and row["saving_if_removed_per_1000"] == 0.0 and row["saving_per_point_per_1000"] == 0.0
+    assert row["note"] == "already blind: the rule columns hold no protected attribute it names"
+    assert list(result.rule.rule_cells.columns) == ["score", "bucket"]
+
+
+def test_a_solver_that_need_not_return_a_vertex_says_so(instance):
+    rl, costs, columns = instance
+    result = ConstrainedProblem(rl, costs, [{"kind": "capacity", "max_share": 0.3}], columns=columns,
+                                settings=LPSettings(solver="CLARABEL")).solve(sensitivity=False)
+    assert result.notes == (("CLARABEL need not return a vertex: where several rules are optimal it may return a mixture "
+                            "of them, so split rule cells can be an artifact of the solver; HIGHS returns a vertex."),)
+    expected, _ = reference_solve(rl, costs, columns, [{"kind": "capacity", "max_share": 0.3}])
+    assert close(result.lp.cost_per_case, expected, 1e-5)
+
+
+def test_conflicting_constraints_name_how_far_to_loosen(instance):
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "none held"},
+             {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"},
+             {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"}]
+    with pytest.raises(InfeasibleError) as info:
+        ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+    conflicts = info.value.conflicts.set_index("constraint")
+    assert list(conflicts["involved"]) == [True, True, False]
+    by = conflicts.loc["none held", "loosen_by"] + conflicts.loc["few", "loosen_by"]
+    assert by > 0
+    # loosening by the amounts found makes the reference LP feasible
+    loosened = [dict(specs[0], max_share=conflicts.loc["none held", "loosened_bound"] + 1e-9),
+                dict(specs[1], max_rate=conflicts.loc["few", "loosened_bound"] + 1e-9)]
+    assert reference_solve(rl, costs, columns, loosened)[0] is not None
+    lines = str(info.value).splitlines()
+    assert lines[0] == "The constraints cannot all hold at once. These conflict:"
+    assert lines[1].startswith("  - none held (capacity, at_least=L1)")
+    assert lines[2].startswith("  - few (outcome_cap, outcome=o0)")
+    assert lines[-1] == ("'loosen ... by' is one smallest total loosening (summed in probability and share units); "
+                         "'alone' loosens that constraint only and keeps the others.")
+    assert len(lines) == 4
+
+
+def _cap_problem(rl, costs, columns):
+    cap = round(0.5 * _free_share(rl, costs, columns), 4)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": cap, "name": "cap"}]
+    return specs, ConstrainedProblem(rl, costs, specs, columns=columns)
+
+
+def test_warm_resolves_follow_every_change_that_moves_the_optimum(instance):
+    # each change is made after a solve (so the solver re-solves from its last state) and moves
+    # the optimum; each re-solve equals a fresh reference solve
+    rl, costs, columns = instance
+    specs, problem = _cap_problem(rl, costs, columns)
+    first = problem.solve_lp()
+    # no outcome cost: everyone at the most lenient level (no decision cost)
+    lp = problem.set_costs(outcome_costs=[0.0, 0.0]).solve_lp()
+    assert np.allclose(lp.delta[:, 0], 1.0) and not np.allclose(lp.delta, first.delta)
+    # the decision costs scaled: harsher levels free, the cap binds
+    lp = problem.set_costs(outcome_costs=costs.outcome, decision_scale=[1.0, 0.0, 0.0]).solve_lp()
+    expected, _ = reference_solve(rl, replace(costs, decision=costs.decision * [1.0, 0.0, 0.0]), columns, specs)
+    assert close(lp.cost_per_case, expected) and lp.delta[:, 0].min() < 1
+    # a looser cap after a solve
+    problem.set_costs(costs)
+    problem.solve_lp()
+    lp = problem.set_bounds({"cap": 1.0}).solve_lp()
+    free, _ = reference_solve(rl, costs, columns, [])
+    assert close(lp.cost_per_case, free) and close(problem.set_bounds({"cap": 0.0}).solve_lp().cost_per_case,
+                                                   reference_solve(rl, costs, columns, [dict(specs[0], max_share=0.0)])[0])
+    # other probabilities after a solve: the outcome cap's row moves with them
+    cap = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.25}]
+    problem = ConstrainedProblem(rl, costs, cap, columns=columns)
+    problem.solve_lp()
+    half = rl.with_p(rl.p * np.array([0.5, 1.0])[None, :, None])
+    expected, _ = reference_solve(half, costs, columns, cap)
+    assert close(problem.set_risk_levels(half).solve_lp().cost_per_case, expected)
+    # priced at other probabilities after a solve
+    problem = ConstrainedProblem(rl, costs, [], columns=columns)
+    problem.solve_lp()
+    expected, _ = reference_solve(half, costs, columns, [])
+    assert close(problem.set_objective_probabilities(half.p).solve_lp().cost_per_case, expected)
+
+
+def test_what_a_solve_returns(instance):
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    share = _free_share(rl, costs, columns)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_cases": round(0.5 * share * W, 2), "name": "cases"},
+             {"kind": "statistical_parity", "tolerance": 0.5, "name": "parity"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    lp = problem.solve_lp()
+    assert lp.status == "optimal" and lp.solver == problem.solver_label and lp.solver.startswith("HiGHS")
+    assert isinstance(lp.iterations, int) and lp.iterations >= 0 and lp.seconds >= 0 and lp.lenient_pass in (False, True)
+    assert [len(v) for v in lp.row_values] == [1, 2]
+    index, _ = rl.layout.rule_index(columns)
+    share_at = float((rl.weights * lp.delta[index, 1:].sum(axis=1)).sum() / W)
+    assert lp.row_values[0][0] == pytest.approx(share_at, rel=1e-9)
+    # the cap's dual per case of the cap (the LP's row is a share): what loosening by one case saves
+    step = 1.0
+    looser, _ = reference_solve(rl, costs, columns, [dict(specs[0], max_cases=specs[0]["max_cases"] + step), specs[1]])
+    assert lp.saving[0] == pytest.approx(lp.cost_per_case - looser, rel=1e-5) and lp.saving[1] == pytest.approx(0.0, abs=1e-9)
+    result = problem.solve(name="capped")
+    assert result.rule.name == "capped" and result.rule.kind == "constrained"
+    assert result.unconstrained.name == "unconstrained optimal rule" and result.unconstrained.kind != "constrained"
+    assert np.array_equal(result.unconstrained.delta, optimal_rule(rl, costs, columns).delta)
+    assert result.specs == problem.specs and result.unit == costs.unit == "units"
+    assert result.evaluation.reference_name == "unconstrained optimal rule"
+    assert result.evaluation.regret_per_case == pytest.approx(result.price_per_case, rel=1e-9, abs=1e-12)
+    assert result.rule.level_values == rl.level_values and result.rule.level_labels == rl.level_labels
+    assert np.allclose(result.rule.weights, np.bincount(index, weights=rl.weights))
+    assert list(result.rule.rule_cells.columns) == list(columns)
+    split = (result.rule.delta.max(axis=1) <= 1 - 1e-6).any()
+    assert result.rule.note == ("randomized where split" if split else "")
+    assert split  # a binding cap in cases splits one rule cell
+    # without constraints nothing is split and there is nothing to price
+    free = ConstrainedProblem(rl, costs, [], columns=columns).solve()
+    assert free.rule.note == "" and len(free.to_frame()) == 0 and free.price_per_case == pytest.approx(0.0, abs=1e-9)
+
+
+def test_ties_go_to_the_most_lenient_optimal_rule():
+    # half the cells cost the same at L0 and L1: among the optimal rules the LP returns the most
+    # lenient unless asked not to (the argmin rule of policy/decision/solve.py breaks ties the same way)
+    rl, costs, columns = random_instance(1, n_scores=4, n_buckets=3, ties=True)
+    problem = ConstrainedProblem(rl, costs, [], columns=columns)
+    lp = problem.solve_lp()
+    assert np.allclose(lp.delta, optimal_rule(rl, costs, columns).delta, atol=1e-9)
+    assert ConstrainedProblem(rl, costs, [], columns=columns, settings=LPSettings(lenient_ties=False)).solve_lp().lenient_pass is False
+    assert problem.solve_lp(lenient_ties=False).lenient_pass is False
+    lenient = ConstrainedProblem(rl, costs, [], columns=columns, settings=LPSettings(lenient_ties=False)).solve_lp(lenient_ties=True)
+    assert np.allclose(lenient.delta, lp.delta, atol=1e-9)
+
+
+def test_many_binding_rows_are_summed_up():
+    # a tight statistical parity over three groups and two thresholds: more than three rows bind
+    rl, costs, columns = random_instance(2, n_scores=3, n_buckets=2, n_groups=3, aware=True)
+    result = ConstrainedProblem(rl, costs, [{"kind": "statistical_parity", "tolerance": 0.0, "name": "sp"}],
+                                columns=columns).solve(sensitivity=False)
+    row = result.to_frame().iloc[0]
+    assert row["rows"] == 6 and row["binding"] and row["value"] == 0.0
+    parts = row["binding_rows"].split("; ")
+    assert parts[:3] == ["group g0 vs g1, all cases, P(D >= L1)", "group g0 vs g1, all cases, P(D >= L2)",
+                         "group g0 vs g2, all cases, P(D >= L1)"]
+    assert parts[3] == "and 3 more" and len(parts) == 4
