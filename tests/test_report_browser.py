@@ -341,6 +341,15 @@ def constrained_report(tmp_path_factory):
     return folder, results
 
 
+def test_constrained_report_compares_each_rule_once(constrained_report):
+    """The constrained optimum joins the comparison once (the comparison solves it in every
+    replicate; the page does not add a second copy of it)."""
+    _, results = constrained_report
+    names = [c.rule.name for c in results.compared]
+    assert len(names) == len(set(names)), names
+    assert [c.rule.kind for c in results.compared].count("constrained") == 1
+
+
 def constrained_shown(page) -> dict:
     texts = lambda kind: [t.strip() for t in page.locator(f'#constrained-live [data-live="{kind}"]').all_inner_texts()]
     return {"cost": texts("c-cost")[0], "price": texts("c-price")[0], "shares": texts("c-share"),

@@ -122,6 +122,7 @@ KIND_NOTES = {
     "aid": "what the aid recommended",
     "candidate": "a candidate rule written in the scenario",
     "observed": "what courts did (decisions observed in the data)",
+    "constrained": "the constrained optimal rule at the scenario's own costs, held fixed while the costs move",
 }
 
 
@@ -189,8 +190,8 @@ def build_report(scenario: Scenario | str | Path, outcome_costs: Mapping[str, fl
                              decision_costs=decision_costs, progress=progress,
                              doubt=choice.settings if choice is not None else None, arm_checked=analysis.arm_check)
     compared = compared_rules(comparison)
-    if analysis.constrained is not None:
-        compared.append(held_constrained_rule(analysis))
+    if analysis.constrained is not None and not any(c.rule.kind == "constrained" for c in compared):
+        compared.append(held_constrained_rule(analysis))  # the comparison left it out: compared live all the same
     if cached is not None:
         sweeps, lenient_map = cached["sweeps"], cached["lenient_map"]
     else:
@@ -230,4 +231,4 @@ def held_constrained_rule(analysis: Analysis) -> ComparedRule:
     """The constrained optimal rule at the scenario's costs, compared while the costs move."""
     con = analysis.constrained
     return ComparedRule(con.rule, evaluate(con.rule, analysis.risk_levels, analysis.costs, reference=analysis.rule),
-                        "the constrained optimal rule at the scenario's own costs, held fixed while the costs move")
+                        KIND_NOTES["constrained"])
