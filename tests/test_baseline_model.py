@@ -123,6 +123,17 @@ def test_loglinear_rates_stop_at_the_tolerance():
     events, exposure = _counts(3)
     factors = factor_matrices(layout, ["u", "v"])
     codes = [c for _, c in factors]
+    # the defaults: smoothing 1, at most 200 sweeps, tolerance 1e-9 (a category without events
+    # runs them all)
+    empty = events.copy()
+    empty[4:, 0] = 0.0
+    np.testing.assert_allclose(loglinear_rates(empty, exposure, factors),
+                               _ipf_by_loops(empty, exposure, codes, [4, 2], 1.0, 200, 1e-9), rtol=1e-12)
+    # with a loose tolerance two fits of a batch stop after different numbers of sweeps, each
+    # as it would alone
+    batch = loglinear_rates(np.stack([events, empty]), np.stack([exposure, exposure]), factors, tol=1e-3)
+    for f, e in enumerate((events, empty)):
+        np.testing.assert_allclose(batch[f], _ipf_by_loops(e, exposure, codes, [4, 2], 1.0, 200, 1e-3), rtol=1e-12)
     for tol in (1e-2, 1e-5):
         got = loglinear_rates(events, exposure, factors, tol=tol)
         np.testing.assert_allclose(got, _ipf_by_loops(events, exposure, codes, [4, 2], 1.0, 200, tol), rtol=1e-12)
@@ -164,16 +175,54 @@ def test_shrunk_baselines_by_their_formula():
     k = moment_prior_strength(e, N, m, cell_axis=-2)
     np.testing.assert_allclose(shrunk_baselines(events, observed, theta, None), (e + k * m) / (N + k), rtol=1e-12)
     np.testing.assert_allclose(shrunk_baselines(events, observed, theta, []), (e + k * m) / (N + k), rtol=1e-12)
+    # fractions of a case: the overall rate has no floor on the exposure
+    small = shrunk_baselines(events * 1e-3, observed * 1e-3, theta, None)
+    N3, e3 = N * 1e-3, e * 1e-3
+    m3 = np.broadcast_to(e3.sum(axis=0) / N3.sum(axis=0), e.shape)
+    k3 = moment_prior_strength(e3, N3, m3, cell_axis=-2)
+    np.testing.assert_allclose(small, (e3 + k3 * m3) / (N3 + k3), rtol=1e-12)
+    # a leading axis of two fits (ratios per fit), with and without a model: each fit as alone
+    events2 = np.stack([events, events[::-1]])
+    observed2 = np.stack([observed, observed[::-1]])
+    theta2 = np.stack([theta, theta * 0.9])
+    for f in (factors, None):
+        both = shrunk_baselines(events2, observed2, theta2, f)
+        for i in range(2):
+            np.testing.assert_allclose(both[i], shrunk_baselines(events2[i], observed2[i], theta2[i], f), rtol=1e-12)
 
 
-@pytest.mark.parametrize("prior", ["auto", 7.5])
+def test_baseline_model_rates_above_one_are_clipped():
+    # the cells of u2 were seen only at the harshest level, every case with the event: with a
+    # ratio of 0.4 there they count as 0.4 cases each under the most lenient level, so the
+    # model's rate for u2 is 2.5 events per case; the target is clipped to 1 (a probability)
+    layout = _layout()
+    events, observed = _level_counts(9)
+    observed[4:, 0, :] = [0.0, 0.0, 30.0]
+    events[4:, 0, :] = [0.0, 0.0, 30.0]
+    theta = np.array([[1.0, 0.7, 0.4], [1.0, 0.8, 0.6]])
+    factors = factor_matrices(layout, ["u"])
+    e = events.sum(axis=-1)
+    N = (observed * theta[None]).sum(axis=-1)
+    raw = loglinear_rates(e, N, factors)
+    assert raw[4, 0] > 2
+    m = np.clip(raw, 0, 1)
+    k = moment_prior_strength(e, N, m, cell_axis=-2)
+    np.testing.assert_allclose(shrunk_baselines(events, observed, theta, factors), (e + k * m) / (N + k), rtol=1e-12)
+
+
+@pytest.mark.parametrize("prior", ["auto", 7.5, 0.5])
 def test_shrunk_rates_by_their_formula(prior):
-    # target b_x theta_d, rate (e + k target) / (n + k), the target where nothing was seen, the
-    # weight n + k (1e-6 where it is 0); structural zeros make theta 0 there
+    # target b_x theta_d (clipped to 1), rate (e + k target) / (n + k), the target where nothing
+    # was seen, the weight n + k (1e-6 where it is 0); structural zeros make theta 0 there (no
+    # case is counted at such a level, so the level ratios alone would carry the level before)
     layout = _layout()
     events, observed = _level_counts(5)
     zero = np.array([[False, False, False], [False, False, True]])
     events[:, 1, 2] = 0.0
+    observed[:, 1, 2] = 0.0
+    # cell 5 seen only at the harshest level, every case with the event: its baseline exceeds 1
+    observed[5, 0, :] = [0.0, 0.0, 30.0]
+    events[5, 0, :] = [0.0, 0.0, 30.0]
     factors = factor_matrices(layout, ["u"])
     theta = np.where(zero, 0.0, level_risk_ratios(events, observed))
     base = shrunk_baselines(events, observed, np.broadcast_to(theta, events.shape), factors)
@@ -181,13 +230,20 @@ def test_shrunk_rates_by_their_formula(prior):
     kappa = moment_prior_strength(events, observed, target) if prior == "auto" else np.full((2, 3), prior)
     weight = observed + kappa
     rate = np.where(weight > 0, (events + kappa * target) / np.where(weight > 0, weight, 1), target)
+    assert base[5, 0] > 1 and level_risk_ratios(events, observed)[1, 2] > 0
     got_rate, got_weight, got_kappa, got_target = shrunk_rates(events, observed, factors, prior, zero, level_terms=False)
     np.testing.assert_allclose(got_target, target, rtol=1e-12)
     np.testing.assert_allclose(got_kappa, kappa, rtol=1e-12)
     np.testing.assert_allclose(got_rate, rate, rtol=1e-12)
     np.testing.assert_allclose(got_weight, np.where(weight > 0, weight, 1e-6), rtol=1e-12)
     assert (got_target[:, 1, 2] == 0).all()
-    if prior != "auto":
+    if prior == "auto":
+        # the defaults: prior strength by moments, level terms where the criterion keeps them
+        default = shrunk_rates(events, observed, factors, zero=zero)
+        explicit = shrunk_rates(events, observed, factors, "auto", zero, level_terms=True)
+        for a, b in zip(default, explicit):
+            np.testing.assert_allclose(a, b, rtol=1e-12)
+    else:
         # no prior: a level never observed has weight 1e-6 and takes the target
         r0, w0, k0, t0 = shrunk_rates(events, observed, factors, 0.0, zero, level_terms=False)
         assert w0[0, 0, 2] == 1e-6 and r0[0, 0, 2] == t0[0, 0, 2] and (k0 == 0).all()
@@ -200,6 +256,7 @@ def test_shrunk_rates_within_the_translation_limit():
     # binomial one, at the shrunk or the own rate) of the cell's own rate
     events, observed = _level_counts(6)
     events, observed = 25 * events, 25 * observed  # the same own rates, a fifth of the standard errors
+    observed[1, 0, 0], events[1, 0, 0] = 1.0, 1.0  # a level seen in one case
     free, _, _, _ = shrunk_rates(events, observed, None, 300.0, None, level_terms=False, translation_limit=None)
     for D in (0.5, 2.0):
         got, _, _, _ = shrunk_rates(events, observed, None, 300.0, None, level_terms=False, translation_limit=D)
@@ -217,26 +274,31 @@ def test_level_terms_enter_through_per_cell_ratios():
     layout = _layout()
     events, observed = _level_counts(7)
     factors = factor_matrices(layout, ["u", "v"])
-    theta0 = level_risk_ratios(events, observed)
+    zero = np.array([[False, False, False], [False, True, True]])
+    events[:, 1, 1:] = observed[:, 1, 1:] = 0.0
+    theta0 = np.where(zero, 0.0, level_risk_ratios(events, observed))
     for every in (False, True):
-        theta, _ = cell_level_ratios(events, observed, factors, theta0, None, every=every)
+        theta, _ = cell_level_ratios(events, observed, factors, theta0, zero, every=every)
         base = shrunk_baselines(events, observed, theta, factors)
         target = np.clip(base[..., None] * theta, 0, 1)
-        _, _, _, got = shrunk_rates(events, observed, factors, 5.0, None, level_terms="all" if every else True)
+        _, _, _, got = shrunk_rates(events, observed, factors, 5.0, zero, level_terms="all" if every else True)
         np.testing.assert_allclose(got, target, rtol=1e-12)
+        assert (got[:, 1, 1:] == 0).all()
 
 
 def test_estimator_settings_zero_mask_and_probabilities():
     assert RiskLevelEstimator(structural_zeros={1: 2}).zero_mask(2, 4).tolist() == [[False] * 4, [False, False, True, True]]
     assert not RiskLevelEstimator().zero_mask(2, 3).any()
     est = RiskLevelEstimator(prior_strength=3.0, target_covariates=["u"], structural_zeros={1: 2}, level_terms="all",
-                             translation_limit=1.5)
+                             translation_limit=0.1)
     assert (est.prior_strength, est.target_covariates, est.structural_zeros, est.level_terms, est.translation_limit) == \
-        (3.0, ("u",), {1: 2}, "all", 1.5)
+        (3.0, ("u",), {1: 2}, "all", 0.1)
     defaults = RiskLevelEstimator(level_terms=0)
     assert (defaults.prior_strength, defaults.target_covariates, defaults.structural_zeros, defaults.level_terms,
             defaults.translation_limit) == ("auto", None, {}, False, None)
-    assert RiskLevelEstimator(level_terms=1).level_terms is True
+    assert RiskLevelEstimator(level_terms=1).level_terms is True and RiskLevelEstimator().level_terms is True
+    assert RiskLevelEstimator(translation_limit=0.5).translation_limit == 0.5
+    assert RiskLevelEstimator(structural_zeros={0: 1}).zero_mask(1, 2).dtype == bool
     for bad in (0.0, -1.0):
         with pytest.raises(InputError) as info:
             RiskLevelEstimator(translation_limit=bad)
@@ -250,8 +312,33 @@ def test_estimator_settings_zero_mask_and_probabilities():
     design = est.design(layout)
     p, kappa, target = est.estimate_p(events, observed, design)
     e0, n0 = np.where(zero, 0, events), np.where(zero, 0, observed)
-    rate, weight, k, t = shrunk_rates(e0, n0, design, 3.0, zero, "all", 1.5)
+    rate, weight, k, t = shrunk_rates(e0, n0, design, 3.0, zero, "all", 0.1)
+    assert not np.allclose(rate, shrunk_rates(e0, n0, design, 3.0, zero, "all", None)[0])  # the limit binds
     expected = np.clip(np.where(zero, 0.0, isotonic_nonincreasing(np.where(zero, 0.0, rate), weight)), 0, 1)
     np.testing.assert_allclose(p, expected, rtol=1e-12)
     np.testing.assert_allclose(kappa, k) and np.testing.assert_allclose(target, t)
     assert (p[:, 1, 2] == 0).all() and (np.diff(p, axis=-1) <= 1e-15).all()
+
+
+def test_common_and_per_cell_level_ratios_and_a_batch():
+    # a strong level-by-u effect: with level_terms=False the common ratios are used all the same
+    layout = _layout()
+    rng = np.random.default_rng(11)
+    observed = np.full((6, 1, 3), 400.0)
+    drop = np.where(np.array([0, 0, 1, 1, 2, 2]) == 0, 0.2, 0.9)[:, None]
+    rate = 0.3 * np.stack([np.ones(6), drop[:, 0], drop[:, 0] ** 2], axis=-1)[:, None, :]
+    events = rng.binomial(400, rate).astype(float)
+    factors = factor_matrices(layout, ["u"])
+    common = shrunk_rates(events, observed, factors, 5.0, None, level_terms=False)[3]
+    per_cell = shrunk_rates(events, observed, factors, 5.0, None, level_terms=True)[3]
+    theta = level_risk_ratios(events, observed)
+    base = shrunk_baselines(events, observed, np.broadcast_to(theta, events.shape), factors)
+    np.testing.assert_allclose(common, np.clip(base[..., None] * theta, 0, 1), rtol=1e-12)
+    assert np.abs(per_cell - common).max() > 0.01
+    # a leading axis of two fits with a given prior strength: each fit as alone, kappa per fit
+    e2, n2 = np.stack([events, events[::-1]]), np.stack([observed, observed])
+    out = shrunk_rates(e2, n2, factors, 5.0, None, level_terms=False)
+    assert out[2].shape == (2, 1, 3) and (out[2] == 5.0).all()
+    for i in range(2):
+        for a, b in zip(out, shrunk_rates(e2[i], n2[i], factors, 5.0, None, level_terms=False)):
+            np.testing.assert_allclose(a[i], b, rtol=1e-12)

@@ -380,3 +380,48 @@ def test_many_binding_rows_are_summed_up():
     assert parts[:3] == ["group g0 vs g1, all cases, P(D >= L1)", "group g0 vs g1, all cases, P(D >= L2)",
                          "group g0 vs g2, all cases, P(D >= L1)"]
     assert parts[3] == "and 3 more" and len(parts) == 4
+
+
+def test_the_conflict_message_line_by_line(instance):
+    # no case above L0 and an outcome cap: loosening either alone helps while the cap is above the
+    # harshest rule's rate; below it, loosening the capacity alone cannot
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
+    for cap, alone_helps in ((round(harshest + 0.01, 4), True), (round(harshest - 0.01, 4), False)):
+        specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "capacity none held"},
+                 {"kind": "outcome_cap", "outcome": "o0", "max_rate": cap, "name": "few"}]
+        with pytest.raises(InfeasibleError) as info:
+            ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+        t = info.value.conflicts.set_index("constraint")
+        a, b = t.loc["capacity none held"], t.loc["few"]
+        # the kind is not repeated where the name holds it already
+        first = "  - capacity none held (at_least=L1)"
+        if a["loosen_by"] > 0:
+            first += f": loosen max_share by {a['loosen_by']:.4g} to {a['loosened_bound']:.4g}"
+        first += (f"; loosened alone, max_share {a['alone_bound']:.4g} would do" if alone_helps else
+                  "; loosening it alone cannot make the constraints hold")
+        second = "  - few (outcome_cap, outcome=o0)"
+        if b["loosen_by"] > 0:
+            second += f": loosen max_rate by {b['loosen_by']:.4g} to {b['loosened_bound']:.4g}"
+        second += f"; loosened alone, max_rate {b['alone_bound']:.4g} would do"
+        assert str(info.value).splitlines() == [
+            "The constraints cannot all hold at once. These conflict:", first, second,
+            ("'loosen ... by' is one smallest total loosening (summed in probability and share units); "
+            "'alone' loosens that constraint only and keeps the others.")]
+        assert a["loosen_by"] + b["loosen_by"] > 0
+        assert np.isfinite(a["alone_bound"]) == alone_helps
+        # the reference LP: the cap loosened alone to its bound is feasible, a little less is not
+        assert reference_solve(rl, costs, columns, [specs[0], dict(specs[1], max_rate=b["alone_bound"] + 1e-7)])[0] is not None
+        assert reference_solve(rl, costs, columns, [specs[0], dict(specs[1], max_rate=b["alone_bound"] - 1e-4)])[0] is None
+
+
+def test_rule_columns_default_to_the_layouts_and_limit_the_names():
+    rl, costs, columns = random_instance(4, n_scores=3, n_buckets=2, n_groups=2)
+    assert ConstrainedProblem(rl, costs, []).columns == columns == ("score", "bucket")
+    assert ConstrainedProblem(rl, costs, []).n_rule_cells == 6
+    # a monotone score must be one of the problem's rule columns, not only of the layout's
+    with pytest.raises(InputError) as info:
+        ConstrainedProblem(rl, costs, [{"kind": "monotone", "score": "bucket"}], columns=("score",))
+    assert str(info.value) == ("<constraints>: constraint #1 (kind 'monotone'): the score 'bucket' is not a rule column; "
+                               "expected one of: score.")
