@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from policy.assessment.sweep import LenientReplicates, lenient_replicates, level_thresholds, lower_envelope, sweep_one
+from policy.assessment.sweep import LenientReplicates, lenient_replicates, level_thresholds, lower_envelope
 from policy.assessment.sweep.bands import SweepBands, centred_interval
 
 from .test_sweep_tables import hand  # noqa: F401  (the fixture)
