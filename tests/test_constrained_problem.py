@@ -18,7 +18,9 @@ import pytest
 
 from policy.decision.constrained import ConstrainedProblem, LPSettings
 from policy.decision.solve import optimal_rule
-from policy.errors import InfeasibleError, InputError
+from policy.errors import InfeasibleError, InputError, SolverError
+from policy.estimation.strata import RiskLevels
+from policy.inputs.cells import CellLayout
 
 from .constrained_reference import random_instance, reference_solve
 
@@ -221,22 +223,37 @@ def test_constraint_table_of_a_solve(instance):
 
 def test_table_of_group_blind_inactive_and_rowless_constraints():
     rl, costs, _columns = random_instance(5, n_scores=3, n_buckets=2, n_groups=2, aware=True)
-    specs = [{"kind": "group_blind", "name": "blind"}, {"kind": "capacity", "max_share": 0.2, "name": "off"}]
+    specs = [{"kind": "capacity", "max_share": 0.2, "name": "off"}, {"kind": "group_blind", "name": "blind"}]
     problem = ConstrainedProblem(rl, costs, specs, columns=("score", "group"))
     problem.set_active("off", False)
-    result = problem.solve()
+    result = problem.solve(name="blind rule")
     table = result.to_frame().set_index("constraint")
     blind = table.loc["blind"]
     assert blind["bound_key"] == "" and blind["rows"] == 6 and np.isnan(blind["dual"])
+    # removing it (the constraint after an inactive one) saves what the reference says
+    expected, _ = reference_solve(rl, costs, ("score", "group"), specs[1:])
+    free, _ = reference_solve(rl, costs, ("score", "group"), [])
+    assert blind["saving_if_removed_per_1000"] == pytest.approx(1000 * (expected - free), rel=1e-6, abs=1e-6)
+    assert np.isnan(blind["saving_per_point_per_1000"])  # nothing to loosen by a point
+    coarse = result.rule
+    assert (coarse.name, coarse.kind, coarse.level_values, coarse.level_labels) == ("blind rule", "constrained",
+                                                                                    rl.level_values, rl.level_labels)
+    score = rl.layout.codes("score")
+    assert np.allclose(coarse.weights, np.bincount(score, weights=rl.weights))
+    assert coarse.note == ("randomized where split" if (coarse.delta.max(axis=1) <= 1 - 1e-6).any() else "")
+    # the group stays a rule column when the group-blind constraint is off, or with other constraints only
+    problem.set_active("blind", False)
+    assert list(problem.solve(sensitivity=False).rule.rule_cells.columns) == ["score", "group"]
+    other = ConstrainedProblem(rl, costs, [{"kind": "capacity", "max_share": 0.3}], columns=("score", "group"))
+    assert list(other.solve(sensitivity=False).rule.rule_cells.columns) == ["score", "group"]
     off = table.loc["off"]
     assert np.isnan(off["dual"]) and np.isnan(off["saving_if_removed_per_1000"]) and np.isnan(off["saving_per_point_per_1000"])
     # the rule is presented without the group (every rule cell of a score alike), its cost by reference
     assert list(result.rule.rule_cells.columns) == ["score"]
-    expected, _ = reference_solve(rl, costs, ("score", "group"), specs[:1])
     assert close(result.lp.cost_per_case, expected)
     assert np.allclose(result.rule.delta, result.lp.delta.reshape(3, 2, 3)[:, 0, :], atol=1e-9)
     # blind already (no protected rule column): no row, nothing reached, nothing saved, a note
-    result = ConstrainedProblem(rl, costs, specs[:1], columns=("score", "bucket")).solve()
+    result = ConstrainedProblem(rl, costs, specs[1:], columns=("score", "bucket")).solve()
     row = result.to_frame().iloc[0]
     assert row["rows"] == 0 and np.isnan(row["value"]) and np.isnan(row["slack"]) and not row["binding"]
     assert row["binding_rows"] == "" and row["saving_if_removed_per_1000"] == 0.0 and row["saving_per_point_per_1000"] == 0.0
@@ -307,12 +324,23 @@ def test_warm_resolves_follow_every_change_that_moves_the_optimum(instance):
     assert close(lp.cost_per_case, free) and close(problem.set_bounds({"cap": 0.0}).solve_lp().cost_per_case,
                                                    reference_solve(rl, costs, columns, [dict(specs[0], max_share=0.0)])[0])
     # other probabilities after a solve: the outcome cap's row moves with them
-    cap = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.25}]
-    problem = ConstrainedProblem(rl, costs, cap, columns=columns)
-    problem.solve_lp()
     half = rl.with_p(rl.p * np.array([0.5, 1.0])[None, :, None])
+    index, _ = rl.layout.rule_index(columns)
+
+    def rate(r, delta):
+        return float((r.weights[:, None] * delta[index] * r.p[:, 0, :]).sum() / r.weights.sum())
+
+    # a cap on o0 that binds at the loaded probabilities; at the halved ones it binds less or
+    # not at all, so the optimum moves (a solver left with the loaded row would keep the old one)
+    free_rate = rate(rl, optimal_rule(rl, costs, columns).delta)
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / rl.weights.sum())
+    cap = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": round(0.5 * (free_rate + harshest), 6)}]
+    problem = ConstrainedProblem(rl, costs, cap, columns=columns)
+    first = problem.solve_lp()
+    assert rate(rl, first.delta) == pytest.approx(cap[0]["max_rate"], rel=1e-6)
     expected, _ = reference_solve(half, costs, columns, cap)
-    assert close(problem.set_risk_levels(half).solve_lp().cost_per_case, expected)
+    lp = problem.set_risk_levels(half).solve_lp()
+    assert close(lp.cost_per_case, expected) and not np.allclose(lp.delta, first.delta, atol=1e-6)
     # priced at other probabilities after a solve
     problem = ConstrainedProblem(rl, costs, [], columns=columns)
     problem.solve_lp()
@@ -329,7 +357,8 @@ def test_what_a_solve_returns(instance):
     problem = ConstrainedProblem(rl, costs, specs, columns=columns)
     lp = problem.solve_lp()
     assert lp.status == "optimal" and lp.solver == problem.solver_label and lp.solver.startswith("HiGHS")
-    assert isinstance(lp.iterations, int) and lp.iterations >= 0 and lp.seconds >= 0 and lp.lenient_pass in (False, True)
+    assert isinstance(lp.iterations, int) and lp.iterations >= 0 and isinstance(lp.seconds, float) and lp.seconds >= 0
+    assert lp.lenient_pass in (False, True)
     assert [len(v) for v in lp.row_values] == [1, 2]
     index, _ = rl.layout.rule_index(columns)
     share_at = float((rl.weights * lp.delta[index, 1:].sum(axis=1)).sum() / W)
@@ -359,10 +388,13 @@ def test_what_a_solve_returns(instance):
 def test_ties_go_to_the_most_lenient_optimal_rule():
     # half the cells cost the same at L0 and L1: among the optimal rules the LP returns the most
     # lenient unless asked not to (the argmin rule of policy/decision/solve.py breaks ties the same way)
-    rl, costs, columns = random_instance(1, n_scores=4, n_buckets=3, ties=True)
+    rl, costs, columns = random_instance(2, n_scores=4, n_buckets=3, ties=True)
     problem = ConstrainedProblem(rl, costs, [], columns=columns)
     lp = problem.solve_lp()
     assert np.allclose(lp.delta, optimal_rule(rl, costs, columns).delta, atol=1e-9)
+    assert lp.lenient_pass is True  # the optimum is dual degenerate here: the second pass ran
+    plain = ConstrainedProblem(rl, costs, [], columns=columns, settings=LPSettings(lenient_ties=False)).solve_lp()
+    assert plain.lenient_pass is False and close(plain.cost_per_case, lp.cost_per_case, 1e-12)
     assert ConstrainedProblem(rl, costs, [], columns=columns, settings=LPSettings(lenient_ties=False)).solve_lp().lenient_pass is False
     assert problem.solve_lp(lenient_ties=False).lenient_pass is False
     lenient = ConstrainedProblem(rl, costs, [], columns=columns, settings=LPSettings(lenient_ties=False)).solve_lp(lenient_ties=True)
@@ -425,3 +457,120 @@ def test_rule_columns_default_to_the_layouts_and_limit_the_names():
         ConstrainedProblem(rl, costs, [{"kind": "monotone", "score": "bucket"}], columns=("score",))
     assert str(info.value) == ("<constraints>: constraint #1 (kind 'monotone'): the score 'bucket' is not a rule column; "
                                "expected one of: score.")
+
+
+def test_a_solver_stopped_early_is_an_error_naming_the_program(instance):
+    rl, costs, columns = instance
+    problem = ConstrainedProblem(rl, costs, [{"kind": "capacity", "max_share": 0.2}], columns=columns,
+                                 settings=LPSettings(time_limit=1e-12))
+    with pytest.raises(SolverError) as info:
+        problem.solve_lp()
+    text = str(info.value)
+    assert text.startswith("the constrained rule's linear program: the solver stopped before proving optimality (")
+    assert "status kTimeLimit" in text and text.endswith("Raise [linear_program] time_limit or simplify the constraints.")
+
+
+def test_other_risk_levels_must_be_of_the_same_cells_and_levels(instance):
+    rl, costs, columns = instance
+    problem = ConstrainedProblem(rl, costs, [], columns=columns)
+    # an equal layout that is another object is accepted; other cells of the same number, or
+    # the same cells with another number of levels, are not
+    copy = RiskLevels(CellLayout(rl.layout.frame.copy(), rl.layout.protected, rl.layout.rule_columns, rl.layout.score),
+                      rl.level_values, rl.level_labels, rl.outcome_keys, rl.outcome_labels, rl.weights, rl.p, rl.borrowed)
+    problem.set_risk_levels(copy)
+    assert close(problem.solve().lp.cost_per_case, reference_solve(rl, costs, columns, [])[0])
+    frame = rl.layout.frame.copy()
+    frame["score"] = frame["score"].cat.rename_categories([7, 8, 9])
+    other = RiskLevels(CellLayout(frame, rl.layout.protected, rl.layout.rule_columns, rl.layout.score),
+                       rl.level_values, rl.level_labels, rl.outcome_keys, rl.outcome_labels, rl.weights, rl.p, rl.borrowed)
+    two = RiskLevels(rl.layout, rl.level_values[:2], rl.level_labels[:2], rl.outcome_keys, rl.outcome_labels, rl.weights,
+                     rl.p[..., :2], rl.borrowed[..., :2])
+    for bad, levels in ((other, 3), (two, 2)):
+        with pytest.raises(InputError) as info:
+            problem.set_risk_levels(bad)
+        assert str(info.value).startswith(f"risk levels of 12 cells and {levels} levels given; the problem was built for other cells")
+    # with costs of their own: the objective uses them
+    dearer = replace(costs, decision=costs.decision * 2.0)
+    expected, _ = reference_solve(rl, dearer, columns, [])
+    assert close(problem.set_risk_levels(rl, dearer).solve_lp().cost_per_case, expected)
+
+
+def test_cvxpy_route_follows_changes_and_inactive_constraints(instance):
+    rl, costs, columns = instance
+    cap = round(0.5 * _free_share(rl, costs, columns), 4)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": cap, "name": "cap"},
+             {"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "none"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns, settings=LPSettings(solver="CLARABEL"))
+    problem.set_active("none", False)
+    assert close(problem.solve_lp().cost_per_case, reference_solve(rl, costs, columns, specs[:1])[0], 1e-5)
+    dearer = replace(costs, decision=costs.decision * 2.0)
+    problem.set_costs(dearer)
+    assert close(problem.solve_lp().cost_per_case, reference_solve(rl, dearer, columns, specs[:1])[0], 1e-5)
+    half = rl.with_p(rl.p * 0.5)
+    problem.set_objective_probabilities(half.p)
+    assert close(problem.solve_lp().cost_per_case, reference_solve(half, dearer, columns, specs[:1])[0], 1e-5)
+    problem.set_risk_levels(half, dearer)
+    assert close(problem.solve_lp().cost_per_case, reference_solve(half, dearer, columns, specs[:1])[0], 1e-5)
+    # conflicting constraints found infeasible by cvxpy's solver are explained as with HiGHS
+    conflict = ConstrainedProblem(rl, costs, [{"kind": "capacity", "max_share": 0.0},
+                                              {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.0}],
+                                  columns=columns, settings=LPSettings(solver="CLARABEL"))
+    with pytest.raises(InfeasibleError):
+        conflict.solve_lp()
+
+
+def test_solve_defaults_and_what_sensitivity_adds(instance):
+    rl, costs, _ = instance
+    cap = round(0.5 * _free_share(rl, costs, ("score",)), 4)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": cap, "name": "cap"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=("score",))
+    result = problem.solve()
+    assert result.rule.name == "constrained optimal rule"
+    # the unconstrained optimum on the problem's rule columns, not the layout's
+    assert list(result.unconstrained.rule_cells.columns) == ["score"]
+    assert np.array_equal(result.unconstrained.delta, optimal_rule(rl, costs, ("score",)).delta)
+    row = result.to_frame().iloc[0]
+    assert np.isfinite(row["saving_if_removed_per_1000"]) and np.isfinite(row["saving_per_point_per_1000"])
+    # one point of a share is 0.01: the saving per point against two reference solves
+    base, _ = reference_solve(rl, costs, ("score",), specs)
+    looser, _ = reference_solve(rl, costs, ("score",), [dict(specs[0], max_share=cap + 0.01)])
+    assert row["saving_per_point_per_1000"] == pytest.approx(1000 * (base - looser), rel=1e-6, abs=1e-6)
+    # after the re-solves of the sensitivity, the problem solves as before
+    assert close(problem.solve_lp().cost_per_case, base)
+    row = problem.solve(sensitivity=False).to_frame().iloc[0]
+    assert np.isnan(row["saving_if_removed_per_1000"]) and np.isnan(row["saving_per_point_per_1000"])
+    # without constraints: no saving per constraint, the table's columns still named
+    free = ConstrainedProblem(rl, costs, [], columns=("score",))
+    assert free.solve_lp().saving.shape == (0,)
+    assert list(free.solve().to_frame().columns) == [
+        "constraint", "kind", "arguments", "bound_key", "bound", "unit", "rows", "value", "slack", "binding", "dual",
+        "dual_per_1000", "saving_per_point_per_1000", "saving_if_removed_per_1000", "binding_rows", "note"]
+
+
+def test_values_and_slacks_of_one_and_two_sided_rows():
+    # one-sided rows (monotone: usually negative values) report their largest value, two-sided
+    # ones their largest absolute value; slack = bound - value, in each bound's unit
+    for seed in range(3):
+        rl, costs, columns = random_instance(seed, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+        W = rl.weights.sum()
+        specs = [{"kind": "monotone", "tolerance": 0.3, "name": "mono"},
+                 {"kind": "statistical_parity", "tolerance": 0.6, "name": "sp"},
+                 {"kind": "capacity", "max_cases": 0.9 * W, "name": "cases"}]
+        result = ConstrainedProblem(rl, costs, specs, columns=columns).solve(sensitivity=False)
+        table = result.to_frame().set_index("constraint")
+        mono, sp_values, cases = result.lp.row_values
+        assert table.loc["mono", "value"] == pytest.approx(mono.max(), abs=1e-12)
+        assert table.loc["mono", "slack"] == pytest.approx(0.3 - mono.max(), abs=1e-12)
+        assert table.loc["sp", "value"] == pytest.approx(np.abs(sp_values).max(), abs=1e-12)
+        assert table.loc["sp", "slack"] == pytest.approx(0.6 - np.abs(sp_values).max(), abs=1e-12)
+        assert table.loc["cases", "value"] == pytest.approx(cases[0] * W, rel=1e-9)
+        assert table.loc["cases", "slack"] == pytest.approx(0.9 * W - cases[0] * W, rel=1e-9)
+    # exactly three and exactly four binding rows: named all, or three and "1 more"
+    rl, costs, columns = random_instance(2, n_scores=3, n_buckets=2, n_groups=3, aware=True)
+    three = ConstrainedProblem(rl, costs, [{"kind": "statistical_parity", "tolerance": 0.0, "thresholds": ["L2"]}],
+                               columns=columns).solve(sensitivity=False).to_frame().iloc[0]["binding_rows"]
+    assert three.count("; ") == 2 and "more" not in three
+    rl, costs, columns = random_instance(2, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    four = ConstrainedProblem(rl, costs, [{"kind": "conditional_parity", "within": "bucket", "tolerance": 0.0}],
+                              columns=columns).solve(sensitivity=False).to_frame().iloc[0]
+    assert four["rows"] == 4 and four["binding_rows"].endswith("; and 1 more") and four["binding_rows"].count("; ") == 3
