@@ -6,6 +6,8 @@ A harsher than level 0 above r = 2 and than level 1 above 4, B harsher than both
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -85,6 +87,7 @@ def test_band_and_threshold_tables_by_hand(hand):  # noqa: F811
     # without the percentile intervals the columns are there, empty
     bare = SweepBands(ratios, bands.share, bands.lower, bands.upper, t, t, t, {}, "")
     assert bare.band_table(axis)[["percentile_lower", "percentile_upper"]].isna().all().all()
+    assert (bare.band_table(axis)[["percentile_lower", "percentile_upper"]].dtypes == np.float64).all()
     assert bare.threshold_table(s)[["percentile_lower", "percentile_upper"]].isna().all().all()
 
 
@@ -96,9 +99,37 @@ def test_centred_interval_by_hand():
     assert lo[0] == pytest.approx(0.25) and hi[0] == pytest.approx(0.75)
     lo, hi = centred_interval(point, reps, 0.5, 0.3, 0.7)            # clipped to [0.3, 0.7]
     assert (lo[0], hi[0]) == (pytest.approx(0.3), pytest.approx(0.7))
-    # undefined in exactly half the replicates: no interval; in fewer than half: the rest decide
-    half = np.array([[np.nan], [0.6], [np.inf], [0.4]])
-    assert np.isnan(centred_interval(point, half, 0.5)[0]).all()
+    # undefined in exactly half the replicates: no interval; in fewer than half: the rest decide;
+    # each figure on its own count
+    half = np.array([[np.nan, 0.5], [0.6, 0.5], [np.inf, 0.5], [0.4, 0.5]])
+    lo, hi = centred_interval(np.array([0.5, 0.5]), half, 0.5)
+    assert np.isnan(lo[0]) and np.isnan(hi[0]) and (lo[1], hi[1]) == (0.5, 0.5)
     most = np.array([[np.nan], [0.6], [0.7], [0.4]])
     lo, hi = centred_interval(point, most)
     assert hi[0] == pytest.approx(0.5 + np.percentile([0.1, 0.2, 0.1], 95))
+    # one replicate: the interval reaches it on both sides
+    lo, hi = centred_interval(point, np.array([[0.7]]))
+    assert (lo[0], hi[0]) == (pytest.approx(0.3), pytest.approx(0.7))
+    # a single figure without replicates; a figure undefined in every replicate, with no warning
+    lo, hi = centred_interval(np.float64(0.5), np.empty(0))
+    assert np.isnan(lo) and np.isnan(hi)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        lo, hi = centred_interval(np.array([0.5, 0.5]), np.array([[np.nan, 0.4], [np.nan, 0.6]]))
+    assert np.isnan(lo[0]) and np.isnan(hi[0]) and hi[1] == pytest.approx(0.6)
+
+
+def test_level_thresholds_with_two_and_four_levels():
+    # Reference: numpy's argmin (first minimum) on a grid, read as "level(r) > d iff r > t_d"
+    rng = np.random.default_rng(3)
+    for L in (2, 4):
+        # levels that only grow with r: slopes decreasing in the level
+        A = np.cumsum(rng.uniform(0, 2, (50, L)), axis=1)
+        B = -np.cumsum(rng.uniform(0, 2, (50, L)), axis=1)
+        env = lower_envelope(A, B)
+        t = level_thresholds(env, L)
+        r = np.linspace(-3, 8, 2201)
+        level = np.argmin(A[None] + r[:, None, None] * B[None], axis=-1)
+        for d in range(L - 1):
+            on_grid = np.isin(r[:, None], t[:, d][None])    # at a threshold itself the tie goes lenient
+            np.testing.assert_array_equal((level > d)[~on_grid.any(axis=1)], (r[:, None] > t[None, :, d])[~on_grid.any(axis=1)])
