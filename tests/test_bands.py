@@ -9,9 +9,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from policy.assessment.sweep.bands import centred_interval
+from policy.assessment.sweep import level_thresholds, ratio_axis, sweep_one
+from policy.assessment.sweep.bands import centred_interval, sweep_bands
 from policy.assessment.sweep.scenario_sweep import sweep_scenario
-from policy.assessment.uncertainty import percentile_interval
+from policy.assessment.uncertainty import InProcess, percentile_interval
+from policy.decision.costs import costs_from_scenario
+from policy.estimation.strata import RiskLevelEstimator
+from policy.running.pipeline import estimate
 
 
 def test_centred_interval_contains_a_point_the_percentile_band_excludes():
@@ -44,3 +48,83 @@ def test_sweep_bands_contain_the_exact_sweep(demo_scenario):
     assert {"percentile_lower", "percentile_upper"} <= set(table.columns)
     assert "centred on the estimate" in b.label and "centred on the estimate" in str(result)
     assert b.meta["interval"] == b.label and "percentile" in b.meta["percentile_interval"]
+
+
+# -- sweep_bands itself, called directly on the demo ---------------------------------------------
+class CountingRunner(InProcess):
+    """The in-process runner, counting the maps it is given (to see that a runner passed is used)."""
+
+    def __init__(self):
+        super().__init__()
+        self.maps = 0
+
+    def map(self, *args, **kwargs):
+        self.maps += 1
+        return super().map(*args, **kwargs)
+
+
+@pytest.fixture(scope="module")
+def demo_sweep(demo_scenario):
+    cells, rl = estimate(demo_scenario)
+    costs = costs_from_scenario(demo_scenario, rl)
+    axis = ratio_axis(rl, costs, "new_violent")
+    return cells, rl, costs, sweep_one(rl, costs, axis, 0.0, 4 * axis.scenario_ratio), \
+        RiskLevelEstimator.from_scenario(demo_scenario)
+
+
+def test_sweep_bands_defaults_grid_clipping_and_labels(demo_sweep, capsys):
+    cells, rl, costs, s, est = demo_sweep
+    b = sweep_bands(cells, rl, costs, s, est, 10, 3, workers=1)
+    assert capsys.readouterr().err == ""                            # no progress bar unless asked
+    np.testing.assert_allclose(b.ratios, np.linspace(s.lo, s.hi, 200))
+    np.testing.assert_allclose(b.share, s.lenient_share_at(b.ratios))
+    np.testing.assert_array_equal(b.thresholds, np.clip(level_thresholds(s.envelope, rl.n_levels), s.lo, s.hi))
+    assert b.meta["resampling"] == "poisson" and b.meta["outcomes"] == "model" and b.meta["seed"] == 3
+    assert b.meta["replicates"] == 10 and b.label == "95% bootstrap interval centred on the estimate"
+    assert b.meta["percentile_interval"] == "95% bootstrap percentile interval"
+    # the intervals stay in the figures' ranges, and some reach their ends (the clip acts)
+    assert (b.lower >= 0).all() and (b.upper <= 1).all() and (b.lower == 0).any()
+    finite = np.isfinite(b.thresholds_lower)
+    assert finite.any() and (b.thresholds_lower[finite] >= s.lo).all() and (b.thresholds_upper[finite] <= s.hi).all()
+    assert (b.thresholds_lower == s.lo).any() and (b.thresholds_upper == s.hi).any()
+    for lo, hi in ((b.percentile_lower, b.percentile_upper), (b.thresholds_percentile_lower, b.thresholds_percentile_upper)):
+        ok = np.isfinite(lo)
+        assert ok.any() and (lo[ok] <= hi[ok]).all()
+
+
+def test_sweep_bands_follow_their_arguments(demo_sweep):
+    cells, rl, costs, s, est = demo_sweep
+    kw = dict(points=7, workers=1)
+    b = sweep_bands(cells, rl, costs, s, est, 10, 3, **kw)
+    again = sweep_bands(cells, rl, costs, s, est, 10, 3, **kw)
+    np.testing.assert_array_equal(b.lower, again.lower)                 # the seed is used
+    narrow = sweep_bands(cells, rl, costs, s, est, 10, 3, level=0.5, **kw)
+    assert narrow.label == "50% bootstrap interval centred on the estimate"
+    assert (narrow.lower >= b.lower - 1e-12).all() and (narrow.upper <= b.upper + 1e-12).all()
+    assert (narrow.upper - narrow.lower < b.upper - b.lower).any()
+
+
+def test_sweep_bands_resampling_outcomes_and_no_replicates(demo_sweep):
+    cells, rl, costs, s, est = demo_sweep
+    kw = dict(points=7, workers=1)
+    b = sweep_bands(cells, rl, costs, s, est, 10, 3, **kw)
+    cases = sweep_bands(cells, rl, costs, s, est, 10, 3, outcomes="cases", **kw)
+    assert cases.meta["outcomes"] == "cases" and not np.array_equal(cases.lower, b.lower)
+    multi = sweep_bands(cells, rl, costs, s, est, 10, 3, method="multinomial", **kw)
+    assert multi.meta["resampling"] == "multinomial"
+    none = sweep_bands(cells, rl, costs, s, est, 0, 3, **kw)
+    assert none.label == "no interval (no replicates)" and np.isnan(none.lower).all()
+
+
+def test_sweep_bands_runner_rule_columns_and_log_grid(demo_sweep):
+    cells, rl, costs, s, est = demo_sweep
+    kw = dict(points=7, workers=1)
+    runner = CountingRunner()
+    sweep_bands(cells, rl, costs, s, est, 10, 3, points=7, runner=runner)
+    assert runner.maps == 1
+    # one rule cell for everyone: its thresholds and their intervals
+    axis = s.axis
+    whole = sweep_one(rl, costs, axis, 0.5, 4 * axis.scenario_ratio, columns=[], scale="log")
+    wb = sweep_bands(cells, rl, costs, whole, est, 10, 3, **kw)
+    np.testing.assert_allclose(wb.ratios, np.geomspace(0.5, 4 * axis.scenario_ratio, 7))
+    assert wb.thresholds.shape == wb.thresholds_lower.shape == (1, rl.n_levels - 1)
