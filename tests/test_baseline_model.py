@@ -141,6 +141,57 @@ def test_loglinear_rates_stop_at_the_tolerance():
                            loglinear_rates(events, exposure, factors, tol=1e-12), rtol=1e-9, atol=0)
 
 
+def _three_columns(order):
+    # 30 of the 36 combinations of u (3 categories) x v (2) x w (6, the column of most
+    # categories), in the column order given: the sweeps can run on the u x v combinations
+    rng = np.random.default_rng(11)
+    full = pd.MultiIndex.from_product([range(3), range(2), range(6)], names=["u", "v", "w"]).to_frame(index=False)
+    frame = full.iloc[np.sort(rng.choice(len(full), 30, replace=False))].reset_index(drop=True)
+    cats = {"u": ["u0", "u1", "u2"], "v": ["v0", "v1"], "w": [f"w{k}" for k in range(6)]}
+    frame = pd.DataFrame({c: pd.Categorical(np.asarray(cats[c])[frame[c]], categories=cats[c], ordered=True)
+                          for c in order})
+    layout = CellLayout(frame)
+    exposure = rng.uniform(5, 60, (2, 30, 2))
+    w = layout.codes("w")
+    events = rng.poisson(exposure * np.array([0.1, 0.3]) * (1 + 0.2 * w)[:, None]).astype(float)
+    events[1][w == 2, 0] = 0.0  # a category of the largest column without events in one fit
+    return layout, events, exposure
+
+
+@pytest.mark.parametrize("order", [("u", "w", "v"), ("w", "u", "v"), ("u", "v", "w")])
+@pytest.mark.parametrize("smoothing, max_sweeps, tol", [(1.0, 200, 1e-9), (1.0, 1, 1e-9), (2.5, 3, 1e-9),
+                                                        (0.0, 200, 1e-9), (1.0, 200, 1e-3)])
+def test_collapsed_sweeps_take_the_same_steps(order, smoothing, max_sweeps, tol):
+    # the sweeps on the combinations of the other columns against the fitting steps written out
+    # with plain loops on every cell (and the sweeps on every cell): the same steps in the same
+    # order, each fit of the batch stopping on its own
+    layout, events, exposure = _three_columns(order)
+    factors = factor_matrices(layout, list(order))
+    codes = [c for _, c in factors]
+    sizes = [len(layout.categories(c)) for c in order]
+    fast = loglinear_rates(events, exposure, factors, smoothing=smoothing, max_sweeps=max_sweeps, tol=tol, collapse=True)
+    cells = loglinear_rates(events, exposure, factors, smoothing=smoothing, max_sweeps=max_sweeps, tol=tol, collapse=False)
+    np.testing.assert_allclose(fast, cells, rtol=1e-12)
+    for f in range(2):
+        expected = _ipf_by_loops(events[f], exposure[f], codes, sizes, smoothing, max_sweeps, tol)
+        np.testing.assert_allclose(fast[f], expected, rtol=1e-12)
+
+
+def test_collapsed_sweeps_match_statsmodels_poisson():
+    # reference: statsmodels' Poisson GLM (main effects, log exposure as offset), fit by fit
+    import statsmodels.api as sm
+
+    layout, events, exposure = _three_columns(("u", "w", "v"))
+    events[1][layout.codes("w") == 2, 0] = 1.0  # every category with an event: a finite optimum
+    got = loglinear_rates(events, exposure, factor_matrices(layout, ["u", "w", "v"]), smoothing=0.0, collapse=True)
+    X = pd.get_dummies(layout.frame, drop_first=True).astype(float)
+    X.insert(0, "const", 1.0)
+    for f in range(2):
+        for j in range(2):
+            ref = sm.GLM(events[f, :, j], X, family=sm.families.Poisson(), offset=np.log(exposure[f, :, j])).fit()
+            np.testing.assert_allclose(got[f, :, j], ref.fittedvalues / exposure[f, :, j], rtol=1e-7)
+
+
 def _level_counts(seed=4):
     rng = np.random.default_rng(seed)
     observed = rng.integers(0, 40, size=(6, 2, 3)).astype(float)

@@ -42,6 +42,7 @@ from policy.cautions import assumptions_for
 from policy.inputs.cells import CellLayout, CellTable
 from policy.errors import InputError
 from policy.inputs.scenario import Scenario
+from policy.estimation.loglinear import factor_matrices, loglinear_rates
 from policy.estimation.target import cell_level_ratios, select_level_terms
 
 __all__ = [
@@ -223,85 +224,6 @@ def level_risk_ratios(events: np.ndarray, observed: np.ndarray) -> np.ndarray:
     rr = np.clip(rr, 0.0, 1.0)
     ones = np.ones(rr.shape[:-1] + (1,))
     return np.concatenate([ones, np.cumprod(rr, axis=-1)], axis=-1)
-
-
-def factor_matrices(layout: CellLayout, columns: Sequence[str]) -> list[tuple[sp.csr_matrix, np.ndarray]]:
-    """Per cell column: a sparse (n_categories, n_cells) membership matrix and each cell's category."""
-    out = []
-    n = layout.n_cells
-    for col in columns:
-        codes = layout.codes(col)
-        k = len(layout.categories(col))
-        order = np.argsort(codes, kind="stable")
-        indptr = np.searchsorted(codes[order], np.arange(k + 1))
-        out.append((sp.csr_matrix((np.ones(n), order, indptr), shape=(k, n)), codes))
-    return out
-
-
-def loglinear_rates(events: np.ndarray, exposure: np.ndarray, factors: Sequence[tuple[sp.csr_matrix, np.ndarray]],
-                    smoothing: float = 1.0, max_sweeps: int = 200, tol: float = 1e-9) -> np.ndarray:
-    """Rates of a main-effects log-linear (Poisson) model, fitted by iterative proportional fitting.
-
-    Parameters
-    ----------
-    events, exposure : ndarray of shape (..., n_cells, J)
-        Events and exposure (cases) per cell; leading axes are independent fits.
-    factors : sequence of (sparse matrix of shape (n_categories, n_cells), codes of shape (n_cells,))
-        The cell columns of the model (:func:`factor_matrices`).
-    smoothing : float
-        Expected events (at the overall rate) added to both sides of every category's margin
-        ratio. A converged fit still matches every margin, so where every category has an event
-        the result is the Poisson maximum-likelihood fit whatever the smoothing (it only slows the
-        first sweeps). It matters for a category without events: with 0 its own margin is
-        left unmatched (its ratio is held at 1); with more, its rate falls with every sweep
-        toward the maximum-likelihood 0 and stays positive (the sweeps stop at ``max_sweeps``).
-
-    Returns
-    -------
-    ndarray of shape (..., n_cells, J)
-        Fitted rate per unit of exposure: exp(alpha + sum_u beta_u[category of the cell]).
-
-    Notes
-    -----
-    Iterative proportional fitting (Deming and Stephan 1940) matches, one cell column at a
-    time, the fitted events to the observed events in every category; for a main-effects
-    Poisson model with log exposure as offset it converges to the maximum-likelihood fit
-    (Bishop, Fienberg and Holland 1975, ch. 3).
-    """
-    events = np.asarray(events, dtype=np.float64)
-    exposure = np.asarray(exposure, dtype=np.float64)
-    total_e = events.sum(axis=-2, keepdims=True)
-    total_n = exposure.sum(axis=-2, keepdims=True)
-    overall = (total_e + 0.5) / (total_n + 1.0)
-    lead, (n, J) = events.shape[:-2], events.shape[-2:]
-    fits = int(np.prod(lead, dtype=np.int64))
-
-    # the loop works on cells-first matrices (n_cells, fits * J): the layout the sparse group sums
-    # take, so no sweep copies or moves an array (the same products and sums as on the original
-    # layout, so the same bits)
-    def cells_first(x: np.ndarray) -> np.ndarray:
-        return np.ascontiguousarray(np.moveaxis(np.broadcast_to(x, lead + (x.shape[-2], J)), -2, 0).reshape(x.shape[-2], -1))
-
-    exposure_c = cells_first(exposure)
-    overall_c = cells_first(overall)  # (1, fits * J)
-    rate = np.broadcast_to(overall_c, (n, fits * J)).copy()
-    observed_margins = [np.asarray(matrix @ cells_first(events)) for matrix, _ in factors]
-    # each fit (leading index) stops on its own, so a fit gives the same numbers alone or in a batch
-    active = np.ones(fits, dtype=bool)
-    active_c = np.ones(fits * J, dtype=bool)
-    for _ in range(max_sweeps):
-        change = np.zeros(fits)
-        for (matrix, codes), obs in zip(factors, observed_margins):
-            fitted = np.asarray(matrix @ (exposure_c * rate))
-            num, den = obs + smoothing * overall_c, fitted + smoothing * overall_c
-            ratio = np.where((num > 0) & (den > 0) & active_c, num / np.where(den > 0, den, 1.0), 1.0)
-            rate *= ratio[codes]
-            change = np.maximum(change, np.abs(np.log(ratio)).reshape(ratio.shape[0], fits, J).max(axis=(0, 2)))
-        active &= change >= tol
-        active_c = np.repeat(active, J)
-        if not active.any():
-            break
-    return np.ascontiguousarray(np.moveaxis(rate.reshape((n,) + lead + (J,)), 0, -2))
 
 
 def shrunk_baselines(events: np.ndarray, observed: np.ndarray, theta: np.ndarray,
