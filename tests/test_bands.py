@@ -100,6 +100,7 @@ def test_sweep_bands_follow_their_arguments(demo_sweep):
     np.testing.assert_array_equal(b.lower, again.lower)                 # the seed is used
     narrow = sweep_bands(cells, rl, costs, s, est, 10, 3, level=0.5, **kw)
     assert narrow.label == "50% bootstrap interval centred on the estimate"
+    assert narrow.meta["percentile_interval"] == "50% bootstrap percentile interval"
     assert (narrow.lower >= b.lower - 1e-12).all() and (narrow.upper <= b.upper + 1e-12).all()
     assert (narrow.upper - narrow.lower < b.upper - b.lower).any()
 
