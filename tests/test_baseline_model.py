@@ -367,7 +367,9 @@ def test_estimator_settings_zero_mask_and_probabilities():
     assert not np.allclose(rate, shrunk_rates(e0, n0, design, 3.0, zero, "all", None)[0])  # the limit binds
     expected = np.clip(np.where(zero, 0.0, isotonic_nonincreasing(np.where(zero, 0.0, rate), weight)), 0, 1)
     np.testing.assert_allclose(p, expected, rtol=1e-12)
-    np.testing.assert_allclose(kappa, k) and np.testing.assert_allclose(target, t)
+    np.testing.assert_allclose(kappa, k, rtol=1e-12)
+    np.testing.assert_allclose(target, t, rtol=1e-12)
+    assert (target[:, 1, 2] == 0).all()
     assert (p[:, 1, 2] == 0).all() and (np.diff(p, axis=-1) <= 1e-15).all()
 
 
@@ -386,6 +388,8 @@ def test_common_and_per_cell_level_ratios_and_a_batch():
     base = shrunk_baselines(events, observed, np.broadcast_to(theta, events.shape), factors)
     np.testing.assert_allclose(common, np.clip(base[..., None] * theta, 0, 1), rtol=1e-12)
     assert np.abs(per_cell - common).max() > 0.01
+    # by default the level terms the criterion keeps are used
+    np.testing.assert_allclose(shrunk_rates(events, observed, factors, 5.0)[3], per_cell, rtol=1e-12)
     # a leading axis of two fits with a given prior strength: each fit as alone, kappa per fit
     e2, n2 = np.stack([events, events[::-1]]), np.stack([observed, observed])
     out = shrunk_rates(e2, n2, factors, 5.0, None, level_terms=False)

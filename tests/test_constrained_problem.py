@@ -16,7 +16,11 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from policy.decision.constrained import ConstrainedProblem, LPSettings
+from policy.decision.constrained import (
+    ConstrainedProblem,
+    LPSettings,
+    solve_constrained,
+)
 from policy.decision.solve import optimal_rule
 from policy.errors import InfeasibleError, InputError, SolverError
 from policy.estimation.strata import RiskLevels
@@ -574,3 +578,40 @@ def test_values_and_slacks_of_one_and_two_sided_rows():
     four = ConstrainedProblem(rl, costs, [{"kind": "conditional_parity", "within": "bucket", "tolerance": 0.0}],
                               columns=columns).solve(sensitivity=False).to_frame().iloc[0]
     assert four["rows"] == 4 and four["binding_rows"].endswith("; and 1 more") and four["binding_rows"].count("; ") == 3
+
+
+def test_one_call_solve_present_and_forget_basis(instance):
+    rl, costs, columns = instance
+    cap = round(0.5 * _free_share(rl, costs, columns), 4)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": cap}]
+    expected, _ = reference_solve(rl, costs, columns, specs)
+    result = solve_constrained(rl, costs, specs, columns=columns, settings=LPSettings(), name="one call")
+    assert result.rule.name == "one call" and close(result.lp.cost_per_case, expected)
+    assert list(result.rule.rule_cells.columns) == list(columns)
+    assert solve_constrained(rl, costs, specs, columns).rule.name == "constrained optimal rule"
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    problem.forget_basis()  # before any solve: nothing to forget
+    lp = problem.solve_lp()
+    shown = problem.present(lp.delta, "shown")
+    assert shown.name == "shown" and np.array_equal(shown.delta, lp.delta) and shown.kind == "constrained"
+    # after forgetting its basis a problem solves as a newly built one, to the bit
+    problem.set_costs(outcome_costs=costs.outcome * 1.5).solve_lp()
+    problem.set_costs(outcome_costs=costs.outcome)
+    again = problem.forget_basis().solve_lp()
+    fresh = ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+    assert np.array_equal(again.delta, fresh.delta) and again.cost_per_case == fresh.cost_per_case
+    # and after a change of the model (other risk levels), too
+    problem.set_risk_levels(rl.with_p(rl.p * 0.9))
+    problem.forget_basis()
+    assert close(problem.solve_lp().cost_per_case, reference_solve(rl.with_p(rl.p * 0.9), costs, columns, specs)[0])
+
+
+def test_savings_of_a_constraint_after_one_without_rows():
+    rl, costs, columns = random_instance(5, n_scores=3, n_buckets=2, n_groups=2)
+    cap = round(0.5 * _free_share(rl, costs, columns), 4)
+    specs = [{"kind": "group_blind", "name": "blind"}, {"kind": "capacity", "at_least": "L1", "max_share": cap, "name": "cap"}]
+    table = ConstrainedProblem(rl, costs, specs, columns=columns).solve().to_frame().set_index("constraint")
+    assert table.loc["blind", "rows"] == 0 and table.loc["blind", "saving_if_removed_per_1000"] == 0.0
+    base, _ = reference_solve(rl, costs, columns, specs[1:])
+    free, _ = reference_solve(rl, costs, columns, [])
+    assert table.loc["cap", "saving_if_removed_per_1000"] == pytest.approx(1000 * (base - free), rel=1e-6)
