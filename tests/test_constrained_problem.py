@@ -515,6 +515,9 @@ def test_cvxpy_route_follows_changes_and_inactive_constraints(instance):
     assert close(problem.solve_lp().cost_per_case, reference_solve(half, dearer, columns, specs[:1])[0], 1e-5)
     problem.set_risk_levels(half, dearer)
     assert close(problem.solve_lp().cost_per_case, reference_solve(half, dearer, columns, specs[:1])[0], 1e-5)
+    problem.forget_basis()
+    problem.set_active("none", True)
+    assert close(problem.solve_lp().cost_per_case, reference_solve(half, dearer, columns, specs)[0], 1e-5)
     # conflicting constraints found infeasible by cvxpy's solver are explained as with HiGHS
     conflict = ConstrainedProblem(rl, costs, [{"kind": "capacity", "max_share": 0.0},
                                               {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.0}],
@@ -589,6 +592,9 @@ def test_one_call_solve_present_and_forget_basis(instance):
     assert result.rule.name == "one call" and close(result.lp.cost_per_case, expected)
     assert list(result.rule.rule_cells.columns) == list(columns)
     assert solve_constrained(rl, costs, specs, columns).rule.name == "constrained optimal rule"
+    assert list(solve_constrained(rl, costs, specs, ("score",)).rule.rule_cells.columns) == ["score"]
+    with pytest.raises(SolverError):  # the settings given are used
+        solve_constrained(rl, costs, specs, columns, settings=LPSettings(time_limit=1e-12))
     problem = ConstrainedProblem(rl, costs, specs, columns=columns)
     problem.forget_basis()  # before any solve: nothing to forget
     lp = problem.solve_lp()
@@ -600,10 +606,12 @@ def test_one_call_solve_present_and_forget_basis(instance):
     again = problem.forget_basis().solve_lp()
     fresh = ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
     assert np.array_equal(again.delta, fresh.delta) and again.cost_per_case == fresh.cost_per_case
-    # and after a change of the model (other risk levels), too
+    # and after a change of the model (other risk levels), followed by other costs, too
     problem.set_risk_levels(rl.with_p(rl.p * 0.9))
     problem.forget_basis()
-    assert close(problem.solve_lp().cost_per_case, reference_solve(rl.with_p(rl.p * 0.9), costs, columns, specs)[0])
+    problem.set_costs(outcome_costs=costs.outcome * 2.0)
+    assert close(problem.solve_lp().cost_per_case,
+                 reference_solve(rl.with_p(rl.p * 0.9), replace(costs, outcome=costs.outcome * 2.0), columns, specs)[0])
 
 
 def test_savings_of_a_constraint_after_one_without_rows():
