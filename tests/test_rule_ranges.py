@@ -138,3 +138,22 @@ def test_monotone_ranges_lie_within_the_box_ranges_and_agree_with_the_extremes(s
     costs_box = rule_ranges(rules, rl, costs, intervals, monotone=False)
     assert (costs_mono["cost_per_1000_cases_upper"] <= costs_box["cost_per_1000_cases_upper"] + 1e-6).all()
     assert (costs_mono["cost_per_1000_cases_lower"] >= costs_box["cost_per_1000_cases_lower"] - 1e-6).all()
+
+
+def test_regret_ranges_of_rules_that_agree_on_most_cells_equal_each_pair_alone(setup):
+    # the ranges prepare each set's boxes once and skip the rows where two rules agree; every
+    # pair must give the same numbers, to the bit, as regret_extremes alone on every row
+    _, rl, costs, rules, intervals = setup
+    other = optimal_rule(rl, costs.with_outcome_cost(2, 1.5 * costs.outcome[2]))
+    rules = [rules[0], replace(other, name="optimum at a dearer new violent offense"),
+             replace(rules[0], name="the optimum again")] + rules[1:]
+    changed = ~np.all(rules[0].cell_delta == rules[1].cell_delta, axis=1)
+    assert 0 < changed.sum() < len(changed)  # the two optima agree on some cells and not on others
+    got = regret_ranges(rules, rl, costs, intervals).set_index(["rule", "against", "assumption"])
+    for b in intervals:
+        for ra, rb in itertools.permutations(rules, 2):
+            lo, hi = regret_extremes(ra.cell_delta, rb.cell_delta, rl, costs, b)
+            row = got.loc[(ra.name, rb.name, b.key)]
+            assert (row["regret_per_1000_cases_lower"], row["regret_per_1000_cases_upper"]) == (1000 * lo, 1000 * hi)
+    same = got.loc[(rules[0].name, rules[2].name)]
+    assert (same["regret_per_1000_cases_lower"] == 0).all() and (same["regret_per_1000_cases_upper"] == 0).all()

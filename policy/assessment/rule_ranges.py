@@ -65,7 +65,7 @@ def _monotone_ends(b: RiskBounds) -> tuple[np.ndarray, np.ndarray]:
 
 
 def regret_extremes(delta_a: np.ndarray, delta_b: np.ndarray, risk_levels: RiskLevels, costs: Costs,
-                    bounds: RiskBounds, monotone: bool = True) -> tuple[float, float]:
+                    bounds: RiskBounds, monotone: bool = True, boxes: "_Boxes | None" = None) -> tuple[float, float]:
     """The smallest and largest regret per case of rule A against rule B over a set: min and max
     over p of cost(A, p) - cost(B, p), p in the box (with ``monotone``, intersected with the chain
     p_j0 >= p_j1 >= ... of every cell and outcome kind; the box alone where that is empty).
@@ -77,6 +77,8 @@ def regret_extremes(delta_a: np.ndarray, delta_b: np.ndarray, risk_levels: RiskL
     risk_levels, costs, bounds
         The cells' weights, the costs and the set.
     monotone : bool
+    boxes : optional
+        The set's boxes prepared once for many pairs of rules (:func:`regret_ranges`).
 
     Returns
     -------
@@ -84,22 +86,58 @@ def regret_extremes(delta_a: np.ndarray, delta_b: np.ndarray, risk_levels: RiskL
         Smallest and largest regret per case; A costs more than B under every distribution of
         the set when the first is above 0.
     """
-    from policy.decision.safe import chain_box_maximum
-
     w = np.asarray(risk_levels.weights, dtype=np.float64)
     W = w.sum()
     diff = np.asarray(delta_a, dtype=np.float64) - np.asarray(delta_b, dtype=np.float64)
     n, J, L = bounds.lower.shape
     a = (w[:, None, None] * costs.outcome[None, :, None] * diff[:, None, :] / W).reshape(n * J, L)
-    lo, hi = bounds.lower.reshape(n * J, L), bounds.upper.reshape(n * J, L)
-    chain = _chain(lo, hi) if monotone else np.zeros(n * J, dtype=bool)
-    top = chain_box_maximum(a, lo, hi, False)
-    bottom = -chain_box_maximum(-a, lo, hi, False)
-    if chain.any():
-        top[chain] = chain_box_maximum(a[chain], lo[chain], hi[chain], True)
-        bottom[chain] = -chain_box_maximum(-a[chain], lo[chain], hi[chain], True)
+    top, bottom = (boxes or _Boxes(bounds, monotone)).extremes(a)
     fixed = float((w[:, None] * diff * costs.decision).sum() / W)
     return fixed + float(bottom.sum()), fixed + float(top.sum())
+
+
+class _Boxes:
+    """The (cell, outcome kind) boxes of one set, prepared for the regrets of many pairs of rules:
+    which meet the chain, the chain-boxes' grids (:func:`policy.decision.safe.chain_box_grid`), and
+    with ``skip`` each box's extremes for a zero objective, which every row where two rules agree
+    takes without a dynamic program (the same numbers: only rows of +0 coefficients are skipped)."""
+
+    def __init__(self, bounds: RiskBounds, monotone: bool, skip: bool = False):
+        from policy.decision.safe import chain_box_grid
+
+        n, J, L = bounds.lower.shape
+        self.lo, self.hi = bounds.lower.reshape(n * J, L), bounds.upper.reshape(n * J, L)
+        self.chain = _chain(self.lo, self.hi) if monotone else np.zeros(n * J, dtype=bool)
+        rows = np.flatnonzero(self.chain)
+        self.position = np.cumsum(self.chain) - 1  # a chain row's place among the chain rows
+        self.grid = chain_box_grid(self.lo[rows], self.hi[rows])
+        self.zero = None
+        self.zero = self.extremes(np.zeros(self.lo.shape)) if skip else None
+
+    def extremes(self, a: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per box, max a'p and min a'p over its chain-box (its box where the chain misses it)."""
+        from policy.decision.safe import chain_box_maximum
+
+        if self.zero is None:
+            rows = np.arange(len(a))
+            top, bottom = np.empty(len(a)), np.empty(len(a))
+        else:
+            rows = np.flatnonzero(~((a == 0) & ~np.signbit(a)).all(axis=-1))
+            top, bottom = self.zero[0].copy(), self.zero[1].copy()
+        a_rows, lo, hi = a[rows], self.lo[rows], self.hi[rows]
+        top[rows] = chain_box_maximum(a_rows, lo, hi, False)
+        bottom[rows] = -chain_box_maximum(-a_rows, lo, hi, False)
+        on = self.chain[rows]
+        if on.any():
+            chain_rows = rows[on]
+            if len(chain_rows) == len(self.grid[0]):  # every chain row
+                grid = self.grid
+            else:
+                at = self.position[chain_rows]
+                grid = (self.grid[0][at], [m[at] for m in self.grid[1]])
+            top[chain_rows] = chain_box_maximum(a_rows[on], lo[on], hi[on], True, grid)
+            bottom[chain_rows] = -chain_box_maximum(-a_rows[on], lo[on], hi[on], True, grid)
+        return top, bottom
 
 
 def _parts(rules: Sequence[Rule], weights: np.ndarray, costs: Costs):
@@ -177,9 +215,11 @@ def regret_ranges(rules: Sequence[Rule], risk_levels: RiskLevels, costs: Costs, 
     for b in intervals:
         if monotone:
             lo, hi = np.zeros((R, R)), np.zeros((R, R))
+            boxes = _Boxes(b, True, skip=R > 2)
             for a in range(R):
                 for o in range(a + 1, R):
-                    lo[a, o], hi[a, o] = regret_extremes(rules[a].cell_delta, rules[o].cell_delta, risk_levels, costs, b)
+                    lo[a, o], hi[a, o] = regret_extremes(rules[a].cell_delta, rules[o].cell_delta, risk_levels, costs, b,
+                                                         boxes=boxes)
                     lo[o, a], hi[o, a] = -hi[a, o], -lo[a, o]
         else:
             coef = diff[:, :, :, None, :] * c[None, None, None, :, None]  # (R, R, n, J, L)

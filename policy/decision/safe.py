@@ -237,7 +237,8 @@ class RegretProgram:
         return status, x, seconds
 
 
-def chain_box_maximum(a: np.ndarray, lower: np.ndarray, upper: np.ndarray, monotone: bool = True) -> np.ndarray:
+def chain_box_maximum(a: np.ndarray, lower: np.ndarray, upper: np.ndarray, monotone: bool = True,
+                      grid: tuple[np.ndarray, list[np.ndarray]] | None = None) -> np.ndarray:
     """max a'p over {lower <= p <= upper, p_0 >= p_1 >= ...}, for many chain-boxes at once.
 
     Parameters
@@ -245,6 +246,8 @@ def chain_box_maximum(a: np.ndarray, lower: np.ndarray, upper: np.ndarray, monot
     a, lower, upper : ndarray of shape (m, L)
     monotone : bool
         Without it, the box alone: sum_d max(a_d l_d, a_d u_d).
+    grid : tuple, optional
+        :func:`chain_box_grid` of these boxes, when many objectives share them.
 
     Returns
     -------
@@ -261,16 +264,25 @@ def chain_box_maximum(a: np.ndarray, lower: np.ndarray, upper: np.ndarray, monot
     """
     if not monotone:
         return np.maximum(a * lower, a * upper).sum(axis=-1)
-    values = np.sort(np.concatenate([lower, upper], axis=-1), axis=-1)   # (m, 2L)
+    values, allowed_at = chain_box_grid(lower, upper) if grid is None else grid
     best = None
     for d in range(a.shape[-1]):
-        allowed = (values >= lower[:, d:d + 1] - 1e-15) & (values <= upper[:, d:d + 1] + 1e-15)
+        allowed = allowed_at[d]
         if best is None:
             reach = np.zeros_like(values)
         else:  # the best over v' >= v: a suffix maximum along the sorted values
             reach = np.flip(np.maximum.accumulate(np.flip(best, axis=-1), axis=-1), axis=-1)
         best = np.where(allowed, reach + a[:, d:d + 1] * values, -np.inf)
     return best.max(axis=-1)
+
+
+def chain_box_grid(lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The values an extreme point of each chain-box can take, sorted (m, 2L), and which of them
+    each coordinate d allows (L masks of shape (m, 2L)): what :func:`chain_box_maximum` needs
+    besides the objective."""
+    values = np.sort(np.concatenate([lower, upper], axis=-1), axis=-1)   # (m, 2L)
+    return values, [(values >= lower[:, d:d + 1] - 1e-15) & (values <= upper[:, d:d + 1] + 1e-15)
+                    for d in range(lower.shape[-1])]
 
 
 def regret_parts(delta_cells: np.ndarray, baseline: np.ndarray, risk_levels: RiskLevels, costs: Costs,
