@@ -20,15 +20,21 @@ random instances in tests/test_sweep_constrained.py.
 
 from __future__ import annotations
 
+import pickle
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import pytest
 
 from policy.assessment.sweep import ratio_axis, sweep_one
 from policy.assessment.sweep.constrained import SWEEP_BLOCK, constrained_sweep, ratio_grid
+from policy.assessment.uncertainty import InProcess
+from policy.decision.constrained import LPSettings
 from policy.errors import InputError
 
-from .test_sweep_tables import hand_example
+from .constrained_reference import random_instance
+from .test_sweep_tables import LABELS, LEVELS, hand_example
 
 CAP = [{"kind": "capacity", "name": "quarter", "at_least": "cond", "max_share": 0.25}]
 
@@ -114,7 +120,10 @@ def test_one_bound_as_declared_infeasible_points_and_no_removal():
     assert list(frame["varied"]) == ["", ""] and frame["bound"].isna().all()
     assert list(cs.price_table()["constraint"]) == ["quarter", "none"] * 2
     assert np.isnan(cs.summary()["bound"]).all()
-    assert str(cs).splitlines()[1] == "  price 0 to 25,000 EUR per 1,000 cases over the grid; 25,000 near the scenario's ratio"
+    lines = str(cs).splitlines()
+    assert lines[0] == f"Constrained optimum re-solved at 2 ratios from 1 to 3 (quarter, none; {cs.solver})."
+    assert lines[1] == "  price 0 to 25,000 EUR per 1,000 cases over the grid; 25,000 near the scenario's ratio"
+    assert (cs.price_table()["varied"] == "").all()
     # an outcome rate of 0.1 cannot be reached (everyone at bond gives (2 x 0.125 + 0.25 + 0.25) / 4
     # = 0.1875): reported as infeasible, and the sweep goes on to the next bound
     rate = CAP + [{"kind": "outcome_cap", "name": "rate", "outcome": "o0", "max_rate": 0.1}]
@@ -159,3 +168,72 @@ def test_ratio_grid_by_hand():
     with pytest.raises(InputError) as err:
         ratio_grid(0.0, 1.0, 1, "linear")
     assert str(err.value) == "a constrained sweep needs at least 2 grid points; got 1."
+
+
+class PicklingRunner(InProcess):
+    """The in-process runner, but the shared state goes through pickle first, as it does to a
+    worker process (which then builds its own problem)."""
+
+    def map(self, fn, shared, tasks, finished=None):
+        return super().map(fn, pickle.loads(pickle.dumps(shared)), tasks, finished)
+
+
+def test_a_worker_builds_its_own_problem_with_the_same_answers():
+    rl, costs, _ = random_instance(3, n_scores=3, n_buckets=2, n_groups=2)
+    columns = ["score"]                                 # not the layout's own rule columns
+    axis = ratio_axis(rl, costs, "o0")
+    specs = [{"kind": "principal_fairness", "name": "fair", "outcome": "o0", "tolerance": 0.03},
+             {"kind": "capacity", "name": "cap", "at_least": "L2", "max_share": 0.2}]
+    settings = LPSettings(method="ipm")
+    ratios = ratio_grid(0.0, 3.0, 4, "linear")
+    here = constrained_sweep(rl, costs, axis, ratios, specs, columns=columns, settings=settings, vary="cap",
+                             values=[0.1, 0.3])
+    there = constrained_sweep(rl, costs, axis, ratios, specs, columns=columns, settings=settings, vary="cap",
+                              values=[0.1, 0.3], runner=PicklingRunner())
+    assert "ipm" in here.solver
+    for name in ("cost", "shares", "dual", "removed"):
+        np.testing.assert_allclose(getattr(there, name), getattr(here, name), rtol=1e-7, atol=1e-9)
+    np.testing.assert_array_equal(there.split, here.split)
+
+
+def test_group_blind_rules_have_no_dual_and_one_rule_cell_for_everyone():
+    rl, costs, columns = random_instance(2, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    axis = ratio_axis(rl, costs, "o0")
+    specs = [{"kind": "group_blind", "name": "blind"}, {"kind": "capacity", "name": "cap", "at_least": "L1",
+                                                         "max_share": 0.4}]
+    cs = constrained_sweep(rl, costs, axis, [0.5, 2.0], specs, columns=columns)
+    assert np.isnan(cs.dual[..., 0]).all() and np.isfinite(cs.dual[..., 1]).all()
+    assert cs.price_table()["dual_per_1000"].isna().tolist() == [True, False] * 2
+    # one rule cell for the hand example's four cases: 350 r, 400 + 250 r, 800 + 150 r in total, all
+    # lenient at r = 3 (the cap is slack): 1050 / 4 per case, and the unconstrained optimum on the
+    # same rule columns costs the same
+    rl, costs = hand_example()
+    one = constrained_sweep(rl, costs, ratio_axis(rl, costs, "o0"), [3.0], CAP, columns=[])
+    assert one.cost[0, 0] == pytest.approx(262.5) and one.unconstrained[0] == pytest.approx(262.5)
+
+
+def test_no_constraint_message_and_stored_labels():
+    rl, costs = hand_example()
+    axis = ratio_axis(rl, costs, "o0")
+    with pytest.raises(InputError) as err:
+        constrained_sweep(rl, costs, axis, [1.0], [])
+    assert str(err.value) == "a constrained sweep needs at least one constraint."
+    cs = constrained_sweep(rl, costs, axis, [1.0], CAP)
+    assert cs.level_labels == LABELS and cs.level_values == LEVELS and cs.split.dtype == np.int64
+    assert [s.name for s in cs.specs] == ["quarter"] and cs.axis is axis
+
+
+def test_text_without_a_unit_and_with_some_infeasible_points(swept):
+    # a sweep whose second grid point (the scenario's ratio) could not be solved, built from the
+    # hand example's result (constraints that do not involve costs hold at every ratio or none,
+    # so the library itself meets this only when the solver fails at a point)
+    _, _, _, cs, _ = swept
+    feasible = cs.feasible.copy()
+    feasible[0, 1] = False
+    cost = np.where(feasible, cs.cost, np.nan)
+    partial = replace(cs, feasible=feasible, cost=cost, unit="")
+    lines = str(partial).splitlines()
+    assert lines[1] == ("  bound 0.25: price 0 to 56,250 per 1,000 cases over the grid; nan near the scenario's ratio; "
+                        "infeasible at 1 points")
+    summary = partial.summary()
+    assert np.isnan(summary["price_per_1000_there"][0]) and summary["infeasible_points"].tolist() == [1, 0]

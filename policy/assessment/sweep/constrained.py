@@ -173,7 +173,7 @@ class ConstrainedSweep:
             if np.isfinite(row["lowest_price_per_1000"]):
                 lines.append(f"{head}price {row['lowest_price_per_1000']:,.0f} to {row['highest_price_per_1000']:,.0f}{unit} "
                              f"per 1,000 cases over the grid; {row['price_per_1000_there']:,.0f} near the scenario's ratio"
-                             + (f"; infeasible at {row['infeasible_points']} points" if row["infeasible_points"] else ""))
+                             + (f"; infeasible at {int(row['infeasible_points'])} points" if row["infeasible_points"] else ""))
             else:
                 lines.append(f"{head}the constraints cannot all hold anywhere on the grid")
         return "\n".join(lines)
