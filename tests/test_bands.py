@@ -52,15 +52,18 @@ def test_sweep_bands_contain_the_exact_sweep(demo_scenario):
 
 # -- sweep_bands itself, called directly on the demo ---------------------------------------------
 class CountingRunner(InProcess):
-    """The in-process runner, counting the maps it is given (to see that a runner passed is used)."""
+    """The in-process runner, counting the maps it is given (to see that a runner passed is used)
+    and keeping what they return (the first task is the statistic on the data themselves)."""
 
     def __init__(self):
         super().__init__()
         self.maps = 0
+        self.parts = None
 
     def map(self, *args, **kwargs):
         self.maps += 1
-        return super().map(*args, **kwargs)
+        self.parts = super().map(*args, **kwargs)
+        return self.parts
 
 
 @pytest.fixture(scope="module")
@@ -121,8 +124,13 @@ def test_sweep_bands_runner_rule_columns_and_log_grid(demo_sweep):
     cells, rl, costs, s, est = demo_sweep
     kw = dict(points=7, workers=1)
     runner = CountingRunner()
-    sweep_bands(cells, rl, costs, s, est, 10, 3, points=7, runner=runner)
+    b = sweep_bands(cells, rl, costs, s, est, 10, 3, points=7, runner=runner)
     assert runner.maps == 1
+    # the replicates' statistic applied to the unresampled counts re-estimates the risk levels with
+    # the scenario's own model, so it gives the exact sweep's figures back
+    on_data = runner.parts[0]
+    np.testing.assert_allclose(on_data["share_lenient"][0], b.share, atol=1e-9)
+    np.testing.assert_allclose(on_data["thresholds"][0], b.thresholds, rtol=1e-6)
     # one rule cell for everyone: its thresholds and their intervals
     axis = s.axis
     whole = sweep_one(rl, costs, axis, 0.5, 4 * axis.scenario_ratio, columns=[], scale="log")
