@@ -21,6 +21,7 @@ from policy.decision.constrained import (
     LPSettings,
     solve_constrained,
 )
+from policy.decision.costs import Costs
 from policy.decision.solve import optimal_rule
 from policy.errors import InfeasibleError, InputError, SolverError
 from policy.estimation.strata import RiskLevels
@@ -623,3 +624,25 @@ def test_savings_of_a_constraint_after_one_without_rows():
     base, _ = reference_solve(rl, costs, columns, specs[1:])
     free, _ = reference_solve(rl, costs, columns, [])
     assert table.loc["cap", "saving_if_removed_per_1000"] == pytest.approx(1000 * (base - free), rel=1e-6)
+
+
+def test_group_blind_on_one_of_two_protected_attributes():
+    # score x group x sex, both protected and in the rule: blind to the group only, the rule is
+    # presented on score and sex; with a binding cap one coarse rule cell is split and says so
+    from .test_constraint_rows import BLIND_CELLS, BLIND_COLUMNS, _risk_levels
+
+    rl = _risk_levels(BLIND_CELLS, BLIND_COLUMNS, ["group", "sex"], ["score", "group", "sex"], seed=3)
+    rng = np.random.default_rng(3)
+    decision = np.cumsum(rng.uniform(0, 300, size=(8, 3)), axis=1)
+    decision[:, 0] = 0.0
+    costs = Costs(decision, np.array([900.0, 1500.0]), "units", rl.level_labels, rl.outcome_labels)
+    columns = ("score", "group", "sex")
+    blind = {"kind": "group_blind", "attribute": "group"}
+    result = ConstrainedProblem(rl, costs, [blind], columns=columns).solve(sensitivity=False)
+    assert list(result.rule.rule_cells.columns) == ["score", "sex"]
+    assert close(result.lp.cost_per_case, reference_solve(rl, costs, columns, [blind])[0])
+    share = _free_share(rl, costs, ("score", "sex"))
+    capped = [blind, {"kind": "capacity", "at_least": "cond", "max_share": round(0.5 * share, 4)}]
+    result = ConstrainedProblem(rl, costs, capped, columns=columns).solve(sensitivity=False)
+    assert close(result.lp.cost_per_case, reference_solve(rl, costs, columns, capped)[0])
+    assert (result.rule.delta.max(axis=1) <= 1 - 1e-6).any() and result.rule.note == "randomized where split"
