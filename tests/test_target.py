@@ -171,3 +171,25 @@ def test_fit_reports_the_kept_terms():
     est = RiskLevelEstimator().fit(cells)
     assert est.level_terms_ == {"missed": ["prior"], "offense": ["prior"]}
     assert RiskLevelEstimator(level_terms=False).fit(cells).level_terms_ == {"missed": [], "offense": []}
+
+
+def test_joint_newton_steps_reach_the_block_steps_optimum():
+    # the joint Newton steps and block-coordinate steps run to convergence maximize the same
+    # penalized likelihood: the same ratios, in a batch where the terms differ by leading index
+    # and outcome kind (none, one, both), the ridge on
+    events, n, layout, _ = _grid(5, cases=(300, 1_500))
+    factors = factor_matrices(layout, ["u", "v"])
+    mult = np.random.default_rng(2).poisson(1.0, size=(3, 12, 1, 1)) + 1
+    be = np.concatenate([events[None] * mult, events[None] * mult[::-1]], axis=-2)
+    bn = np.concatenate([n[None] * mult, n[None] * mult[::-1]], axis=-2)
+    include = np.zeros((3, 2, 2), dtype=bool)
+    include[0] = True
+    include[1, 0, 0] = include[1, :, 1] = True
+    include[2, 1, 1] = True
+    joint, ll = fit_level_model(be, bn, factors, include, tol=1e-12)
+    blocks, ll_blocks = fit_level_model(be, bn, factors, include, max_sweeps=20_000, tol=1e-13, joint=False)
+    np.testing.assert_allclose(joint, blocks, rtol=1e-8)
+    np.testing.assert_allclose(ll, ll_blocks, rtol=1e-12)
+    # block steps stopped early are not there yet
+    early, _ = fit_level_model(be, bn, factors, include, max_sweeps=3, joint=False)
+    assert not np.allclose(early, joint, rtol=1e-8)

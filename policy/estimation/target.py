@@ -113,7 +113,8 @@ def _newton_step(events, observed, eta, matrix, codes, g, go, ridge, reference=N
 
 
 def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[tuple[sp.csr_matrix, np.ndarray]],
-                    include: np.ndarray, max_sweeps: int = 100, tol: float = 1e-7) -> tuple[np.ndarray, np.ndarray]:
+                    include: np.ndarray, max_sweeps: int = 100, tol: float = 1e-7,
+                    joint: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """Fit the level model with cell baselines and the included covariate-by-level terms.
 
     Parameters
@@ -124,6 +125,9 @@ def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[
         Candidate cell columns (:func:`policy.estimation.strata.factor_matrices`).
     include : ndarray of shape (..., U, J), bool
         Which cell column's level terms are in the model, per outcome kind (U = len(factors)).
+    joint : bool
+        With more than one term, Newton steps on all blocks of effects at once (default);
+        False: on one block at a time (converges slowly where cell columns are associated).
 
     Returns
     -------
@@ -138,9 +142,11 @@ def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[
     probabilities pi_xd = n_xd theta_xd / sum_d n_xd theta_xd (a multinomial logit; Bishop,
     Fienberg and Holland 1975, ch. 3, on the equivalence of Poisson and conditional multinomial
     fits). log theta_xd = t_d + sum_u g_u[c_u(x), d], each g_u coded against its largest
-    category and given a ridge penalty :data:`RIDGE`; fitted by block-coordinate Newton steps
-    (each block separates into one small system per category). Each leading index and outcome
-    kind stops on its own, so a fit gives the same numbers alone or in a batch.
+    category and given a ridge penalty :data:`RIDGE`; fitted by Newton steps on all effects at
+    once (the information matrix summed over the cells of each pair of categories), or with
+    ``joint=False`` or a single block by block-coordinate Newton steps (each block separates into
+    one small system per category). Each leading index and outcome kind stops on its own, so a
+    fit gives the same numbers alone or in a batch.
     """
     e_all = np.asarray(events, dtype=np.float64)
     n_all = np.asarray(observed, dtype=np.float64)
@@ -155,7 +161,7 @@ def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[
     eta = np.zeros(e.shape)
     # where an outcome kind has one term, that term's effects per category carry the level
     # effects alone (one separable block: exact Newton); with several, a common block plus
-    # terms coded against their largest category (block-coordinate Newton)
+    # terms coded against their largest category (Newton steps on all blocks at once)
     count = include.sum(axis=-2)  # (..., J)
     common = (sp.csr_matrix(np.ones((1, n_cells))), np.zeros(n_cells, dtype=np.int64))
     blocks = [(common, np.zeros(e_all.shape[-3]), np.zeros(lead + (1, J, L)), count != 1, COMMON_RIDGE, None)]
@@ -169,7 +175,10 @@ def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[
         reference = largest[..., :, None] & (count > 1)[..., None, :]  # (..., k, J)
         blocks.append(((matrix, codes), factor[1], np.zeros(lead + (matrix.shape[0], J, L)), on, RIDGE, reference))
     active = np.ones(lead + (J,), dtype=bool)
-    for _ in range(max_sweeps):
+    together = joint and len(blocks) > 2
+    if together:
+        _joint_newton(e, n, eta, blocks, active, max_sweeps, tol)
+    for _ in range(0 if together else max_sweeps):
         change = np.zeros(lead + (J,))
         for (matrix, codes), _, g, on, ridge, reference in blocks:
             change = np.maximum(change, _newton_step(e, n, eta, matrix, codes, g, on & active, ridge, reference))
@@ -180,6 +189,83 @@ def fit_level_model(events: np.ndarray, observed: np.ndarray, factors: Sequence[
     for _, codes_all, g, _, _, _ in blocks:
         eta_all += np.take(g, codes_all.astype(np.int64), axis=-3)
     return np.exp(eta_all), conditional_loglik(e, n, eta)
+
+
+def _joint_newton(e, n, eta, blocks, active, max_sweeps, tol):
+    """Newton steps on every block of level effects at once (updates each block's g and eta in
+    place). With several terms, steps on one block at a time converge slowly where the cell
+    columns are associated; the joint information matrix couples the blocks through their
+    categories' shared cells (sums over the cells of each pair of categories), and each step
+    solves for all effects of an outcome kind together. Effects held at 0 (a term not included
+    for that outcome kind or leading index, a reference category) get identity rows."""
+    L = e.shape[-1]
+    lead, J, m = e.shape[:-3], e.shape[-2], L - 1
+    sizes = [g.shape[-3] for _, _, g, _, _, _ in blocks]
+    offsets = np.concatenate([[0], np.cumsum(sizes)]) * m
+    P = int(offsets[-1])
+    # the pairs' membership matrices on the fitted cells (a block with itself: its own)
+    pairs = {}
+    for b, ((mb, cb), *_rest) in enumerate(blocks):
+        for c in range(b, len(blocks)):
+            (mc, cc) = blocks[c][0]
+            if b == c:
+                pairs[b, c] = mb
+            else:
+                key = cb.astype(np.int64) * mc.shape[0] + cc
+                pairs[b, c] = _pair_matrix(key, mb.shape[0] * mc.shape[0])
+    fixed = np.zeros(lead + (J, P), dtype=bool)
+    ridge = np.zeros(P)
+    for b, (_, _, g, on, rdg, reference) in enumerate(blocks):
+        part = np.broadcast_to(~on[..., None], lead + (J, sizes[b] * m))
+        if reference is not None:
+            ref = np.moveaxis(reference, -1, -2)  # (..., J, k)
+            part = part | np.repeat(ref, m, axis=-1)
+        fixed[..., offsets[b]:offsets[b + 1]] = part
+        ridge[offsets[b]:offsets[b + 1]] = rdg
+    eye = np.eye(P)
+    for _ in range(max_sweeps):
+        pi = _probabilities(n, eta)
+        wpi = e.sum(axis=-1, keepdims=True) * pi
+        resid = (e - wpi)[..., 1:]
+        info_x = wpi[..., 1:, None] * (np.eye(m) - pi[..., None, 1:])  # (..., cells, J, m, m)
+        grad = np.zeros(lead + (J, P))
+        info = np.zeros(lead + (J, P, P))
+        for b, (_, _, g, _, _, _) in enumerate(blocks):
+            kb = sizes[b]
+            gb = _group_sum(blocks[b][0][0], resid, -3) - ridge[offsets[b]] * g[..., 1:]  # (..., k, J, m)
+            grad[..., offsets[b]:offsets[b + 1]] = np.moveaxis(gb, -3, -2).reshape(lead + (J, kb * m))
+            for c in range(b, len(blocks)):
+                kc = sizes[c]
+                s = _group_sum(pairs[b, c], info_x, -4)  # (..., kb * kc, J, m, m) or (..., kb, J, m, m)
+                if b == c:
+                    s = np.moveaxis(s, -4, -3)  # (..., J, kb, m, m)
+                    block = np.zeros(lead + (J, kb, m, kb, m))
+                    idx = np.arange(kb)
+                    block[..., idx, :, idx, :] = np.moveaxis(s, -3, 0)
+                    info[..., offsets[b]:offsets[b + 1], offsets[b]:offsets[b + 1]] = block.reshape(lead + (J, kb * m, kb * m))
+                else:
+                    s = s.reshape(lead + (kb, kc, J, m, m))
+                    s = np.moveaxis(s, -3, -5)  # (..., J, kb, kc, m, m)
+                    s = np.swapaxes(s, -3, -2).reshape(lead + (J, kb * m, kc * m))
+                    info[..., offsets[b]:offsets[b + 1], offsets[c]:offsets[c + 1]] = s
+                    info[..., offsets[c]:offsets[c + 1], offsets[b]:offsets[b + 1]] = np.swapaxes(s, -1, -2)
+        info = info + np.diag(ridge)
+        info = np.where(fixed[..., None] | fixed[..., None, :], eye, info)
+        grad = np.where(fixed, 0.0, grad)
+        step = np.clip(np.linalg.solve(info, grad[..., None])[..., 0], -3.0, 3.0)
+        step = np.where(active[..., None], step, 0.0)
+        for b, ((_, codes), _, g, _, _, _) in enumerate(blocks):
+            sb = np.moveaxis(step[..., offsets[b]:offsets[b + 1]].reshape(lead + (J, sizes[b], m)), -2, -3)
+            g[..., 1:] += sb
+            eta[..., 1:] += np.take(sb, codes, axis=-3)
+        active &= np.abs(step).max(axis=-1) >= tol
+        if not active.any():
+            break
+
+
+def _pair_matrix(key: np.ndarray, size: int) -> sp.csr_matrix:
+    """A (size, n) membership matrix of n cells coded 0..size-1."""
+    return sp.csr_matrix((np.ones(len(key)), (key, np.arange(len(key)))), shape=(size, len(key)))
 
 
 def _informative(events: np.ndarray, observed: np.ndarray) -> np.ndarray:
