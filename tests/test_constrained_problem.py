@@ -646,3 +646,62 @@ def test_group_blind_on_one_of_two_protected_attributes():
     result = ConstrainedProblem(rl, costs, capped, columns=columns).solve(sensitivity=False)
     assert close(result.lp.cost_per_case, reference_solve(rl, costs, columns, capped)[0])
     assert (result.rule.delta.max(axis=1) <= 1 - 1e-6).any() and result.rule.note == "randomized where split"
+
+
+def test_constraints_given_as_specs_are_checked_against_the_problem(instance):
+    rl, costs, columns = instance
+    from policy.decision.constraints import ConstraintSpec
+
+    specs = [ConstraintSpec("monotone", "mono", score="score", tolerance=0.0),
+             ConstraintSpec("statistical_parity", "sp", thresholds=("L2",), tolerance=0.1),
+             ConstraintSpec("principal_fairness", "pf", outcome="o0", risk_levels=(1, 2), tolerance=0.2),
+             {"kind": "capacity", "max_share": 0.6, "name": "cap"}]
+    problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+    assert problem.specs[:3] == tuple(specs[:3])
+    assert problem.specs[3] == ConstraintSpec("capacity", "cap", at_least="L2", max_share=0.6)
+    as_tables = [{"kind": "monotone", "score": "score", "name": "mono"},
+                 {"kind": "statistical_parity", "thresholds": ["L2"], "tolerance": 0.1, "name": "sp"},
+                 {"kind": "principal_fairness", "outcome": "o0", "risk_levels": [1, 2], "tolerance": 0.2, "name": "pf"},
+                 specs[3]]
+    assert close(problem.solve_lp().cost_per_case, reference_solve(rl, costs, columns, as_tables)[0])
+    for bad, text in (([ConstraintSpec("capacity", "big", at_least="L1", max_share=2.0)],
+                       "<constraints>: key 'max_share' in constraint 'big' must be a share in 0..1; got 2.0."),
+                      ([{"kind": "capacity"}],
+                       "<constraints>: constraint #1 (kind 'capacity') must give exactly one of 'max_share' (0..1) or 'max_cases'."),
+                      ([{"kind": "capacity", "max_share": 0.1}, "capacity"],
+                       "constraint #2 must be a ConstraintSpec or a table of keys; got str."),
+                      ([{"kind": "capacity", "max_share": 0.1, "name": "x"}, {"kind": "capacity", "max_share": 0.2, "name": "y"},
+                        ConstraintSpec("capacity", "x", at_least="L2", max_share=0.3)],
+                       "two constraints are named 'x'; give each its own name.")):
+        with pytest.raises(InputError) as info:
+            ConstrainedProblem(rl, costs, bad, columns=columns)
+        assert str(info.value) == text
+
+
+def test_conflict_table_in_each_bound_unit(instance):
+    # the same conflict with the capacity in cases: how far to loosen it is in cases, without the
+    # upper end of a share; a constraint not involved has no 'alone' figures
+    rl, costs, columns = instance
+    W = rl.weights.sum()
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
+    share_specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "held"},
+                   {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"},
+                   {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"}]
+    case_specs = [dict(share_specs[0], max_share=None, max_cases=0.0)] + share_specs[1:]
+    case_specs[0].pop("max_share")
+    tables = []
+    for specs in (share_specs, case_specs):
+        with pytest.raises(InfeasibleError) as info:
+            ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+        tables.append(info.value.conflicts.set_index("constraint"))
+    shares, cases = tables
+    assert list(cases.columns) == ["kind", "arguments", "bound_key", "bound", "unit", "involved", "loosen_by",
+                                   "loosened_bound", "alone_by", "alone_bound"]
+    assert (cases.loc["held", "bound_key"], cases.loc["held", "unit"], cases.loc["held", "bound"]) == ("max_cases", "cases", 0.0)
+    assert cases.loc["held", "loosen_by"] == pytest.approx(shares.loc["held", "loosen_by"] * W, rel=1e-6)
+    assert cases.loc["held", "alone_by"] == pytest.approx(shares.loc["held", "alone_by"] * W, rel=1e-6)
+    assert cases.loc["held", "alone_bound"] == pytest.approx(cases.loc["held", "alone_by"], rel=1e-9)
+    assert cases.loc["held", "alone_bound"] > 1  # cases have no upper end of 1
+    row = shares.loc["loose"]
+    assert not row["involved"] and row["loosen_by"] == 0 and np.isnan(row["alone_by"]) and np.isnan(row["alone_bound"])
+    assert (row["bound_key"], row["bound"], row["unit"]) == ("tolerance", 1.0, "probability difference")
