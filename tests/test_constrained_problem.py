@@ -684,16 +684,22 @@ def test_conflict_table_in_each_bound_unit(instance):
     rl, costs, columns = instance
     W = rl.weights.sum()
     harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
-    share_specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "held"},
-                   {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"},
-                   {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"}]
-    case_specs = [dict(share_specs[0], max_share=None, max_cases=0.0)] + share_specs[1:]
-    case_specs[0].pop("max_share")
+    # switched off, first and last: two constraints that would conflict with everything
+    off = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.0, "name": "off first"},
+           {"kind": "outcome_cap", "outcome": "o1", "max_rate": 0.0, "name": "off last"}]
+    share_specs = [off[0], {"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "held"},
+                   {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"},
+                   {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"}, off[1]]
+    case_specs = list(share_specs)
+    case_specs[1] = {"kind": "capacity", "at_least": "L1", "max_cases": 0.0, "name": "held"}
     tables = []
     for specs in (share_specs, case_specs):
+        problem = ConstrainedProblem(rl, costs, specs, columns=columns)
+        problem.set_active("off first", False).set_active("off last", False)
         with pytest.raises(InfeasibleError) as info:
-            ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+            problem.solve_lp()
         tables.append(info.value.conflicts.set_index("constraint"))
+        assert not info.value.conflicts["involved"].iloc[[0, 2, 4]].any()
     shares, cases = tables
     assert list(cases.columns) == ["kind", "arguments", "bound_key", "bound", "unit", "involved", "loosen_by",
                                    "loosened_bound", "alone_by", "alone_bound"]
