@@ -108,9 +108,9 @@ class _Boxes:
         n, J, L = bounds.lower.shape
         self.lo, self.hi = bounds.lower.reshape(n * J, L), bounds.upper.reshape(n * J, L)
         self.chain = _chain(self.lo, self.hi) if monotone else np.zeros(n * J, dtype=bool)
-        rows = np.flatnonzero(self.chain)
+        self.chain_rows, self.box_rows = np.flatnonzero(self.chain), np.flatnonzero(~self.chain)
         self.position = np.cumsum(self.chain) - 1  # a chain row's place among the chain rows
-        self.grid = chain_box_grid(self.lo[rows], self.hi[rows])
+        self.grid = chain_box_grid(self.lo[self.chain_rows], self.hi[self.chain_rows])
         self.zero = None
         self.zero = self.extremes(np.zeros(self.lo.shape)) if skip else None
 
@@ -118,25 +118,27 @@ class _Boxes:
         """Per box, max a'p and min a'p over its chain-box (its box where the chain misses it)."""
         from policy.decision.safe import chain_box_maximum
 
-        if self.zero is None:
-            rows = np.arange(len(a))
-            top, bottom = np.empty(len(a)), np.empty(len(a))
+        m = len(a)
+        top, bottom = (np.empty(m), np.empty(m)) if self.zero is None else (self.zero[0].copy(), self.zero[1].copy())
+        keep = None if self.zero is None else ~((a == 0) & ~np.signbit(a)).all(axis=-1)
+        if keep is None or keep.all():
+            box, chain = self.box_rows, self.chain_rows
         else:
-            rows = np.flatnonzero(~((a == 0) & ~np.signbit(a)).all(axis=-1))
-            top, bottom = self.zero[0].copy(), self.zero[1].copy()
-        a_rows, lo, hi = a[rows], self.lo[rows], self.hi[rows]
-        top[rows] = chain_box_maximum(a_rows, lo, hi, False)
-        bottom[rows] = -chain_box_maximum(-a_rows, lo, hi, False)
-        on = self.chain[rows]
-        if on.any():
-            chain_rows = rows[on]
-            if len(chain_rows) == len(self.grid[0]):  # every chain row
+            box, chain = np.flatnonzero(keep & ~self.chain), np.flatnonzero(keep & self.chain)
+        if len(box):
+            a_box, lo, hi = a[box], self.lo[box], self.hi[box]
+            top[box] = chain_box_maximum(a_box, lo, hi, False)
+            bottom[box] = -chain_box_maximum(-a_box, lo, hi, False)
+        if len(chain):
+            if len(chain) == len(self.chain_rows):  # every chain row: the grid as prepared
                 grid = self.grid
             else:
-                at = self.position[chain_rows]
-                grid = (self.grid[0][at], [m[at] for m in self.grid[1]])
-            top[chain_rows] = chain_box_maximum(a_rows[on], lo[on], hi[on], True, grid)
-            bottom[chain_rows] = -chain_box_maximum(-a_rows[on], lo[on], hi[on], True, grid)
+                at = self.position[chain]
+                grid = (self.grid[0][at], [mask[at] for mask in self.grid[1]])
+            take = slice(None) if len(chain) == m else chain
+            a_chain = a[take]
+            top[take] = chain_box_maximum(a_chain, None, None, True, grid)
+            bottom[take] = -chain_box_maximum(-a_chain, None, None, True, grid)
         return top, bottom
 
 

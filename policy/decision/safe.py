@@ -247,7 +247,8 @@ def chain_box_maximum(a: np.ndarray, lower: np.ndarray, upper: np.ndarray, monot
     monotone : bool
         Without it, the box alone: sum_d max(a_d l_d, a_d u_d).
     grid : tuple, optional
-        :func:`chain_box_grid` of these boxes, when many objectives share them.
+        :func:`chain_box_grid` of these boxes, when many objectives share them (``lower`` and
+        ``upper`` are then not read with ``monotone``).
 
     Returns
     -------
