@@ -26,6 +26,25 @@ from policy.estimation.strata import RiskLevelEstimator
 from .conftest import run_cli, write_scenario
 
 
+def test_dealing_only_occupied_strata_draws_the_same_folds():
+    # the deal skips the strata without cases in a slot; drawing every stratum, zeros included
+    # (written out here from the module notes), must give the same folds from the same seed
+    from policy.assessment.crossfit import _fold_sizes
+
+    slots = np.random.default_rng(4).poisson(0.4, size=(500, 6)) * np.random.default_rng(5).integers(1, 30, size=(500, 1))
+    slots[:, 2] = 0  # a slot no stratum has
+    got = _deal(np.random.default_rng(9), slots, 4)
+    rng = np.random.default_rng(9)
+    room = _fold_sizes(rng, slots.sum(axis=1), 4)
+    expected = np.zeros(slots.shape + (4,), dtype=np.int64)
+    for s in np.flatnonzero(slots.any(axis=0)):
+        x = multivariate_hypergeometric(rng, room, slots[:, s])
+        expected[:, s] = x
+        room -= x
+    assert (slots == 0).mean() > 0.5 and np.array_equal(got, expected)
+    assert (got.sum(axis=2) == slots).all()
+
+
 def test_a_slots_share_of_a_fold_is_hypergeometric():
     rng = np.random.default_rng(8)
     slots = np.tile([30, 20, 10], (20_000, 1))  # 20,000 strata of 60 cases, 3 folds of 20

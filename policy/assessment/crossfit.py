@@ -113,10 +113,13 @@ def _deal(rng: np.random.Generator, slots: np.ndarray, K: int) -> np.ndarray:
     """Deal each stratum's cases, counted per slot (G, S), to K folds: (G, S, K)."""
     room = _fold_sizes(rng, slots.sum(axis=1), K)
     out = np.zeros(slots.shape + (K,), dtype=np.int64)
+    # only the strata with cases in the slot draw (a draw of nothing takes no random numbers, so
+    # the folds are the same as drawing every stratum)
     for s in np.flatnonzero(slots.any(axis=0)):
-        x = multivariate_hypergeometric(rng, room, slots[:, s])
-        out[:, s] = x
-        room -= x
+        rows = np.flatnonzero(slots[:, s])
+        x = multivariate_hypergeometric(rng, room[rows], slots[rows, s])
+        out[rows, s] = x
+        room[rows] -= x
     return out
 
 
