@@ -659,6 +659,11 @@ def test_constraints_given_as_specs_are_checked_against_the_problem(instance):
     problem = ConstrainedProblem(rl, costs, specs, columns=columns)
     assert problem.specs[:3] == tuple(specs[:3])
     assert problem.specs[3] == ConstraintSpec("capacity", "cap", at_least="L2", max_share=0.6)
+    # zero and non-zero tolerances kept as given, a table without a name named by its position
+    more = [ConstraintSpec("statistical_parity", "sp0", tolerance=0.0), ConstraintSpec("monotone", "m2", score="score", tolerance=0.02),
+            ConstraintSpec("monotone", "m1", score="score", tolerance=1.0), {"kind": "capacity", "max_share": 0.6}]
+    assert ConstrainedProblem(rl, costs, more, columns=columns).specs == tuple(more[:3]) + (
+        ConstraintSpec("capacity", "#4 capacity", at_least="L2", max_share=0.6),)
     as_tables = [{"kind": "monotone", "score": "score", "name": "mono"},
                  {"kind": "statistical_parity", "thresholds": ["L2"], "tolerance": 0.1, "name": "sp"},
                  {"kind": "principal_fairness", "outcome": "o0", "risk_levels": [1, 2], "tolerance": 0.2, "name": "pf"},
@@ -687,11 +692,11 @@ def test_conflict_table_in_each_bound_unit(instance):
     # switched off, first and last: two constraints that would conflict with everything
     off = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.0, "name": "off first"},
            {"kind": "outcome_cap", "outcome": "o1", "max_rate": 0.0, "name": "off last"}]
-    share_specs = [off[0], {"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "held"},
-                   {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"},
+    share_specs = [off[0], {"kind": "statistical_parity", "tolerance": 1.0, "name": "loose"},
+                   {"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "held"},
                    {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"}, off[1]]
     case_specs = list(share_specs)
-    case_specs[1] = {"kind": "capacity", "at_least": "L1", "max_cases": 0.0, "name": "held"}
+    case_specs[2] = {"kind": "capacity", "at_least": "L1", "max_cases": 0.0, "name": "held"}
     tables = []
     for specs in (share_specs, case_specs):
         problem = ConstrainedProblem(rl, costs, specs, columns=columns)
@@ -699,7 +704,7 @@ def test_conflict_table_in_each_bound_unit(instance):
         with pytest.raises(InfeasibleError) as info:
             problem.solve_lp()
         tables.append(info.value.conflicts.set_index("constraint"))
-        assert not info.value.conflicts["involved"].iloc[[0, 2, 4]].any()
+        assert not info.value.conflicts["involved"].iloc[[0, 1, 4]].any()
     shares, cases = tables
     assert list(cases.columns) == ["kind", "arguments", "bound_key", "bound", "unit", "involved", "loosen_by",
                                    "loosened_bound", "alone_by", "alone_bound"]
