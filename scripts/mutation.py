@@ -68,6 +68,7 @@ MODULES: dict[str, tuple[str, tuple[str, ...]]] = {
     "bands": ("policy/assessment/sweep/bands.py", ("tests/test_bands.py", "tests/test_bands_tables.py", "tests/test_sweep.py")),
     "sweep_constrained": ("policy/assessment/sweep/constrained.py", ("tests/test_sweep_constrained.py", "tests/test_sweep_constrained_tables.py")),
     "rules": ("policy/decision/rules.py", ("tests/test_solve.py", "tests/test_evaluate.py", "tests/test_rules.py")),
+    "loglinear": ("policy/estimation/loglinear.py", ("tests/test_baseline_model.py",)),
     "problem": ("policy/decision/constrained/problem.py", ("tests/test_constrained_problem.py", *_CONSTRAINED_FAST)),
     "cumulative": ("policy/decision/constrained/cumulative.py", ("tests/test_constrained_cumulative.py",)),
     "program": ("policy/decision/constrained/program.py", ("tests/test_constrained_problem.py", *_CONSTRAINED_FAST)),
