@@ -187,3 +187,15 @@ def test_the_solver_label_says_which_variables(monkeypatch):
     assert "unconstrained optimum's basis" in ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp().solver
     monkeypatch.setattr(cumulative, "CUMULATIVE_FROM_RULE_CELLS", 0)
     assert "cumulative variables" in ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp().solver
+
+
+def test_two_decision_levels_have_no_monotone_rows(monkeypatch):
+    # with two levels the cumulative LP has one variable P(D >= 1) per rule cell and no monotone
+    # row; the optimum is the reference's (scipy.optimize.linprog on tests/constrained_reference.py)
+    rl, costs, columns = random_instance(3, n_scores=3, n_buckets=2, n_groups=2, levels=2, aware=True)
+    specs = [{"kind": "statistical_parity", "tolerance": 0.05}, {"kind": "capacity", "max_share": 0.4}]
+    expected, _ = reference_solve(rl, costs, columns, specs)
+    _, in_delta, cp, in_cum = both(rl, costs, specs, columns, monkeypatch)
+    lp = cumulative.cumulative_lp(cp._data)
+    assert lp.n_mono == 0 and lp.A.shape == (cp._data.coupling.shape[0], cp.n_rule_cells)
+    assert rel_close(in_cum.cost_per_case, expected, 1e-9) and rel_close(in_delta.cost_per_case, expected, 1e-9)
