@@ -303,11 +303,12 @@ def _one_term_ratios(events: np.ndarray, observed: np.ndarray, factors: Sequence
         sub_e, sub_n = e[rows], n[rows]
         keep = _informative(sub_e, sub_n)
         matrix, codes = _restrict(factor, keep)
-        eta = np.zeros(sub_e[:, keep].shape)
+        fit_e, fit_n = sub_e[:, keep], sub_n[:, keep]  # gathered once, not at every step
+        eta = np.zeros(fit_e.shape)
         g = np.zeros((len(rows), matrix.shape[0], J, L))
         active = inc[rows, u, :].copy()
         for _ in range(max_sweeps):
-            change = _newton_step(sub_e[:, keep], sub_n[:, keep], eta, matrix, codes, g, active, RIDGE)
+            change = _newton_step(fit_e, fit_n, eta, matrix, codes, g, active, RIDGE)
             active &= change >= tol
             if not active.any():
                 break
