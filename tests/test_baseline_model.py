@@ -397,3 +397,22 @@ def test_common_and_per_cell_level_ratios_and_a_batch():
     for i in range(2):
         for a, b in zip(out, shrunk_rates(e2[i], n2[i], factors, 5.0, None, level_terms=False)):
             np.testing.assert_allclose(a[i], b, rtol=1e-12)
+
+
+def test_collapsed_sweeps_with_more_combinations_than_an_integer_key_holds():
+    # columns whose categories multiply past 2**62 are grouped by their rows of codes instead of
+    # one integer key: the same fit as the sweeps on every cell
+    from policy.estimation.loglinear import _collapsed_plan, _membership
+
+    rng = np.random.default_rng(12)
+    n, k = 40, 2 ** 16  # four columns of 2**16 categories besides the largest: 2**64 combinations
+    codes = [rng.integers(0, 3, n), rng.integers(0, 2, n) * (k - 1), rng.integers(0, 2, n), rng.integers(0, 2, n) * 7,
+             rng.integers(0, 2, n)]
+    factors = [_membership(codes[0], 2 ** 17)] + [_membership(c, k) for c in codes[1:]]
+    plan = _collapsed_plan(factors, n)
+    assert plan.b == 0 and len(set(zip(*codes[1:]))) == plan.to_combos.shape[0]
+    exposure = rng.uniform(5, 50, (n, 2))
+    events = rng.poisson(exposure * 0.2).astype(float)
+    for sweeps in (1, 3):
+        np.testing.assert_allclose(loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=True),
+                                   loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=False), rtol=1e-12)
