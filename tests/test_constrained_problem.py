@@ -14,6 +14,7 @@ from __future__ import annotations
 from dataclasses import replace
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from policy.decision.constrained import (
@@ -716,3 +717,34 @@ def test_conflict_table_in_each_bound_unit(instance):
     row = shares.loc["loose"]
     assert not row["involved"] and row["loosen_by"] == 0 and np.isnan(row["alone_by"]) and np.isnan(row["alone_bound"])
     assert (row["bound_key"], row["bound"], row["unit"]) == ("tolerance", 1.0, "probability difference")
+
+
+def test_lenient_ties_across_rule_cells_are_weighed_by_cases():
+    # A tie built by hand (one outcome, no outcome cost, a cap on its rate). Rule cell A (score 1):
+    # three cells of 10 cases; rule cell B (score 2): three cells of 30 cases. Moving a case of A
+    # to L1, or a case of B to L2, lowers the outcome from 0.5 to 0.3 for a decision cost of 100:
+    # every split that meets the cap costs the same. With case shares 1/4 and 3/4 the cap of 0.4
+    # asks 1/4 dA + 3/4 dB = 1/2 of the cases moved (dA, dB: the shares moved). The most lenient
+    # of these rules (fewest cases times levels, docs/method.md section 5) minimizes
+    # 1/4 dA + 3/4 * 2 dB: dA = 1, dB = 1/3 (worked by hand). Weighing the rule cells by their
+    # number of cells (1/2 each) would minimize dA/2 + dB instead: dA = 0, dB = 2/3.
+    frame = pd.DataFrame({
+        "score": pd.Categorical([1, 1, 1, 2, 2, 2], categories=[1, 2], ordered=True),
+        "bucket": pd.Categorical(["b0", "b1", "b2"] * 2, categories=["b0", "b1", "b2"], ordered=True),
+    })
+    layout = CellLayout(frame, (), ("score", "bucket"), "score")
+    values = ("L0", "L1", "L2")
+    a, b = [0.5, 0.3, 0.3], [0.5, 0.5, 0.3]
+    p = np.array([a] * 3 + [b] * 3, dtype=float)[:, None, :]
+    w = np.array([10.0] * 3 + [30.0] * 3)
+    rl = RiskLevels(layout, values, values, ("o0",), ("o0",), w, p, np.zeros_like(p, dtype=bool), source="by hand")
+    decision = np.array([[0.0, 100.0, 150.0]] * 3 + [[0.0, 150.0, 100.0]] * 3)
+    costs = Costs(decision, np.array([0.0]), "units", values, ("o0",))
+    specs = [{"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.4}]
+    lp = ConstrainedProblem(rl, costs, specs, columns=("score",)).solve_lp()
+    assert lp.lenient_pass is True
+    assert np.allclose(lp.delta, [[0.0, 1.0, 0.0], [2 / 3, 0.0, 1 / 3]], atol=1e-7)
+    # the cost of every tied rule: half the cases moved at 100 each
+    assert close(lp.cost_per_case, 50.0)
+    expected, _ = reference_solve(rl, costs, ("score",), specs)
+    assert close(lp.cost_per_case, expected)
