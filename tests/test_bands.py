@@ -137,3 +137,16 @@ def test_sweep_bands_runner_rule_columns_and_log_grid(demo_sweep):
     wb = sweep_bands(cells, rl, costs, whole, est, 10, 3, **kw)
     np.testing.assert_allclose(wb.ratios, np.geomspace(0.5, 4 * axis.scenario_ratio, 7))
     assert wb.thresholds.shape == wb.thresholds_lower.shape == (1, rl.n_levels - 1)
+
+
+def test_sweep_bands_draw_their_progress_bar_on_standard_error_when_asked(demo_sweep, capsys, monkeypatch):
+    # rich draws a progress bar only on a terminal; FORCE_COLOR makes its console treat the
+    # captured standard error as one (rich's documented environment variable)
+    cells, rl, costs, s, est = demo_sweep
+    monkeypatch.setenv("FORCE_COLOR", "1")
+    sweep_bands(cells, rl, costs, s, est, 2, 3, workers=1, points=5)
+    assert capsys.readouterr().err == ""                            # off by default, even on a terminal
+    sweep_bands(cells, rl, costs, s, est, 2, 3, workers=1, points=5, progress=True)
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    assert "sweep: bootstrap replicates" in captured.err and "2/2" in captured.err
