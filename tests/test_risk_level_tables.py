@@ -262,3 +262,48 @@ def test_fit_counts_only_free_levels_in_the_criterion_for_level_terms():
     assert 2.0 < statistic[0, 0] < 4.0 and kept[:, 0].tolist() == [True, False]
     assert not select_level_terms(e, n, design, None)[0].any()
     assert est.fit(cells).level_terms_ == {"fta": ["area"]}
+
+
+def _three_level_cells(ratio_north: float, ratio_south: float, east: bool):
+    """Invented counts: level 2 makes the outcome impossible; optional 'east' cells seen only there."""
+    from policy.inputs.cells import CellTable
+
+    areas = ["north", "north", "south", "south"] + (["east", "east"] if east else [])
+    frame = pd.DataFrame({"area": pd.Categorical(areas, categories=["north", "south", "east"], ordered=True),
+                          "band": pd.Categorical(["low", "high"] * (len(areas) // 2), categories=["low", "high"], ordered=True)})
+    cases = np.array([[400, 300, 200], [300, 400, 200], [350, 350, 200], [250, 450, 200]]
+                     + ([[0, 0, 200], [0, 0, 150]] if east else []))[:, None, :]
+    base = np.array([0.3, 0.35, 0.3, 0.35] + [0.3] * (len(areas) - 4))
+    ratio = np.array([ratio_north] * 2 + [ratio_south] * 2 + [1.0] * (len(areas) - 4))
+    p = np.stack([base, base * ratio, 0 * base], -1)[:, None, None, :]
+    observed = cases[:, :, None, :].copy()
+    events = np.random.default_rng(0).binomial(observed, p)
+    return CellTable(CellLayout(frame, (), ("area", "band"), None), ("ror", "conditions", "bond"), ("fta",), (None,),
+                     cases, observed, events, source="three levels.csv")
+
+
+def test_cases_at_an_impossible_level_add_nothing_to_the_level_term_criterion():
+    # Akaike's criterion for a level term charges 2 x (categories with cases - 1) x free levels
+    # (Akaike 1974; the count worked by hand). Cases recorded only at the impossible level carry no
+    # information on the level ratios: the two 'east' cells below, seen only at level 2, must not
+    # count as a third category (which would charge 4 instead of 2 and drop the term, whose score
+    # statistic is about 3.7 with or without them), and the events there, 0, must stay 0.
+    from policy.estimation.strata import RiskLevelEstimator
+    from policy.estimation.target import select_level_terms
+
+    est = RiskLevelEstimator(structural_zeros={0: 2})
+    zero = np.array([[False, False, True]])
+    cells = _three_level_cells(0.58, 0.9, east=True)
+    e = np.where(zero, 0, cells.events.sum(axis=1))
+    n = np.where(zero, 0, cells.observed.sum(axis=1))
+    _, statistic = select_level_terms(e, n, est.design(cells.layout), zero)
+    assert 2.0 < statistic[0, 0] < 4.0
+    assert est.fit(cells).level_terms_ == {"fta": ["area"]}
+    # the same ratio in both areas: no term passes (statistics below 2, by select_level_terms);
+    # an event counted at the impossible level would make both areas' ratios there differ from 0
+    cells = _three_level_cells(0.75, 0.75, east=False)
+    e = np.where(zero, 0, cells.events.sum(axis=1))
+    n = np.where(zero, 0, cells.observed.sum(axis=1))
+    _, statistic = select_level_terms(e, n, est.design(cells.layout), zero)
+    assert (statistic[:, 0] < 2.0).all()
+    assert est.fit(cells).level_terms_ == {"fta": []}
