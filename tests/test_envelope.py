@@ -146,3 +146,29 @@ def test_crossings_closer_than_the_tolerance_count_as_one_point(t, gap, one_poin
     else:
         assert env.count[0] == 2 and env.levels[0].tolist() == [0, 1, 2]
         np.testing.assert_allclose(env.breaks[0], [t, t + 2 * gap], rtol=1e-15)
+
+
+def test_a_piece_shorter_than_the_concurrency_tolerance_joins_the_previous_breakpoint():
+    # Three lines (slopes 1 + 2.2e-10, 1 and 0) crafted so that the middle one is lowest only on
+    # an interval of about 1.06e-6 after t0 = 1057.628082, just under the concurrency tolerance
+    # at its end t1 (1e-9 x |t1|), while the third line's crossing with the first, computed in floating
+    # point, lies just beyond it (it is not concurrent at t0; found by a search over such
+    # triples). The sweep meets the middle line's end within the tolerance of its previous
+    # breakpoint and merges the two: one breakpoint, from the first line to the third, and the
+    # lowest level tied there. Checked against the lines evaluated by numpy on either side.
+    A = np.array([0.0, 2.3732310975812025e-07, 1057.628083510924])
+    B = np.array([1.0000000002243918, 1.0, 0.0])
+    t0 = (A[1] - A[0]) / (B[0] - B[1])
+    assert (A[2] - A[0]) / (B[0] - B[2]) > t0 + 1e-9 * t0          # not concurrent at t0
+    t1 = (A[2] - A[1]) / (B[1] - B[2])
+    assert t0 < t1 <= t0 + 1e-9 * t1                                # but ends within the tolerance
+    for order in ([0, 1, 2], [2, 1, 0]):                             # the same lines, levels reversed
+        env = lower_envelope(A[None, order], B[None, order])
+        first, last = order.index(0), order.index(2)
+        assert env.count.tolist() == [1]
+        assert env.breaks[0, 0] == pytest.approx(t0, rel=1e-12) and env.breaks[0, 1] == np.inf
+        assert env.levels[0].tolist() == [first, last, -1]
+        # every line is within the tolerance of the others at t0: the tie goes to the lowest level
+        assert env.at_break[0].tolist() == [0, -1]
+        for r, level in ((t0 - 1.0, first), (t0 + 1.0, last)):
+            assert int(np.argmin(A[order] + r * B[order])) == level
