@@ -416,3 +416,29 @@ def test_collapsed_sweeps_with_more_combinations_than_an_integer_key_holds():
     for sweeps in (1, 3):
         np.testing.assert_allclose(loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=True),
                                    loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=False), rtol=1e-12)
+
+
+def test_combinations_past_two_to_the_64_are_not_folded_together():
+    # five columns besides the largest, of 2**16 (four) and 2 categories: 2**65 combinations. An
+    # integer key (c1 2**49 + c2 2**33 + c3 2**17 + c4 2 + c5) would wrap modulo 2**64 in int64 and
+    # fold c1 = 0 onto c1 = 2**15 (arithmetic by hand); the plan must keep them apart, and the
+    # collapsed fit must equal the sweeps on every cell
+    from policy.estimation.loglinear import _collapsed_plan, _membership
+
+    rng = np.random.default_rng(5)
+    n, k = 40, 2 ** 16
+    c1 = rng.integers(0, 2, n) * 2 ** 15
+    codes = [rng.integers(0, 3, n), c1, rng.integers(0, 2, n), rng.integers(0, 2, n), rng.integers(0, 2, n),
+             rng.integers(0, 2, n)]
+    factors = [_membership(codes[0], 2 ** 17)] + [_membership(c, k) for c in codes[1:5]] + [_membership(codes[5], 2)]
+    combos = set(zip(*codes[1:]))
+    folded = {(0,) + c[1:] for c in combos}
+    assert len(folded) < len(combos)                        # the data do have combinations a wrapped key folds
+    plan = _collapsed_plan(factors, n)
+    assert plan.b == 0 and plan.to_combos.shape[0] == len(combos)
+    exposure = rng.uniform(5, 50, (n, 2))
+    events = rng.poisson(exposure * 0.2).astype(float)
+    events[c1 > 0] = rng.poisson(exposure[c1 > 0] * 0.5)    # the two halves of c1 differ in rate
+    for sweeps in (1, 3):
+        np.testing.assert_allclose(loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=True),
+                                   loglinear_rates(events, exposure, factors, max_sweeps=sweeps, collapse=False), rtol=1e-12)
