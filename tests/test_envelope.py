@@ -172,3 +172,22 @@ def test_a_piece_shorter_than_the_concurrency_tolerance_joins_the_previous_break
         assert env.at_break[0].tolist() == [0, -1]
         for r, level in ((t0 - 1.0, first), (t0 + 1.0, last)):
             assert int(np.argmin(A[order] + r * B[order])) == level
+
+
+def test_a_crossing_exactly_at_the_concurrency_tolerance_counts_as_the_same_point():
+    # lines 0 + 2r, 500 + 1.5r, T + r: the first two cross at t0 = 1000 (by hand), the first and
+    # the third at T (the slopes differ by exactly 1). T = t0 + 1e-9 x t0, the tolerance's edge
+    # computed as the sweep computes it, still counts as concurrent (the same boundary as the
+    # merge into a previous breakpoint): one breakpoint, straight to the smallest slope. One
+    # floating-point step further it is a crossing of its own, at t0 + 2 x 1e-6 (by hand).
+    from policy.assessment.sweep.axes import CONCURRENT_TOLERANCE
+
+    t0 = 1000.0
+    T = t0 + CONCURRENT_TOLERANCE * max(1.0, t0)
+    B = np.array([[2.0, 1.5, 1.0]])
+    env = lower_envelope(np.array([[0.0, 500.0, T]]), B)
+    assert env.count.tolist() == [1] and env.breaks[0, 0] == t0
+    assert env.levels[0].tolist() == [0, 2, -1] and env.at_break[0].tolist() == [0, -1]
+    env = lower_envelope(np.array([[0.0, 500.0, np.nextafter(T, np.inf)]]), B)
+    assert env.count.tolist() == [2] and env.levels[0].tolist() == [0, 1, 2]
+    assert env.breaks[0, 0] == t0 and env.breaks[0, 1] == pytest.approx(t0 + 2e-6, rel=1e-12)
