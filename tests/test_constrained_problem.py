@@ -748,3 +748,33 @@ def test_lenient_ties_across_rule_cells_are_weighed_by_cases():
     assert close(lp.cost_per_case, 50.0)
     expected, _ = reference_solve(rl, costs, ("score",), specs)
     assert close(lp.cost_per_case, expected)
+
+
+def test_a_capacity_in_cases_loosened_by_the_elastic_program():
+    # Two outcomes, each 0.8 released and 0.1 held (invented, worked by hand); 40 cases in two
+    # cells, no one may be held (max_cases 0), and each outcome is capped at 0.45. Holding a share
+    # x lowers both rates by 0.7 x, so loosening the capacity by x = 0.5 meets both caps at a total
+    # loosening of 0.5, while loosening the caps instead costs 2 x 0.35 = 0.7 (the smallest total
+    # loosening, docs/method.md section 5): the capacity is loosened by 0.5 x 40 = 20 cases.
+    frame = pd.DataFrame({"score": pd.Categorical([1, 2], categories=[1, 2], ordered=True)})
+    layout = CellLayout(frame, (), ("score",), "score")
+    values, keys = ("L0", "L1"), ("o0", "o1")
+    p = np.array([[[0.8, 0.1], [0.8, 0.1]]] * 2)
+    rl = RiskLevels(layout, values, values, keys, keys, np.array([30.0, 10.0]), p, np.zeros_like(p, dtype=bool),
+                    source="by hand")
+    costs = Costs(np.array([[0.0, 100.0]] * 2), np.array([0.0, 0.0]), "units", values, keys)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_cases": 0.0, "name": "none held"},
+             {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.45, "name": "cap 0"},
+             {"kind": "outcome_cap", "outcome": "o1", "max_rate": 0.45, "name": "cap 1"}]
+    with pytest.raises(InfeasibleError) as info:
+        ConstrainedProblem(rl, costs, specs, columns=("score",)).solve_lp()
+    table = info.value.conflicts.set_index("constraint")
+    held = table.loc["none held"]
+    assert held["unit"] == "cases" and held["involved"]
+    assert held["loosen_by"] == pytest.approx(20.0, rel=1e-9)
+    assert held["loosened_bound"] == pytest.approx(20.0, rel=1e-9)
+    assert table.loc["cap 0", "loosen_by"] == pytest.approx(0.0, abs=1e-9)
+    assert table.loc["cap 1", "loosen_by"] == pytest.approx(0.0, abs=1e-9)
+    # the bound found holds: the reference LP with 20 cases held is feasible, with 19.9 it is not
+    assert reference_solve(rl, costs, ("score",), [dict(specs[0], max_cases=20.0 + 1e-9)] + specs[1:])[0] is not None
+    assert reference_solve(rl, costs, ("score",), [dict(specs[0], max_cases=19.9)] + specs[1:])[0] is None
