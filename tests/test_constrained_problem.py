@@ -778,3 +778,20 @@ def test_a_capacity_in_cases_loosened_by_the_elastic_program():
     # the bound found holds: the reference LP with 20 cases held is feasible, with 19.9 it is not
     assert reference_solve(rl, costs, ("score",), [dict(specs[0], max_cases=20.0 + 1e-9)] + specs[1:])[0] is not None
     assert reference_solve(rl, costs, ("score",), [dict(specs[0], max_cases=19.9)] + specs[1:])[0] is None
+
+
+def test_conflict_table_row_of_a_group_blind_constraint():
+    # a group-blind constraint has no bound to loosen: in the conflict table its bound key is empty
+    # (docs/outputs.md, the conflict table's columns) and its bound 0; the others name theirs
+    rl, costs, columns = random_instance(3, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    W = rl.weights.sum()
+    harshest = float((rl.weights * rl.p[:, 0, -1]).sum() / W)
+    specs = [{"kind": "group_blind", "name": "blind"},
+             {"kind": "capacity", "at_least": "L1", "max_share": 0.0, "name": "none held"},
+             {"kind": "outcome_cap", "outcome": "o0", "max_rate": round(harshest + 0.01, 4), "name": "few"}]
+    with pytest.raises(InfeasibleError) as info:
+        ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+    table = info.value.conflicts.set_index("constraint")
+    blind = table.loc["blind"]
+    assert blind["kind"] == "group_blind" and blind["bound_key"] == "" and blind["bound"] == 0.0
+    assert table.loc["none held", "bound_key"] == "max_share" and table.loc["few", "bound_key"] == "max_rate"
