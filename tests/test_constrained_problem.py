@@ -795,3 +795,27 @@ def test_conflict_table_row_of_a_group_blind_constraint():
     blind = table.loc["blind"]
     assert blind["kind"] == "group_blind" and blind["bound_key"] == "" and blind["bound"] == 0.0
     assert table.loc["none held", "bound_key"] == "max_share" and table.loc["few", "bound_key"] == "max_rate"
+
+
+def test_a_conflict_smaller_than_the_feasibility_tolerance_is_reported_as_solver_trouble():
+    # a capacity just below the smallest share that meets the outcome cap (found by bisection on
+    # this instance): HiGHS reports the LP infeasible, and so does the independent reference LP
+    # (scipy's HiGHS), but the elastic program finds the constraints violated by only about 2e-8
+    # in total, below the feasibility tolerance (1e-6): that is named solver trouble, not a conflict
+    rl, costs, columns = random_instance(0, n_scores=3, n_buckets=2, n_groups=2, aware=True)
+    specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.2665443420410156, "name": "held"},
+             {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.3694, "name": "few"}]
+    assert reference_solve(rl, costs, columns, specs)[0] is None
+    with pytest.raises(SolverError) as info:
+        ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
+    text = str(info.value)
+    assert text.startswith("the solver reported the constraints infeasible (status kInfeasible), but a version with "
+                           "slack finds them violated by only ")
+    assert text.endswith("in total; this is solver trouble, not a conflict. Try another [linear_program] solver or method.")
+    total = float(text.split("violated by only ")[1].split(" ")[0])
+    assert 0 < total <= 1e-6  # FEASIBILITY_TOLERANCE
+    # a bound 0.001 lower is a conflict (the reference agrees): the capacity and the cap are named
+    lower = [dict(specs[0], max_share=0.2655)] + specs[1:]
+    assert reference_solve(rl, costs, columns, lower)[0] is None
+    with pytest.raises(InfeasibleError):
+        ConstrainedProblem(rl, costs, lower, columns=columns).solve_lp()
