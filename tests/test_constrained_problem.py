@@ -798,24 +798,36 @@ def test_conflict_table_row_of_a_group_blind_constraint():
 
 
 def test_a_conflict_smaller_than_the_feasibility_tolerance_is_reported_as_solver_trouble():
-    # a capacity just below the smallest share that meets the outcome cap (found by bisection on
-    # this instance): HiGHS reports the LP infeasible, and so does the independent reference LP
-    # (scipy's HiGHS), but the elastic program finds the constraints violated by only about 2e-8
-    # in total, below the feasibility tolerance (1e-6): that is named solver trouble, not a conflict
+    # a capacity just below the smallest share that meets the outcome cap: HiGHS reports the LP
+    # infeasible, but the elastic program finds the constraints violated by less than the
+    # feasibility tolerance (1e-6) in total: that is named solver trouble, not a conflict. The
+    # capacity is found here by bisection between a clear conflict and a feasible bound (the
+    # independent reference LP, scipy's HiGHS, agrees on both), so the test follows the solver's
+    # own tolerance rather than a bound found once on one HiGHS release
     rl, costs, columns = random_instance(0, n_scores=3, n_buckets=2, n_groups=2, aware=True)
-    specs = [{"kind": "capacity", "at_least": "L1", "max_share": 0.2665443420410156, "name": "held"},
-             {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.3694, "name": "few"}]
-    assert reference_solve(rl, costs, columns, specs)[0] is None
-    with pytest.raises(SolverError) as info:
-        ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
-    text = str(info.value)
+    cap = {"kind": "outcome_cap", "outcome": "o0", "max_rate": 0.3694, "name": "few"}
+    with_capacity = lambda share: [{"kind": "capacity", "at_least": "L1", "max_share": share, "name": "held"}, cap]
+    lo, hi = 0.2655, 0.27
+    assert reference_solve(rl, costs, columns, with_capacity(lo))[0] is None
+    assert reference_solve(rl, costs, columns, with_capacity(hi))[0] is not None
+    with pytest.raises(InfeasibleError):  # a bound 0.001 under the edge is a conflict
+        ConstrainedProblem(rl, costs, with_capacity(lo), columns=columns).solve_lp()
+    trouble = None
+    for _ in range(80):  # conflicts below, feasible above, and between them a band narrower than 1e-6
+        mid = 0.5 * (lo + hi)
+        try:
+            ConstrainedProblem(rl, costs, with_capacity(mid), columns=columns).solve_lp()
+        except SolverError as error:
+            trouble = error
+            break
+        except InfeasibleError:
+            lo = mid
+        else:
+            hi = mid
+    assert trouble is not None, (lo, hi)
+    text = str(trouble)
     assert text.startswith("the solver reported the constraints infeasible (status kInfeasible), but a version with "
                            "slack finds them violated by only ")
     assert text.endswith("in total; this is solver trouble, not a conflict. Try another [linear_program] solver or method.")
     total = float(text.split("violated by only ")[1].split(" ")[0])
     assert 0 < total <= 1e-6  # FEASIBILITY_TOLERANCE
-    # a bound 0.001 lower is a conflict (the reference agrees): the capacity and the cap are named
-    lower = [dict(specs[0], max_share=0.2655)] + specs[1:]
-    assert reference_solve(rl, costs, columns, lower)[0] is None
-    with pytest.raises(InfeasibleError):
-        ConstrainedProblem(rl, costs, lower, columns=columns).solve_lp()
