@@ -8,7 +8,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from policy import analyze, load_scenario
@@ -388,6 +388,8 @@ def test_property_optimum_beats_any_feasible_rule_and_holds_every_constraint(par
 
 @PROPERTY
 @given(instances, kind_sets, st.integers(0, 10**6), st.floats(0.0, 0.05), st.floats(0.0, 0.3))
+@example(params=dict(seed=0, n_scores=1, n_buckets=2, n_groups=3, levels=3, outcomes=1, aware=True, drop=0.0),
+         kinds=["conditional_parity", "group_blind"], seed=0, slack=1e-07, extra=0.25)
 def test_property_loosening_never_raises_the_optimum(params, kinds, seed, slack, extra):
     rl, costs, columns, rule, specs, rng = _feasible_instance(params, kinds, seed, slack)
     problem = ConstrainedProblem(rl, costs, specs, columns=columns)
@@ -396,10 +398,13 @@ def test_property_loosening_never_raises_the_optimum(params, kinds, seed, slack,
                 for k, s in enumerate(problem.specs) if s.kind != "group_blind"}
     problem.set_bounds(loosened)
     loose = problem.solve_lp().cost_per_case
-    assert loose <= tight + 1e-9 * max(1.0, abs(tight))
+    # two optima of the same LP agree to the solver's tolerances, not to the last bit: HiGHS stops
+    # within a primal and dual feasibility tolerance of 1e-7 (its default), and the example above
+    # (a warm re-solve after a loosening) came back 4e-9 of the cost above the tight optimum
+    assert loose <= tight + 1e-7 * max(1.0, abs(tight))
     for k in range(len(problem.specs)):
         problem.set_active(k + 1, False)
-    assert problem.solve_lp().cost_per_case <= loose + 1e-9 * max(1.0, abs(loose))
+    assert problem.solve_lp().cost_per_case <= loose + 1e-7 * max(1.0, abs(loose))
 
 
 @pytest.mark.slow
