@@ -373,7 +373,7 @@ def test_property_optimum_beats_any_feasible_rule_and_holds_every_constraint(par
     lp = ConstrainedProblem(rl, costs, specs, columns=columns).solve_lp()
     w = rl.weights
     random_cost = np.sum(w[:, None] * rule * costs.expected(rl.p)) / w.sum()
-    assert lp.cost_per_case <= random_cost + 1e-9 * max(1.0, abs(random_cost))
+    assert lp.cost_per_case <= random_cost + 1e-7 * max(1.0, abs(random_cost))  # HiGHS's tolerances, as below
     index, _ = rl.layout.group_by(columns)
     cell_delta = lp.delta[index]
     for spec in specs:
